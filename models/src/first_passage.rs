@@ -1,0 +1,98 @@
+//! Time for a brake to dissipate a given energy: the first-passage time of a Brownian motion
+//! with drift, which follows the inverse Gaussian (Wald) distribution.
+//!
+//! # Model
+//! Cumulative friction energy at an axle is treated as `E(t) = μ·t + σ·W(t)` (MJ, `t` in days,
+//! `W` a standard Wiener process): `μ` the mean daily energy, `σ²` its variance per day. The
+//! first time `T` it reaches a remaining energy `R > 0` is inverse Gaussian with
+//!
+//! ```text
+//! mean m = R/μ,   shape λ = R²/σ²,   variance = m³/λ = R·σ²/μ³
+//! F(t) = Φ(√(λ/t)·(t/m − 1)) + exp(2λ/m)·Φ(−√(λ/t)·(t/m + 1))
+//! ```
+//! (Chhikara & Folks, *The Inverse Gaussian Distribution*, 1989, eq. 2.1-2.2; Schrödinger 1915.)
+//! The second term is evaluated in log space, `exp(2λ/m + ln Φ(·))`, so large `λ/m` does not
+//! overflow.
+
+use rand::Rng;
+use rand_distr::{Distribution, InverseGaussian};
+use statrs::distribution::{ContinuousCDF, Normal};
+
+use crate::error::ModelError;
+
+/// Inverse Gaussian first-passage distribution for a remaining energy.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FirstPassage {
+    /// Mean passage time m = R/μ, days.
+    pub mean_days: f64,
+    /// Shape λ = R²/σ², days.
+    pub shape_days: f64,
+}
+
+impl FirstPassage {
+    /// Passage time to dissipate `remaining_mj` at drift `daily_mean_mj` (MJ/day) with
+    /// `daily_variance_mj2` (MJ²/day). All three must be positive and finite.
+    pub fn new(remaining_mj: f64, daily_mean_mj: f64, daily_variance_mj2: f64) -> Result<Self, ModelError> {
+        if !(remaining_mj > 0.0 && daily_mean_mj > 0.0 && daily_variance_mj2 > 0.0)
+            || !(remaining_mj.is_finite() && daily_mean_mj.is_finite() && daily_variance_mj2.is_finite())
+        {
+            return Err(ModelError::InvalidArgument(format!(
+                "first passage needs positive finite R ({remaining_mj}), μ ({daily_mean_mj}) and σ² ({daily_variance_mj2})"
+            )));
+        }
+        Ok(Self { mean_days: remaining_mj / daily_mean_mj, shape_days: remaining_mj * remaining_mj / daily_variance_mj2 })
+    }
+
+    /// Variance of the passage time, days²: m³/λ (= R·σ²/μ³).
+    pub fn variance_days2(&self) -> f64 {
+        self.mean_days.powi(3) / self.shape_days
+    }
+
+    /// Probability that the energy is reached within `days`.
+    pub fn cdf(&self, days: f64) -> f64 {
+        if days <= 0.0 {
+            return 0.0;
+        }
+        let Ok(normal) = Normal::new(0.0, 1.0) else { return f64::NAN };
+        let m = self.mean_days;
+        let l = self.shape_days;
+        let root = (l / days).sqrt();
+        let first = normal.cdf(root * (days / m - 1.0));
+        let tail = normal.cdf(-root * (days / m + 1.0));
+        let second = if tail > 0.0 { (2.0 * l / m + tail.ln()).exp() } else { 0.0 };
+        (first + second).clamp(0.0, 1.0)
+    }
+
+    /// Quantile (days) at `probability` in (0, 1), by bisection on [`Self::cdf`].
+    pub fn quantile(&self, probability: f64) -> f64 {
+        let p = probability.clamp(1e-12, 1.0 - 1e-12);
+        let mut low = 0.0;
+        let mut high = self.mean_days.max(1e-9);
+        while self.cdf(high) < p {
+            high *= 2.0;
+            if high > 1e15 {
+                return f64::INFINITY;
+            }
+        }
+        for _ in 0..200 {
+            let mid = 0.5 * (low + high);
+            if self.cdf(mid) < p {
+                low = mid;
+            } else {
+                high = mid;
+            }
+            if high - low <= 1e-12 * high {
+                break;
+            }
+        }
+        0.5 * (low + high)
+    }
+
+    /// One random passage time, days (Michael, Schucany & Haas 1976 via `rand_distr`).
+    pub fn sample<R: Rng + ?Sized>(&self, rng: &mut R) -> f64 {
+        match InverseGaussian::new(self.mean_days, self.shape_days) {
+            Ok(d) => d.sample(rng),
+            Err(_) => self.mean_days,
+        }
+    }
+}

@@ -1,0 +1,211 @@
+//! The wear-rate fit of one part position from the vehicle's own inspections.
+//!
+//! # Model
+//! Within a wear cycle `c` the thickness lost is proportional to the friction energy the brake
+//! dissipated since the cycle's origin (Archard-type wear: worn volume ∝ frictional work;
+//! Archard 1953, J. Appl. Phys. 24:981):
+//!
+//! ```text
+//! y = T_new − t = a_c + k·x  [+ k_hot·x_hot]
+//! x      energy since the cycle origin, MJ        x_hot  of which in hot stops, MJ
+//! t      measured thickness, mm                   k      wear rate, mm/MJ
+//! a_c    0 for a cycle that began with a recorded replacement (optionally a bedding-in
+//!        intercept common to those cycles); a free intercept per cycle whose start is unknown
+//! ```
+//! The vehicle's cycles are pooled in one least-squares fit with a per-cycle start (the `a_c`
+//! columns), solved by linfa-linear ([`crate::regression`]); coefficients, covariance, residual
+//! standard deviation and degrees of freedom come with it. A cycle of unknown start with a
+//! single inspection only fixes its own intercept and is left out of the fit.
+//!
+//! The reported rate `rate_mm_per_mj` is the energy coefficient `k`, or with the hot regressor
+//! the effective rate `k + k_hot·h` at the part's observed hot-energy fraction `h`.
+
+use ndarray::{Array1, Array2};
+use serde::{Deserialize, Serialize};
+
+use crate::error::ModelError;
+use crate::forecast::ForecastSettings;
+use crate::regression::fit_linear;
+use crate::wear_history::{PartHistory, WearCycle};
+
+/// A part position's own wear-rate fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct WearFit {
+    /// Wear rate, mm of thickness per MJ of friction energy at this brake.
+    pub rate_mm_per_mj: f64,
+    /// Standard error of the rate, mm/MJ.
+    pub rate_stderr_mm_per_mj: f64,
+    /// Inspections that entered the fit.
+    pub inspections_used: u32,
+    /// Residual degrees of freedom (inspections minus coefficients).
+    pub degrees_of_freedom: f64,
+    /// Residual standard deviation, mm (gauge noise plus model error).
+    pub residual_sd_mm: f64,
+    /// Names of the coefficients, in order ("energy", "hot_energy", "cycle_1_start", "bedding").
+    pub coefficient_names: Vec<String>,
+    /// Coefficient estimates (mm/MJ for energies, mm for intercepts).
+    pub coefficients: Vec<f64>,
+    /// Covariance of the coefficients, row-major.
+    pub covariance: Vec<Vec<f64>>,
+    /// gᵀ(XᵀX)⁻¹g for the rate's gradient g: the rate variance per unit residual variance,
+    /// (mm/MJ)²/mm². Lets a forecast rescale the rate's variance with another residual SD.
+    pub rate_variance_per_residual_variance: f64,
+    /// Hot-energy fraction `h` at which the effective rate is stated (0 without the hot regressor).
+    pub hot_fraction: f64,
+    /// Wear cycles that contributed points.
+    pub cycles_used: u32,
+}
+
+/// Sums describing the rate information in a history, for the closed-form slope used when a
+/// full fit has no residual degrees of freedom: pooled within-cycle `Sxx`, `Sxy`.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct RateSums {
+    /// Σ (x − x̄_c)² over cycles (x̄_c = 0 for known-start cycles), MJ².
+    pub sxx: f64,
+    /// Σ (x − x̄_c)(y − ȳ_c), MJ·mm.
+    pub sxy: f64,
+    /// Inspections contributing.
+    pub points: u32,
+}
+
+impl RateSums {
+    /// Least-squares slope Sxy/Sxx, mm/MJ, when Sxx > 0.
+    pub fn slope(&self) -> Option<f64> {
+        (self.sxx > 0.0).then(|| self.sxy / self.sxx)
+    }
+}
+
+/// Closed-form pooled slope of thickness lost on energy (no hot regressor, no bedding term).
+pub fn rate_sums(history: &PartHistory) -> RateSums {
+    let mut sums = RateSums::default();
+    for cycle in history.cycles() {
+        match cycle.start {
+            Some(start) => {
+                for p in &cycle.points {
+                    let x = p.energy_mj - start.energy_mj;
+                    let y = start.new_thickness_mm - p.thickness_mm;
+                    sums.sxx += x * x;
+                    sums.sxy += x * y;
+                    sums.points += 1;
+                }
+            }
+            None if cycle.points.len() >= 2 => {
+                let n = cycle.points.len() as f64;
+                let xm = cycle.points.iter().map(|p| p.energy_mj).sum::<f64>() / n;
+                let ym = cycle.points.iter().map(|p| -p.thickness_mm).sum::<f64>() / n;
+                for p in &cycle.points {
+                    let x = p.energy_mj - xm;
+                    sums.sxx += x * x;
+                    sums.sxy += x * (-p.thickness_mm - ym);
+                }
+                sums.points += cycle.points.len() as u32;
+            }
+            None => {}
+        }
+    }
+    sums
+}
+
+fn usable(cycle: &WearCycle) -> bool {
+    match cycle.start {
+        Some(_) => !cycle.points.is_empty(),
+        None => cycle.points.len() >= 2,
+    }
+}
+
+/// Fits the part's wear rate from the vehicle's own inspections (see the module docs).
+///
+/// Errors: [`ModelError::TooFewPoints`] when the inspections do not leave at least one residual
+/// degree of freedom; [`ModelError::NonPositiveWearRate`] when the fitted rate is zero or
+/// negative; [`ModelError::Singular`] when the energies carry no information (e.g. no energy
+/// between inspections).
+pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
+    let cycles: Vec<WearCycle> = history.cycles().into_iter().filter(usable).collect();
+    let hot = settings.hot_regressor;
+    let unknown: Vec<usize> = cycles.iter().enumerate().filter(|(_, c)| c.start.is_none()).map(|(i, _)| i).collect();
+    let any_known = cycles.iter().any(|c| c.start.is_some());
+    let bedding = settings.bedding_intercept && any_known;
+    let mut names = vec!["energy".to_string()];
+    if hot {
+        names.push("hot_energy".into());
+    }
+    for (k, _) in unknown.iter().enumerate() {
+        names.push(format!("cycle_{}_start", k + 1));
+    }
+    if bedding {
+        names.push("bedding".into());
+    }
+    let p = names.len();
+    let mut rows: Vec<f64> = Vec::new();
+    let mut y: Vec<f64> = Vec::new();
+    let mut energy_total = 0.0;
+    let mut hot_total = 0.0;
+    for (ci, cycle) in cycles.iter().enumerate() {
+        let Some((origin, hot_origin)) = cycle.origin_energy_mj() else { continue };
+        let reference_mm = cycle.start.map_or(history.new_thickness_mm, |s| s.new_thickness_mm);
+        for point in &cycle.points {
+            let mut row = vec![0.0; p];
+            let x = point.energy_mj - origin;
+            let xh = point.hot_energy_mj - hot_origin;
+            row[0] = x;
+            let mut col = 1;
+            if hot {
+                row[1] = xh;
+                col = 2;
+            }
+            if let Some(k) = unknown.iter().position(|&u| u == ci) {
+                row[col + k] = 1.0;
+            } else if bedding {
+                row[p - 1] = 1.0;
+            }
+            rows.extend_from_slice(&row);
+            y.push(reference_mm - point.thickness_mm);
+        }
+        if let Some(last) = cycle.points.last() {
+            energy_total += (last.energy_mj - origin).max(0.0);
+            hot_total += (last.hot_energy_mj - hot_origin).max(0.0);
+        }
+    }
+    let n = y.len();
+    if n <= p {
+        return Err(ModelError::TooFewPoints {
+            points: n,
+            needed: p + 1,
+            detail: format!("wear-rate fit with {p} coefficient(s) needs one more inspection than coefficients"),
+        });
+    }
+    let design = Array2::from_shape_vec((n, p), rows).map_err(|e| ModelError::InvalidArgument(e.to_string()))?;
+    let fit = fit_linear(design.view(), Array1::from(y).view())?;
+    let hot_fraction = if hot && energy_total > 0.0 { (hot_total / energy_total).clamp(0.0, 1.0) } else { 0.0 };
+    let mut gradient = vec![0.0; p];
+    gradient[0] = 1.0;
+    if hot {
+        gradient[1] = hot_fraction;
+    }
+    let rate: f64 = gradient.iter().zip(&fit.coefficients).map(|(g, b)| g * b).sum();
+    let quad = |m: &Vec<Vec<f64>>| -> f64 {
+        let mut q = 0.0;
+        for a in 0..p {
+            for b in 0..p {
+                q += gradient[a] * m[a][b] * gradient[b];
+            }
+        }
+        q
+    };
+    if !(rate > 0.0) {
+        return Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: rate });
+    }
+    Ok(WearFit {
+        rate_mm_per_mj: rate,
+        rate_stderr_mm_per_mj: quad(&fit.covariance).max(0.0).sqrt(),
+        inspections_used: n as u32,
+        degrees_of_freedom: fit.degrees_of_freedom,
+        residual_sd_mm: fit.residual_sd,
+        coefficient_names: names,
+        coefficients: fit.coefficients,
+        covariance: fit.covariance,
+        rate_variance_per_residual_variance: quad(&fit.xtx_inverse).max(0.0),
+        hot_fraction,
+        cycles_used: cycles.len() as u32,
+    })
+}

@@ -1,0 +1,232 @@
+//! A part's dated history (replacements and inspections with the cumulative braking energy at
+//! each) and its division into wear cycles.
+//!
+//! A wear cycle runs from one replacement to the next. Its start is *known* when it begins
+//! with a recorded replacement (the part's new thickness then sits at the cycle's energy
+//! origin). Parts already fitted when the records began have an *unknown* start: the first
+//! inspection is their baseline and only thickness differences within the cycle carry
+//! information about the wear rate.
+//!
+//! Day convention: `day` is days since the Unix epoch (UTC). An event happens at the start of
+//! its day, so the cumulative energies recorded with it count every day strictly before
+//! `day.floor()`. [`history_from_daily_energy`] builds histories following that convention.
+
+use serde::{Deserialize, Serialize};
+
+use crate::domain::Component;
+
+/// What happened to the part at an event.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub enum PartEventKind {
+    /// The part was measured.
+    Inspection {
+        /// Measured remaining thickness, mm.
+        thickness_mm: f64,
+    },
+    /// A new part was fitted.
+    Replacement {
+        /// Thickness of the part fitted, mm.
+        new_thickness_mm: f64,
+    },
+}
+
+/// One dated event in a part's life. `day` is days since the Unix epoch (UTC), fractional
+/// allowed. Convention: an event happens at the START of its day: cumulative energies count
+/// every day strictly before `day.floor()`.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct PartEvent {
+    /// Days since the Unix epoch (UTC).
+    pub day: f64,
+    /// Friction energy at this brake (axle) since the vehicle's records began, MJ.
+    pub cumulative_energy_mj: f64,
+    /// Of which dissipated in hot stops, MJ.
+    pub cumulative_hot_energy_mj: f64,
+    /// Inspection or replacement.
+    pub kind: PartEventKind,
+}
+
+/// The recorded life of one part position (vehicle, axle, component).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PartHistory {
+    /// Axle position, 1 = front-most.
+    pub axle_index: u32,
+    /// Pad/lining or rotor/drum.
+    pub component: Component,
+    /// Nominal new thickness from the vehicle spec, mm (used when a replacement gives none).
+    pub new_thickness_mm: f64,
+    /// Minimum allowed thickness, mm.
+    pub min_thickness_mm: f64,
+    /// Events sorted by day; a replacement sorts before an inspection on the same day.
+    pub events: Vec<PartEvent>,
+}
+
+/// One inspection inside a cycle.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CyclePoint {
+    /// Day of the inspection (days since epoch).
+    pub day: f64,
+    /// Cumulative energy at the inspection, MJ.
+    pub energy_mj: f64,
+    /// Cumulative hot energy at the inspection, MJ.
+    pub hot_energy_mj: f64,
+    /// Measured thickness, mm.
+    pub thickness_mm: f64,
+}
+
+/// How a cycle began.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CycleStart {
+    /// Day of the replacement.
+    pub day: f64,
+    /// Cumulative energy at the replacement, MJ.
+    pub energy_mj: f64,
+    /// Cumulative hot energy at the replacement, MJ.
+    pub hot_energy_mj: f64,
+    /// Thickness fitted, mm.
+    pub new_thickness_mm: f64,
+}
+
+/// The inspections of one part between two replacements.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WearCycle {
+    /// The replacement that began the cycle; `None` when the part predates the records.
+    pub start: Option<CycleStart>,
+    /// Inspections in day order.
+    pub points: Vec<CyclePoint>,
+}
+
+impl WearCycle {
+    /// Energy origin of the cycle: the replacement, else the first inspection, MJ.
+    pub fn origin_energy_mj(&self) -> Option<(f64, f64)> {
+        match (&self.start, self.points.first()) {
+            (Some(s), _) => Some((s.energy_mj, s.hot_energy_mj)),
+            (None, Some(p)) => Some((p.energy_mj, p.hot_energy_mj)),
+            (None, None) => None,
+        }
+    }
+}
+
+impl PartHistory {
+    /// Splits the events into wear cycles, oldest first. The last cycle is the part fitted
+    /// now. Events with non-finite values are skipped.
+    pub fn cycles(&self) -> Vec<WearCycle> {
+        let mut cycles = vec![WearCycle { start: None, points: Vec::new() }];
+        for event in &self.events {
+            if !(event.day.is_finite() && event.cumulative_energy_mj.is_finite() && event.cumulative_hot_energy_mj.is_finite()) {
+                continue;
+            }
+            match event.kind {
+                PartEventKind::Replacement { new_thickness_mm } => {
+                    let new_mm = if new_thickness_mm.is_finite() && new_thickness_mm > 0.0 {
+                        new_thickness_mm
+                    } else {
+                        self.new_thickness_mm
+                    };
+                    cycles.push(WearCycle {
+                        start: Some(CycleStart {
+                            day: event.day,
+                            energy_mj: event.cumulative_energy_mj,
+                            hot_energy_mj: event.cumulative_hot_energy_mj,
+                            new_thickness_mm: new_mm,
+                        }),
+                        points: Vec::new(),
+                    });
+                }
+                PartEventKind::Inspection { thickness_mm } if thickness_mm.is_finite() => {
+                    if let Some(last) = cycles.last_mut() {
+                        last.points.push(CyclePoint {
+                            day: event.day,
+                            energy_mj: event.cumulative_energy_mj,
+                            hot_energy_mj: event.cumulative_hot_energy_mj,
+                            thickness_mm,
+                        });
+                    }
+                }
+                PartEventKind::Inspection { .. } => {}
+            }
+        }
+        if cycles.len() > 1 && cycles[0].points.is_empty() {
+            cycles.remove(0);
+        }
+        cycles
+    }
+}
+
+/// A dated event without energies, for [`history_from_daily_energy`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DatedEvent {
+    /// Days since the Unix epoch (UTC).
+    pub day: f64,
+    /// What happened.
+    pub kind: PartEventKind,
+}
+
+/// Builds a [`PartHistory`] from per-day energies and dated events.
+///
+/// `first_day` is the day (since epoch) of `daily_energy_mj[0]`; `daily_hot_energy_mj` is
+/// either empty or as long as `daily_energy_mj`. Each event gets the sum of the days strictly
+/// before its `day.floor()` (the start-of-day convention). Events are sorted by day, with a
+/// replacement before an inspection on the same day.
+#[allow(clippy::too_many_arguments)]
+pub fn history_from_daily_energy(
+    axle_index: u32,
+    component: Component,
+    new_thickness_mm: f64,
+    min_thickness_mm: f64,
+    first_day: i64,
+    daily_energy_mj: &[f64],
+    daily_hot_energy_mj: &[f64],
+    events: &[DatedEvent],
+) -> PartHistory {
+    let prefix = prefix_sums(daily_energy_mj);
+    let hot_prefix = prefix_sums(daily_hot_energy_mj);
+    let mut sorted: Vec<DatedEvent> = events.iter().copied().filter(|e| e.day.is_finite()).collect();
+    sorted.sort_by(|a, b| {
+        a.day
+            .floor()
+            .total_cmp(&b.day.floor())
+            .then_with(|| event_rank(&a.kind).cmp(&event_rank(&b.kind)))
+            .then_with(|| a.day.total_cmp(&b.day))
+    });
+    let events = sorted
+        .into_iter()
+        .map(|e| {
+            let days_before = e.day.floor() as i64 - first_day;
+            PartEvent {
+                day: e.day,
+                cumulative_energy_mj: prefix_at(&prefix, days_before),
+                cumulative_hot_energy_mj: prefix_at(&hot_prefix, days_before),
+                kind: e.kind,
+            }
+        })
+        .collect();
+    PartHistory { axle_index, component, new_thickness_mm, min_thickness_mm, events }
+}
+
+fn event_rank(kind: &PartEventKind) -> u8 {
+    match kind {
+        PartEventKind::Replacement { .. } => 0,
+        PartEventKind::Inspection { .. } => 1,
+    }
+}
+
+/// `prefix[i]` = sum of the first `i` values.
+pub fn prefix_sums(values: &[f64]) -> Vec<f64> {
+    let mut out = Vec::with_capacity(values.len() + 1);
+    let mut total = 0.0;
+    out.push(0.0);
+    for v in values {
+        total += if v.is_finite() { *v } else { 0.0 };
+        out.push(total);
+    }
+    out
+}
+
+/// Sum of the first `days` values from a prefix-sum table, clamped to the table.
+pub fn prefix_at(prefix: &[f64], days: i64) -> f64 {
+    if days <= 0 || prefix.is_empty() {
+        return 0.0;
+    }
+    let i = (days as usize).min(prefix.len() - 1);
+    prefix[i]
+}

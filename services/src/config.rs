@@ -1,0 +1,148 @@
+//! Typed settings, layered once at start-up: built-in defaults, then an optional TOML file,
+//! then environment variables (`BRAKELEDGER_LISTEN`, `BRAKELEDGER_DATA`, `BRAKELEDGER_LOG`),
+//! then command-line flags. Libraries never read the environment; `main` does, through
+//! [`Settings::load`].
+
+use std::net::SocketAddr;
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+
+/// Everything the server needs to start.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(default, deny_unknown_fields)]
+pub struct Settings {
+    /// Address the gRPC server listens on.
+    pub listen: SocketAddr,
+    /// Directory of the sled database.
+    pub data_dir: PathBuf,
+    /// Log format: "text" or "json".
+    pub log_format: LogFormat,
+    /// Log filter in `tracing` env-filter syntax, e.g. "info,brakeledger=debug".
+    pub log_filter: String,
+    /// Forecast settings.
+    pub forecast: ForecastConfig,
+}
+
+/// Log output format.
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum LogFormat {
+    /// Human-readable lines.
+    Text,
+    /// One JSON object per line.
+    Json,
+}
+
+/// Settings of the forecast materialiser.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(default, deny_unknown_fields)]
+pub struct ForecastConfig {
+    /// Days of trip history the energy forecast reads.
+    pub energy_window_days: usize,
+    /// Monte Carlo draws per part.
+    pub monte_carlo_draws: usize,
+    /// Quiet time after a write before stale forecasts are recomputed, ms (coalesces bursts).
+    pub coalesce_ms: u64,
+    /// Vehicles recomputed per pass.
+    pub batch_vehicles: usize,
+}
+
+impl Default for ForecastConfig {
+    fn default() -> Self {
+        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, batch_vehicles: 256 }
+    }
+}
+
+impl Default for Settings {
+    fn default() -> Self {
+        Self {
+            listen: SocketAddr::from(([127, 0, 0, 1], 50_051)),
+            data_dir: PathBuf::from("brakeledger-data"),
+            log_format: LogFormat::Text,
+            log_filter: "info".to_owned(),
+            forecast: ForecastConfig::default(),
+        }
+    }
+}
+
+/// Problems loading settings.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    /// The file could not be read.
+    #[error("cannot read config file {path}: {source}")]
+    Read {
+        /// The file.
+        path: PathBuf,
+        /// Why.
+        source: std::io::Error,
+    },
+    /// The file is not valid TOML for these settings.
+    #[error("config file {path}: {message}")]
+    Parse {
+        /// The file.
+        path: PathBuf,
+        /// Why.
+        message: String,
+    },
+    /// An environment variable has a bad value.
+    #[error("environment variable {name}: {message}")]
+    Env {
+        /// The variable.
+        name: &'static str,
+        /// Why.
+        message: String,
+    },
+}
+
+impl Settings {
+    /// Defaults, then `file` (if given), then the environment as read by `env`.
+    pub fn load(file: Option<&Path>, env: impl Fn(&str) -> Option<String>) -> Result<Self, ConfigError> {
+        let mut settings = match file {
+            Some(path) => {
+                let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read { path: path.to_owned(), source })?;
+                toml::from_str(&text).map_err(|e| ConfigError::Parse { path: path.to_owned(), message: e.to_string() })?
+            }
+            None => Settings::default(),
+        };
+        if let Some(listen) = env("BRAKELEDGER_LISTEN") {
+            settings.listen = listen
+                .parse()
+                .map_err(|e| ConfigError::Env { name: "BRAKELEDGER_LISTEN", message: format!("{e}") })?;
+        }
+        if let Some(dir) = env("BRAKELEDGER_DATA") {
+            settings.data_dir = PathBuf::from(dir);
+        }
+        if let Some(filter) = env("BRAKELEDGER_LOG") {
+            settings.log_filter = filter;
+        }
+        Ok(settings)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn file_then_environment_override() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("brakeledger.toml");
+        std::fs::write(&path, "listen = \"127.0.0.1:6000\"\ndata_dir = \"/var/lib/x\"\n[forecast]\nmonte_carlo_draws = 500\n").unwrap();
+        let settings = Settings::load(Some(&path), |name| (name == "BRAKELEDGER_DATA").then(|| "/srv/y".to_owned())).unwrap();
+        assert_eq!(settings.listen, "127.0.0.1:6000".parse().unwrap());
+        assert_eq!(settings.data_dir, PathBuf::from("/srv/y"));
+        assert_eq!(settings.forecast.monte_carlo_draws, 500);
+        assert_eq!(settings.forecast.energy_window_days, 120);
+    }
+
+    #[test]
+    fn unknown_keys_and_bad_env_are_errors() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("bad.toml");
+        std::fs::write(&path, "listn = \"x\"\n").unwrap();
+        assert!(matches!(Settings::load(Some(&path), |_| None), Err(ConfigError::Parse { .. })));
+        let bad_env = Settings::load(None, |name| (name == "BRAKELEDGER_LISTEN").then(|| "nowhere".to_owned()));
+        assert!(matches!(bad_env, Err(ConfigError::Env { .. })));
+    }
+}

@@ -1,0 +1,8 @@
+//! gRPC handlers, one module per service. Each handler validates, converts the request to
+//! domain values, makes one call into the store or the forecaster, and converts back.
+
+pub mod fleet_api;
+pub mod forecast_api;
+pub mod maintenance_api;
+pub mod paging;
+pub mod telemetry_api;

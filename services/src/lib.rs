@@ -1,0 +1,31 @@
+//! # brakeledger (service)
+//!
+//! The gRPC service and command-line client. Pure computation lives in `brakeledger-models`;
+//! the wire contract in `brakeledger-proto`.
+//!
+//! # Layout
+//! - [`config`]: typed settings (defaults, TOML file, environment).
+//! - [`store`]: the [`store::Store`] trait, its records and the sled engine.
+//! - [`convert`]: wire ⇄ domain conversions with field-level validation.
+//! - [`error`]: the service error enum and its one mapping to gRPC status.
+//! - [`state`]: what handlers share.
+//! - [`grpc`]: one handler module per gRPC service.
+//! - [`forecaster`]: builds model inputs from stored data and keeps forecasts materialised.
+//! - [`server`]: the one entry point, [`server::run`].
+//! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
+//!
+//! Forecasts support maintenance planning. They do not replace inspection by a qualified
+//! technician, nor the roadworthiness rules that apply where the vehicle runs.
+
+pub mod cli;
+pub mod config;
+pub mod convert;
+pub mod error;
+pub mod forecaster;
+pub mod grpc;
+pub mod server;
+pub mod state;
+pub mod store;
+
+/// The caution printed with every forecast and plan.
+pub const SAFETY_CAUTION: &str = "Caution: these forecasts support maintenance planning. They do not replace inspection by a qualified technician, nor the roadworthiness rules that apply where the vehicle runs.";

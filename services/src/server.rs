@@ -1,0 +1,72 @@
+//! The one server entry point: [`run`] serves every brakeledger service, gRPC health and
+//! reflection on a listener until `shutdown` resolves, then drains in-flight calls (open
+//! streams finish and get their reports), stops the forecast materialiser and flushes the store.
+
+use std::future::Future;
+
+use brakeledger_proto::v1::{
+    fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
+    maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
+};
+use tokio::net::TcpListener;
+use tokio::sync::watch;
+use tokio_stream::wrappers::TcpListenerStream;
+
+use crate::forecaster;
+use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
+use crate::state::AppState;
+
+/// Failures that stop the server.
+#[derive(Debug, thiserror::Error)]
+pub enum ServerError {
+    /// The transport failed.
+    #[error("transport: {0}")]
+    Transport(#[from] tonic::transport::Error),
+    /// Reflection could not be built from the descriptors.
+    #[error("reflection: {0}")]
+    Reflection(#[from] tonic_reflection::server::Error),
+    /// The final flush failed.
+    #[error("flush on shutdown: {0}")]
+    Flush(#[from] crate::store::StoreError),
+}
+
+/// Serves on `listener` until `shutdown` resolves; returns after a clean drain and flush.
+pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<Output = ()> + Send) -> Result<(), ServerError> {
+    let (health_reporter, health_service) = tonic_health::server::health_reporter();
+    health_reporter.set_serving::<FleetServiceServer<FleetApi>>().await;
+    health_reporter.set_serving::<TelemetryServiceServer<TelemetryApi>>().await;
+    health_reporter.set_serving::<MaintenanceServiceServer<MaintenanceApi>>().await;
+    health_reporter.set_serving::<ForecastServiceServer<ForecastApi>>().await;
+
+    let reflection_v1 = tonic_reflection::server::Builder::configure()
+        .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
+        .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
+        .build_v1()?;
+    let reflection_v1alpha = tonic_reflection::server::Builder::configure()
+        .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
+        .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
+        .build_v1alpha()?;
+
+    let (stop_forecaster, forecaster_stopped) = watch::channel(false);
+    let forecaster_task = tokio::spawn(forecaster::run(state.clone(), forecaster_stopped));
+
+    let address = listener.local_addr().ok();
+    tracing::info!(?address, "serving brakeledger.v1");
+    let result = tonic::transport::Server::builder()
+        .add_service(health_service)
+        .add_service(reflection_v1)
+        .add_service(reflection_v1alpha)
+        .add_service(FleetServiceServer::new(FleetApi::new(state.clone())))
+        .add_service(TelemetryServiceServer::new(TelemetryApi::new(state.clone())))
+        .add_service(MaintenanceServiceServer::new(MaintenanceApi::new(state.clone())))
+        .add_service(ForecastServiceServer::new(ForecastApi::new(state.clone())))
+        .serve_with_incoming_shutdown(TcpListenerStream::new(listener), shutdown)
+        .await;
+    tracing::info!("stopped accepting calls; draining done, flushing the store");
+    let _ = stop_forecaster.send(true);
+    let _ = forecaster_task.await;
+    let store = std::sync::Arc::clone(&state.store);
+    tokio::task::spawn_blocking(move || store.flush()).await.ok().transpose()?;
+    result?;
+    Ok(())
+}

@@ -1,0 +1,62 @@
+//! Shared state handed to every gRPC handler and background task.
+
+use std::sync::Arc;
+
+use tokio::sync::{broadcast, Notify};
+
+use crate::config::ForecastConfig;
+use crate::error::{ServiceError, ServiceResult};
+use crate::store::{Store, VehicleForecasts, VehicleRecord};
+
+/// A change of one vehicle's materialised forecasts, for WatchDue streams.
+#[derive(Debug, Clone)]
+pub struct ForecastChange {
+    /// The forecasts before the change (`None` when there were none).
+    pub before: Option<Arc<VehicleForecasts>>,
+    /// The forecasts after the change.
+    pub after: Arc<VehicleForecasts>,
+}
+
+/// What handlers share.
+#[derive(Clone)]
+pub struct AppState {
+    /// The storage engine.
+    pub store: Arc<dyn Store>,
+    /// Forecast settings.
+    pub forecast: ForecastConfig,
+    /// Wakes the forecast materialiser after writes.
+    pub wake_forecaster: Arc<Notify>,
+    /// Forecast changes, published by the materialiser.
+    pub changes: broadcast::Sender<ForecastChange>,
+}
+
+impl AppState {
+    /// State around a store.
+    pub fn new(store: Arc<dyn Store>, forecast: ForecastConfig) -> Self {
+        let (changes, _) = broadcast::channel(4096);
+        Self { store, forecast, wake_forecaster: Arc::new(Notify::new()), changes }
+    }
+
+    /// Runs blocking store work off the async runtime.
+    pub async fn blocking<T, F>(&self, work: F) -> ServiceResult<T>
+    where
+        T: Send + 'static,
+        F: FnOnce(&dyn Store) -> ServiceResult<T> + Send + 'static,
+    {
+        let store = Arc::clone(&self.store);
+        tokio::task::spawn_blocking(move || work(store.as_ref()))
+            .await
+            .map_err(|e| ServiceError::Internal(format!("background task failed: {e}")))?
+    }
+
+    /// Reads a vehicle or fails with NOT_FOUND.
+    pub async fn vehicle(&self, fleet_id: &str, vehicle_id: &str) -> ServiceResult<VehicleRecord> {
+        let (fleet, vehicle) = (fleet_id.to_owned(), vehicle_id.to_owned());
+        self.blocking(move |store| {
+            store.get_vehicle(&fleet, &vehicle)?.ok_or_else(|| {
+                ServiceError::NotFound(format!("vehicle '{vehicle}' is not registered in fleet '{fleet}'"))
+            })
+        })
+        .await
+    }
+}

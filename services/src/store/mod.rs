@@ -1,0 +1,105 @@
+//! Storage: the records brakeledger keeps and the [`Store`] trait every engine implements.
+//!
+//! The trait is small and synchronous; handlers call it from `spawn_blocking`. Every write
+//! method returns only after what it wrote is durable on disk ("acknowledged means durable").
+//! [`sled_store::SledStore`] is the embedded default.
+
+pub mod keys;
+pub mod records;
+pub mod sled_store;
+
+pub use records::*;
+
+/// Failures of a storage engine.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    /// The engine itself failed (I/O, corruption detected by the engine).
+    #[error("storage engine: {0}")]
+    Engine(String),
+    /// A stored value could not be decoded.
+    #[error("stored record could not be decoded: {0}")]
+    Corrupt(String),
+    /// The database was written by a newer brakeledger.
+    #[error("the database has schema version {found}; this build reads up to {supported}")]
+    NewerSchema {
+        /// Version found in the database.
+        found: u32,
+        /// Highest version this build understands.
+        supported: u32,
+    },
+    /// A concurrent writer changed the same record; the caller may retry.
+    #[error("concurrent update conflict")]
+    Conflict,
+}
+
+/// Result of storage calls.
+pub type StoreResult<T> = Result<T, StoreError>;
+
+/// What happened to one trip handed to [`Store::ingest_trips`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum IngestOutcome {
+    /// Stored now.
+    Stored,
+    /// Its trip_id was already stored for the vehicle (or repeated earlier in the same call).
+    Duplicate,
+}
+
+/// A storage engine for brakeledger.
+pub trait Store: Send + Sync + 'static {
+    /// Creates or replaces a fleet; returns true when it is new.
+    fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool>;
+    /// Reads a fleet's settings.
+    fn get_fleet(&self, fleet_id: &str) -> StoreResult<Option<FleetRecord>>;
+    /// Creates or replaces a vehicle; returns true when it is new. Marks its forecasts stale.
+    fn upsert_vehicle(&self, vehicle: &VehicleRecord) -> StoreResult<bool>;
+    /// Reads one vehicle.
+    fn get_vehicle(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleRecord>>;
+    /// Vehicles of a fleet in vehicle_id order, starting after `after`, at most `limit`.
+    fn list_vehicles(&self, fleet_id: &str, after: Option<&str>, limit: usize) -> StoreResult<Vec<VehicleRecord>>;
+    /// Number of vehicles in a fleet.
+    fn count_vehicles(&self, fleet_id: &str) -> StoreResult<u64>;
+    /// Stored trip totals of one vehicle (zeros when none).
+    fn vehicle_totals(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<VehicleTotals>;
+    /// Stores trips atomically and durably; one outcome per trip, in order. Trips must already
+    /// be validated. Updates per-vehicle totals and the daily per-axle roll-up, and marks the
+    /// vehicles' forecasts stale.
+    fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>>;
+    /// Stores an inspection durably; returns false when its id was already stored.
+    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool>;
+    /// Stores a replacement durably; returns false when its id was already stored.
+    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool>;
+    /// The daily roll-up of one vehicle, oldest day first.
+    fn daily_energy(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<DailyEnergy>>;
+    /// Inspections and replacements of one vehicle, each sorted by time.
+    fn service_history(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceHistory>;
+    /// Replaces the materialised forecasts of one vehicle and their due-index entries.
+    fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()>;
+    /// The materialised forecasts of one vehicle.
+    fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>>;
+    /// Every materialised forecast of a fleet (for fleet-wide pooling).
+    fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>>;
+    /// Due-index range scan: parts whose `due_earliest` at band level `level` is before
+    /// `due_before_ms`, in index order, strictly after `after`, at most `limit`.
+    fn scan_due(
+        &self,
+        fleet_id: &str,
+        level: BandLevel,
+        due_before_ms: i64,
+        after: Option<&DueCursor>,
+        limit: usize,
+    ) -> StoreResult<Vec<DueCursor>>;
+    /// Marks vehicles whose forecasts must be recomputed.
+    fn mark_stale(&self, fleet_id: &str, vehicle_ids: &[String]) -> StoreResult<()>;
+    /// Up to `limit` stale vehicles, with the mark's generation (for [`Store::clear_stale`]).
+    fn stale_vehicles(&self, limit: usize) -> StoreResult<Vec<StaleMark>>;
+    /// Number of stale vehicles of one fleet.
+    fn count_stale(&self, fleet_id: &str) -> StoreResult<u64>;
+    /// Clears a stale mark unless the vehicle was marked again since `mark` was read.
+    fn clear_stale(&self, mark: &StaleMark) -> StoreResult<()>;
+    /// Saves a fleet's pooled wear-rate priors.
+    fn put_priors(&self, fleet_id: &str, priors: &FleetPriors) -> StoreResult<()>;
+    /// Reads a fleet's pooled wear-rate priors.
+    fn get_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriors>>;
+    /// Flushes everything to disk.
+    fn flush(&self) -> StoreResult<()>;
+}

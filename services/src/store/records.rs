@@ -1,0 +1,361 @@
+//! The records brakeledger stores, independent of the engine. Times are milliseconds since the
+//! Unix epoch (`_ms`), days are whole UTC days since the epoch, energies are J unless named `_mj`.
+
+use brakeledger_models::domain::{Component, VehicleSpec};
+use serde::{Deserialize, Serialize};
+
+/// Milliseconds in a day.
+pub const MS_PER_DAY: i64 = 86_400_000;
+
+/// The UTC day (days since the Unix epoch) an instant falls on.
+pub fn utc_day(ms: i64) -> i64 {
+    ms.div_euclid(MS_PER_DAY)
+}
+
+/// Settings of one fleet.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FleetRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// IANA time zone name for calendar dates ("UTC" when not set).
+    pub time_zone: String,
+    /// Name for people.
+    pub display_name: String,
+}
+
+impl FleetRecord {
+    /// The settings of a fleet never set up.
+    pub fn default_for(fleet_id: &str) -> Self {
+        Self { fleet_id: fleet_id.to_owned(), time_zone: "UTC".to_owned(), display_name: String::new() }
+    }
+}
+
+/// One registered vehicle.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VehicleRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// VIN, when known.
+    pub vin: Option<String>,
+    /// Class, mass and brakes.
+    pub spec: VehicleSpec,
+}
+
+/// Stored trip totals of one vehicle.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct VehicleTotals {
+    /// Distinct trips stored.
+    pub trips_recorded: u64,
+    /// Sum of friction energy, J.
+    pub friction_energy_j: f64,
+    /// Sum of distance, m.
+    pub distance_m: f64,
+    /// Latest trip end, ms; `None` before the first trip.
+    pub last_trip_end_ms: Option<i64>,
+}
+
+/// One validated trip, with its energy resolved per axle.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TripRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Trip identifier, unique per vehicle.
+    pub trip_id: String,
+    /// Start, ms.
+    pub start_ms: i64,
+    /// End, ms.
+    pub end_ms: i64,
+    /// Distance, m.
+    pub distance_m: f64,
+    /// Friction braking energy after regeneration, J.
+    pub friction_energy_j: f64,
+    /// Friction energy per axle, J (the trip's split, or the vehicle's shares applied).
+    pub axle_energy_j: Vec<f64>,
+    /// Whether `axle_energy_j` came from the trip (true) or from the configured shares.
+    pub axle_split_reported: bool,
+    /// Brake applications.
+    pub brake_applications: u32,
+    /// Regenerated energy, J, when reported.
+    pub regen_energy_j: Option<f64>,
+    /// Energy of hot stops, J (0 when not reported).
+    pub hot_energy_j: f64,
+}
+
+/// Friction energy of one vehicle on one UTC day, per axle: the roll-up models read.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct DailyEnergy {
+    /// UTC day, days since the Unix epoch (trips count on the day they end).
+    pub day: i64,
+    /// Friction energy per axle, J.
+    pub axle_energy_j: Vec<f64>,
+    /// Energy of hot stops per axle, J.
+    pub axle_hot_energy_j: Vec<f64>,
+    /// Trips ending that day.
+    pub trips: u32,
+    /// Distance of those trips, m.
+    pub distance_m: f64,
+}
+
+/// One measured thickness.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct InspectionRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Inspection identifier, unique per vehicle.
+    pub inspection_id: String,
+    /// Axle, 1 = front-most.
+    pub axle_index: u32,
+    /// Part measured.
+    pub component: Component,
+    /// Measured thickness, mm.
+    pub thickness_mm: f64,
+    /// When measured, ms.
+    pub measured_at_ms: i64,
+}
+
+/// One part replaced.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ReplacementRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Replacement identifier, unique per vehicle.
+    pub replacement_id: String,
+    /// Axle, 1 = front-most.
+    pub axle_index: u32,
+    /// Part replaced.
+    pub component: Component,
+    /// Thickness of the part fitted, mm.
+    pub new_thickness_mm: f64,
+    /// When replaced, ms.
+    pub replaced_at_ms: i64,
+}
+
+/// Inspections and replacements of one vehicle, each sorted by time.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ServiceHistory {
+    /// Inspections, oldest first.
+    pub inspections: Vec<InspectionRecord>,
+    /// Replacements, oldest first.
+    pub replacements: Vec<ReplacementRecord>,
+}
+
+/// The band levels kept in the due index.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum BandLevel {
+    /// 50 % band (25th to 75th percentile).
+    P50,
+    /// 80 % band (10th to 90th percentile), the default.
+    P80,
+    /// 90 % band (5th to 95th percentile).
+    P90,
+    /// 95 % band (2.5th to 97.5th percentile).
+    P95,
+}
+
+impl BandLevel {
+    /// Every indexed level.
+    pub const ALL: [BandLevel; 4] = [BandLevel::P50, BandLevel::P80, BandLevel::P90, BandLevel::P95];
+
+    /// The level as a probability.
+    pub fn probability(self) -> f64 {
+        match self {
+            BandLevel::P50 => 0.5,
+            BandLevel::P80 => 0.8,
+            BandLevel::P90 => 0.9,
+            BandLevel::P95 => 0.95,
+        }
+    }
+
+    /// The indexed level equal to `probability` (within 1e-9), if any.
+    pub fn from_probability(probability: f64) -> Option<Self> {
+        Self::ALL.into_iter().find(|l| (l.probability() - probability).abs() < 1e-9)
+    }
+
+    /// One-byte code used in index keys.
+    pub fn code(self) -> u8 {
+        match self {
+            BandLevel::P50 => 50,
+            BandLevel::P80 => 80,
+            BandLevel::P90 => 90,
+            BandLevel::P95 => 95,
+        }
+    }
+}
+
+/// A vehicle's own wear-rate fit of one part, kept for fleet pooling.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitSummary {
+    /// Wear rate, mm/MJ.
+    pub rate_mm_per_mj: f64,
+    /// Its standard error, mm/MJ.
+    pub rate_stderr_mm_per_mj: f64,
+    /// Inspections used.
+    pub inspections_used: u32,
+    /// Residual degrees of freedom.
+    pub degrees_of_freedom: f64,
+    /// Residual standard deviation, mm.
+    pub residual_sd_mm: f64,
+}
+
+/// Where a forecast's wear rate came from (mirrors the models crate's basis).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum StoredBasis {
+    /// The vehicle's own data.
+    VehicleData,
+    /// The fleet prior alone.
+    FleetPrior,
+    /// Both.
+    Combined,
+}
+
+/// The materialised forecast of one part.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StoredPart {
+    /// Axle, 1 = front-most.
+    pub axle_index: u32,
+    /// Component.
+    pub component: Component,
+    /// The vehicle's own fit, when one could be made.
+    pub own_fit: Option<FitSummary>,
+    /// Estimated thickness now (median), mm.
+    pub current_thickness_mm: f64,
+    /// Lower band of the thickness now, mm (at 80 %).
+    pub current_thickness_low_mm: f64,
+    /// Upper band of the thickness now, mm (at 80 %).
+    pub current_thickness_high_mm: f64,
+    /// Minimum thickness, mm.
+    pub min_thickness_mm: f64,
+    /// Wear rate used, mm/MJ.
+    pub wear_rate_mm_per_mj: f64,
+    /// Its standard error, mm/MJ.
+    pub wear_rate_stderr_mm_per_mj: f64,
+    /// Expected friction energy per day at this brake, MJ/day.
+    pub daily_energy_mj: f64,
+    /// Due day quantiles (days since epoch) at probabilities 0.01..=0.99; `None` when no date.
+    pub due_quantile_days: Option<Vec<f64>>,
+    /// Basis of the wear rate.
+    pub basis: StoredBasis,
+    /// Inspections the rate rests on.
+    pub inspections_used: u32,
+    /// Notes for planners.
+    pub notes: Vec<String>,
+}
+
+/// The materialised forecasts of one vehicle.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VehicleForecasts {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Vehicle class (for pooling and dashboards).
+    pub vehicle_class: String,
+    /// When computed, ms.
+    pub computed_at_ms: i64,
+    /// One entry per axle and component.
+    pub parts: Vec<StoredPart>,
+}
+
+/// A position in the due index.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord)]
+pub struct DueCursor {
+    /// Lower end of the due band at the index's level, ms.
+    pub due_earliest_ms: i64,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Axle.
+    pub axle_index: u32,
+    /// Component.
+    pub component: Component,
+}
+
+/// A vehicle whose forecasts are stale, with the generation of the mark.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct StaleMark {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Generation stamp of the mark.
+    pub generation: u64,
+}
+
+/// Pooled wear-rate prior of one group.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct GroupPrior {
+    /// Vehicle class.
+    pub vehicle_class: String,
+    /// Axle.
+    pub axle_index: u32,
+    /// Component.
+    pub component: Component,
+    /// Population mean wear rate, mm/MJ.
+    pub mean_mm_per_mj: f64,
+    /// Between-vehicle standard deviation, mm/MJ.
+    pub between_sd_mm_per_mj: f64,
+    /// Vehicles it rests on.
+    pub vehicles: u32,
+}
+
+/// A fleet's pooled priors.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct FleetPriors {
+    /// One entry per (class, axle, component) with enough vehicles.
+    pub groups: Vec<GroupPrior>,
+}
+
+impl FleetPriors {
+    /// The prior of one group.
+    pub fn find(&self, vehicle_class: &str, axle_index: u32, component: Component) -> Option<&GroupPrior> {
+        self.groups
+            .iter()
+            .find(|g| g.vehicle_class == vehicle_class && g.axle_index == axle_index && g.component == component)
+    }
+}
+
+/// Probability levels of the stored due quantiles: 0.01, 0.02, ..., 0.99.
+pub const QUANTILE_COUNT: usize = 99;
+
+/// Interpolates stored due quantiles (days since epoch at 0.01..=0.99) at `probability`.
+pub fn quantile_at(quantile_days: &[f64], probability: f64) -> Option<f64> {
+    if quantile_days.len() != QUANTILE_COUNT {
+        return None;
+    }
+    let position = (probability.clamp(0.01, 0.99) * 100.0) - 1.0;
+    let lower = position.floor() as usize;
+    let upper = (lower + 1).min(QUANTILE_COUNT - 1);
+    let weight = position - lower as f64;
+    Some(quantile_days[lower] * (1.0 - weight) + quantile_days[upper] * weight)
+}
+
+impl StoredPart {
+    /// (earliest, median, latest) due day at a band level, days since epoch.
+    pub fn due_band_days(&self, level: f64) -> Option<(f64, f64, f64)> {
+        let q = self.due_quantile_days.as_ref()?;
+        let tail = (1.0 - level) / 2.0;
+        Some((quantile_at(q, tail)?, quantile_at(q, 0.5)?, quantile_at(q, 1.0 - tail)?))
+    }
+
+    /// Lower end of the due band at `level`, ms.
+    pub fn due_earliest_ms(&self, level: f64) -> Option<i64> {
+        self.due_band_days(level).map(|(low, _, _)| days_to_ms(low))
+    }
+}
+
+/// Days since epoch (fractional) to ms, saturating far outside any calendar.
+pub fn days_to_ms(days: f64) -> i64 {
+    let ms = days * MS_PER_DAY as f64;
+    if ms.is_nan() {
+        0
+    } else {
+        ms.clamp(-8.0e15, 8.0e15) as i64
+    }
+}
