@@ -2,12 +2,7 @@
 
 use clap::Parser;
 
-use brakeledger::cli::{serve, Cli, Command};
-
 #[tokio::main]
 async fn main() -> anyhow::Result<()> {
-    let cli = Cli::parse();
-    match cli.command {
-        Command::Serve(args) => serve::serve(args).await,
-    }
+    brakeledger::cli::run(brakeledger::cli::Cli::parse()).await
 }

@@ -1,1 +1,191 @@
-//! Helpers for the end-to-end tests.
+//! Helpers for the end-to-end tests: start the real brakeledger server on a loopback port with a
+//! temporary data directory (in-process, or as a separate process that can be killed), and make
+//! the vehicles and trips the tests send.
+
+use std::net::SocketAddr;
+use std::path::Path;
+use std::sync::Arc;
+use std::time::Duration;
+
+use brakeledger::config::ForecastConfig;
+use brakeledger::state::AppState;
+use brakeledger::store::sled_store::SledStore;
+use brakeledger_proto::v1 as pb;
+use prost_types::Timestamp;
+use tokio::sync::oneshot;
+use tonic::transport::Channel;
+
+/// A server running in this process.
+pub struct TestServer {
+    /// Where it listens.
+    pub addr: SocketAddr,
+    /// A connected channel.
+    pub channel: Channel,
+    stop: Option<oneshot::Sender<()>>,
+    task: Option<tokio::task::JoinHandle<()>>,
+    /// The data directory (kept alive while the server runs).
+    pub data_dir: Option<tempfile::TempDir>,
+}
+
+impl TestServer {
+    /// Starts a server on 127.0.0.1:0 with a fresh temporary data directory.
+    pub async fn start() -> Self {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let mut server = Self::start_on(dir.path(), fast_forecasts()).await;
+        server.data_dir = Some(dir);
+        server
+    }
+
+    /// Starts a server on an existing data directory.
+    pub async fn start_on(dir: &Path, forecast: ForecastConfig) -> Self {
+        let store = SledStore::open(dir).expect("open store");
+        let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let addr = listener.local_addr().expect("addr");
+        let state = AppState::new(Arc::new(store), forecast);
+        let (stop, stopped) = oneshot::channel::<()>();
+        let task = tokio::spawn(async move {
+            brakeledger::server::run(listener, state, async {
+                let _ = stopped.await;
+            })
+            .await
+            .expect("server run");
+        });
+        let channel = connect(addr).await;
+        Self { addr, channel, stop: Some(stop), task: Some(task), data_dir: None }
+    }
+
+    /// Stops the server gracefully and waits for it.
+    pub async fn stop(mut self) {
+        if let Some(stop) = self.stop.take() {
+            let _ = stop.send(());
+        }
+        if let Some(task) = self.task.take() {
+            task.await.expect("server task");
+        }
+    }
+
+    /// Fleet client.
+    pub fn fleet(&self) -> pb::fleet_service_client::FleetServiceClient<Channel> {
+        pb::fleet_service_client::FleetServiceClient::new(self.channel.clone())
+    }
+    /// Telemetry client.
+    pub fn telemetry(&self) -> pb::telemetry_service_client::TelemetryServiceClient<Channel> {
+        pb::telemetry_service_client::TelemetryServiceClient::new(self.channel.clone())
+    }
+    /// Maintenance client.
+    pub fn maintenance(&self) -> pb::maintenance_service_client::MaintenanceServiceClient<Channel> {
+        pb::maintenance_service_client::MaintenanceServiceClient::new(self.channel.clone())
+    }
+    /// Forecast client.
+    pub fn forecast(&self) -> pb::forecast_service_client::ForecastServiceClient<Channel> {
+        pb::forecast_service_client::ForecastServiceClient::new(self.channel.clone())
+    }
+}
+
+/// Forecast settings that recompute quickly (small coalescing delay, fewer draws).
+pub fn fast_forecasts() -> ForecastConfig {
+    ForecastConfig { coalesce_ms: 20, monte_carlo_draws: 1000, ..ForecastConfig::default() }
+}
+
+/// Connects to a server, retrying while it starts.
+pub async fn connect(addr: SocketAddr) -> Channel {
+    let endpoint = tonic::transport::Endpoint::from_shared(format!("http://{addr}")).expect("endpoint");
+    for _ in 0..200 {
+        if let Ok(channel) = endpoint.connect().await {
+            return channel;
+        }
+        tokio::time::sleep(Duration::from_millis(25)).await;
+    }
+    panic!("server at {addr} did not accept connections");
+}
+
+/// A server in a child process (the `brakeledger-test-server` binary), which tests can kill.
+pub struct ServerProcess {
+    /// The child.
+    pub child: std::process::Child,
+    /// Where it listens.
+    pub addr: SocketAddr,
+}
+
+impl ServerProcess {
+    /// Starts `binary serve --data dir --listen 127.0.0.1:0` and reads the port it prints.
+    pub fn spawn(binary: &Path, data_dir: &Path) -> Self {
+        use std::io::BufRead;
+        let mut child = std::process::Command::new(binary)
+            .args(["serve", "--listen", "127.0.0.1:0", "--data"])
+            .arg(data_dir)
+            .env("BRAKELEDGER_LOG", "warn")
+            .stdout(std::process::Stdio::piped())
+            .spawn()
+            .expect("spawn server process");
+        let stdout = child.stdout.take().expect("stdout");
+        let mut line = String::new();
+        std::io::BufReader::new(stdout).read_line(&mut line).expect("read listen line");
+        let addr = line.trim().rsplit(' ').next().and_then(|a| a.parse().ok()).unwrap_or_else(|| panic!("unexpected first line {line:?}"));
+        Self { child, addr }
+    }
+
+    /// Kills the process with SIGKILL and reaps it.
+    pub fn kill(mut self) {
+        self.child.kill().expect("kill");
+        let _ = self.child.wait();
+    }
+}
+
+/// A timestamp from seconds since the Unix epoch.
+pub fn ts(seconds: i64) -> Timestamp {
+    Timestamp { seconds, nanos: 0 }
+}
+
+/// Seconds since the Unix epoch now.
+pub fn now_s() -> i64 {
+    chrono::Utc::now().timestamp()
+}
+
+/// A two-axle disc-braked vehicle (front axle takes 65 % of the friction energy).
+pub fn two_axle_vehicle(fleet_id: &str, vehicle_id: &str) -> pb::Vehicle {
+    let axle = |index: u32, share: f64| pb::AxleBrake {
+        axle_index: index,
+        brake_type: pb::BrakeType::Disc as i32,
+        energy_share: share,
+        friction_new_mm: 22.0,
+        friction_min_mm: 3.0,
+        disc_new_mm: 45.0,
+        disc_min_mm: 39.0,
+    };
+    pb::Vehicle {
+        fleet_id: fleet_id.into(),
+        vehicle_id: vehicle_id.into(),
+        vin: None,
+        vehicle_class: "test-van".into(),
+        mass_kg: 7_500.0,
+        axles: vec![axle(1, 0.65), axle(2, 0.35)],
+    }
+}
+
+/// A plausible trip `n` of a vehicle: one hour, 40 km, 30 MJ, ending `n` hours before `end_s`.
+pub fn trip(fleet_id: &str, vehicle_id: &str, n: usize, end_s: i64) -> pb::TripSummary {
+    let end = end_s - 3600 * n as i64;
+    pb::TripSummary {
+        fleet_id: fleet_id.into(),
+        vehicle_id: vehicle_id.into(),
+        trip_id: format!("trip-{n:06}"),
+        start_time: Some(ts(end - 3000)),
+        end_time: Some(ts(end)),
+        distance_m: 40_000.0,
+        friction_energy_j: 30.0e6,
+        axle_energy_j: vec![],
+        brake_applications: 120,
+        regen_energy_j: None,
+        hot_energy_j: None,
+    }
+}
+
+/// Registers a vehicle.
+pub async fn register(server: &TestServer, vehicle: pb::Vehicle) {
+    server
+        .fleet()
+        .upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle) })
+        .await
+        .expect("upsert vehicle");
+}

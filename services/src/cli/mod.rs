@@ -27,6 +27,13 @@ pub enum Command {
     Serve(ServeArgs),
 }
 
+/// Runs a parsed command line to completion.
+pub async fn run(cli: Cli) -> anyhow::Result<()> {
+    match cli.command {
+        Command::Serve(args) => serve::serve(args).await,
+    }
+}
+
 /// Flags of `serve`.
 #[derive(Debug, clap::Args)]
 pub struct ServeArgs {

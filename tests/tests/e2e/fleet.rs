@@ -1,0 +1,93 @@
+//! FleetService: vehicles and fleets.
+
+use brakeledger_proto::v1 as pb;
+use brakeledger_tests::{register, two_axle_vehicle, TestServer};
+use tonic_types::StatusExt;
+
+#[tokio::test]
+async fn upsert_then_get_a_vehicle() {
+    let server = TestServer::start().await;
+    let mut fleet = server.fleet();
+    let mut vehicle = two_axle_vehicle("north", "van-7");
+    vehicle.vin = Some("WDB9066331S123456".into());
+    let created = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
+    assert!(created.created);
+    let again = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
+    assert!(!again.created, "second upsert replaces");
+    let got = fleet
+        .get_vehicle(pb::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "van-7".into() })
+        .await
+        .expect("get")
+        .into_inner();
+    assert_eq!(got.vehicle, Some(vehicle));
+    assert_eq!(got.trips_recorded, 0);
+    assert!(got.last_trip_end.is_none());
+    let missing = fleet.get_vehicle(pb::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "van-8".into() }).await;
+    assert_eq!(missing.expect_err("unknown").code(), tonic::Code::NotFound);
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn invalid_vehicle_gets_field_violations() {
+    let server = TestServer::start().await;
+    let mut vehicle = two_axle_vehicle("north", "van-7");
+    vehicle.axles[1].energy_share = 0.5;
+    vehicle.axles[0].friction_min_mm = 30.0;
+    vehicle.vin = Some("short".into());
+    let status = server.fleet().upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle) }).await.expect_err("invalid");
+    assert_eq!(status.code(), tonic::Code::InvalidArgument);
+    let details = status.get_error_details();
+    let fields: Vec<String> = details.bad_request().expect("bad request details").field_violations.iter().map(|v| v.field.clone()).collect();
+    assert_eq!(fields, vec!["vehicle.vin", "vehicle.axles[0].friction_min_mm", "vehicle.axles"]);
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn list_vehicles_pages_through_every_vehicle_once() {
+    let server = TestServer::start().await;
+    for i in 0..25 {
+        register(&server, two_axle_vehicle("north", &format!("v{i:02}"))).await;
+    }
+    register(&server, two_axle_vehicle("south", "other")).await;
+    let mut seen = Vec::new();
+    let mut token = String::new();
+    loop {
+        let page = server
+            .fleet()
+            .list_vehicles(pb::ListVehiclesRequest { fleet_id: "north".into(), page_size: 10, page_token: token.clone() })
+            .await
+            .expect("list")
+            .into_inner();
+        assert!(page.vehicles.len() <= 10);
+        seen.extend(page.vehicles.into_iter().map(|v| v.vehicle_id));
+        if page.next_page_token.is_empty() {
+            break;
+        }
+        token = page.next_page_token;
+    }
+    let expected: Vec<String> = (0..25).map(|i| format!("v{i:02}")).collect();
+    assert_eq!(seen, expected);
+    let bad = server.fleet().list_vehicles(pb::ListVehiclesRequest { fleet_id: "north".into(), page_size: 10, page_token: "xyz".into() }).await;
+    assert_eq!(bad.expect_err("bad token").code(), tonic::Code::InvalidArgument);
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn fleet_time_zone_is_validated_and_stored() {
+    let server = TestServer::start().await;
+    let mut fleet = server.fleet();
+    let default = fleet.get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get").into_inner();
+    assert_eq!(default.fleet.expect("fleet").time_zone, "UTC");
+    let bad = fleet
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "Mars/Olympus".into(), display_name: String::new() }) })
+        .await
+        .expect_err("bad zone");
+    assert_eq!(bad.code(), tonic::Code::InvalidArgument);
+    fleet
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "Pacific/Auckland".into(), display_name: "North depot".into() }) })
+        .await
+        .expect("good zone");
+    let stored = fleet.get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get").into_inner();
+    assert_eq!(stored.fleet.expect("fleet").time_zone, "Pacific/Auckland");
+    server.stop().await;
+}

@@ -1,0 +1,8 @@
+//! End-to-end tests: each starts the real server on a loopback port with a temporary data
+//! directory and talks gRPC to it. One binary, one module per topic.
+
+mod durability;
+mod fleet;
+mod health;
+mod ingest;
+mod maintenance;
