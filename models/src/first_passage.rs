@@ -33,9 +33,8 @@ impl FirstPassage {
     /// Passage time to dissipate `remaining_mj` at drift `daily_mean_mj` (MJ/day) with
     /// `daily_variance_mj2` (MJ²/day). All three must be positive and finite.
     pub fn new(remaining_mj: f64, daily_mean_mj: f64, daily_variance_mj2: f64) -> Result<Self, ModelError> {
-        if !(remaining_mj > 0.0 && daily_mean_mj > 0.0 && daily_variance_mj2 > 0.0)
-            || !(remaining_mj.is_finite() && daily_mean_mj.is_finite() && daily_variance_mj2.is_finite())
-        {
+        let valid = |v: f64| v.is_finite() && v > 0.0;
+        if !(valid(remaining_mj) && valid(daily_mean_mj) && valid(daily_variance_mj2)) {
             return Err(ModelError::InvalidArgument(format!(
                 "first passage needs positive finite R ({remaining_mj}), μ ({daily_mean_mj}) and σ² ({daily_variance_mj2})"
             )));

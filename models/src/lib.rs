@@ -3,9 +3,47 @@
 //! Pure computation for brakeledger: no I/O, no async, no storage. The service feeds these
 //! functions stored data and serves their answers.
 //!
+//! Brakes are safety parts. The forecasts here support maintenance planning; they do not
+//! replace inspection by a qualified technician or the roadworthiness rules that apply locally.
+//!
 //! # Layout
 //! - [`domain`]: vehicles, axles, components and their validity rules.
 //! - [`plausibility`]: physical limits a trip summary must respect before it is stored.
+//! - [`error`]: the crate's one error enum, [`ModelError`].
+//! - [`regression`]: least squares via linfa, with covariance, standard errors, prediction
+//!   intervals and Fieller inverse intervals.
+//! - [`wear_history`]: a part's dated replacements and inspections, and its wear cycles.
+//! - [`wear_fit`]: the wear rate (mm/MJ) from the vehicle's own inspections.
+//! - [`pooling`]: the fleet prior per group (empirical Bayes) and its combination with a fit.
+//! - [`energy_rate`]: recency-weighted daily friction energy at a brake.
+//! - [`first_passage`]: the inverse Gaussian time to dissipate a remaining energy.
+//! - [`forecast`]: due-date distributions and thickness trajectories.
+//! - [`visit_plan`]: workshop visits that book parts before their due dates.
+//! - [`pipeline`]: fits, fleet priors and forecasts for many parts in one call.
+//! - [`physics`]: braking energy of a speed trace, axle split, heat partition and rotor heating.
+//! - [`simulator`]: a seeded fleet simulator with hidden true crossing days (invented data).
+//! - [`calibration`]: band coverage and due-date error on a simulated fleet, with baselines.
 
+pub mod calibration;
 pub mod domain;
+pub mod energy_rate;
+pub mod error;
+pub mod first_passage;
+pub mod forecast;
+pub mod physics;
+pub mod pipeline;
 pub mod plausibility;
+pub mod pooling;
+pub mod regression;
+pub mod visit_plan;
+pub mod simulator;
+pub mod wear_fit;
+pub mod wear_history;
+
+pub use error::ModelError;
+pub use forecast::{
+    forecast_part, DueDistribution, ForecastBasis, ForecastSettings, PartOutlook, TrajectoryPoint,
+};
+pub use pooling::{estimate_prior, WearPrior};
+pub use wear_fit::{fit_part, WearFit};
+pub use wear_history::{PartEvent, PartEventKind, PartHistory};

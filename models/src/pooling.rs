@@ -85,7 +85,7 @@ pub fn combine(own_mean: f64, own_variance: f64, prior: &WearPrior) -> (f64, f64
     if tau2 <= 0.0 {
         return (prior.mean_mm_per_mj, 0.0);
     }
-    if !(own_variance > 0.0) {
+    if own_variance.is_nan() || own_variance <= 0.0 {
         return (own_mean, 0.0);
     }
     let precision = 1.0 / own_variance + 1.0 / tau2;

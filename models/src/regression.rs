@@ -125,10 +125,8 @@ pub fn fit_linear(design: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Result
     let mut xtx_inverse = vec![vec![0.0; p]; p];
     for a in 0..p {
         for b in 0..p {
-            let mut sum = 0.0;
-            for k in a.max(b)..p {
-                sum += r_inv[a][k] * r_inv[b][k];
-            }
+            let start = a.max(b);
+            let sum: f64 = r_inv[a][start..].iter().zip(&r_inv[b][start..]).map(|(x, y)| x * y).sum();
             xtx_inverse[a][b] = sum / (scale[a] * scale[b]);
         }
     }
@@ -185,6 +183,7 @@ fn householder_r(a: &Array2<f64>) -> Result<Vec<Vec<f64>>, ModelError> {
 }
 
 /// Inverse of an upper-triangular matrix by back substitution.
+#[allow(clippy::needless_range_loop)] // index arithmetic mirrors the textbook recurrence
 fn invert_upper(r: &[Vec<f64>]) -> Result<Vec<Vec<f64>>, ModelError> {
     let p = r.len();
     let mut inv = vec![vec![0.0; p]; p];
@@ -251,6 +250,7 @@ pub struct InverseEstimate {
 /// For a line through the origin pass `intercept = 0`, `var_intercept = 0`, `covariance = 0`.
 /// Fails when the slope is not significantly different from zero at `level` (the interval is
 /// then unbounded).
+#[allow(clippy::too_many_arguments)] // the two estimates, their covariance and the test settings
 pub fn fieller_inverse(
     intercept: f64,
     slope: f64,

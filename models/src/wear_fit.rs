@@ -192,7 +192,7 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
         }
         q
     };
-    if !(rate > 0.0) {
+    if rate.is_nan() || rate <= 0.0 {
         return Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: rate });
     }
     Ok(WearFit {

@@ -1,0 +1,548 @@
+//! Due dates: when a part reaches its minimum thickness, as a distribution, with the thickness
+//! trajectory for plotting.
+//!
+//! # Model
+//! The current thickness is `T_now = A − k·d`: `A` the cycle's anchor (the fitted part's new
+//! thickness when the replacement is on record; otherwise the mean of the cycle's inspections,
+//! with variance σ²/n) and `d` the energy since that anchor (MJ). The wear rate `k` (mm/MJ)
+//! is normal with the posterior mean and variance from [`crate::pooling`] (own fit, fleet
+//! prior, or both). The residual SD σ used to scale the own fit's rate variance is shrunk
+//! toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
+//! `σ² = (ν·s² + ν₀·σ₀²)/(ν + ν₀)`.
+//!
+//! The remaining energy is `R = (T_now − T_min)/k`; the days to dissipate it are inverse
+//! Gaussian ([`crate::first_passage`]) given the daily energy's drift μ and variance σ²
+//! ([`crate::energy_rate`]), with μ itself uncertain. The due day's distribution integrates
+//! over `k`, `A`, μ and the passage time by a seeded Monte Carlo (ChaCha8, deterministic for a
+//! given seed and part), and is reported at the probabilities 0.01, 0.02, ..., 0.99.
+//!
+//! The trajectory is the normal (delta-method) approximation of thickness at future day τ:
+//! mean `T̂_now − k̂·μ·τ`, variance `Var A + Var k·(d + μτ)² + k̂²·(σ²τ + Var μ·τ²)`.
+//!
+//! Forecasts support maintenance planning. They do not replace inspection by a qualified
+//! technician or local roadworthiness rules.
+
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rand_distr::StandardNormal;
+use serde::{Deserialize, Serialize};
+use statrs::distribution::{ContinuousCDF, Normal};
+
+use crate::energy_rate::{estimate_energy_rate, EnergyRate};
+use crate::error::ModelError;
+use crate::first_passage::FirstPassage;
+use crate::pooling::{combine, WearPrior};
+use crate::wear_fit::{fit_part, rate_sums, WearFit};
+use crate::wear_history::PartHistory;
+
+/// Number of probabilities in a [`DueDistribution`] (0.01 ... 0.99).
+pub const DUE_QUANTILES: usize = 99;
+
+/// Settings of the fit and the forecast.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ForecastSettings {
+    /// Two-sided level of the reported bands (0.8 = 10th to 90th percentile).
+    pub band_level: f64,
+    /// Days of daily energy used for the energy rate.
+    pub energy_window_days: usize,
+    /// Half-life of the recency weights on daily energy, days.
+    pub energy_half_life_days: f64,
+    /// Relative SD allowed for changes in daily energy the window cannot show (season, route).
+    /// 0.12 was chosen so the simulator's 80% bands cover about 80% (see `calibration`).
+    pub energy_rate_relative_sd: f64,
+    /// Monte Carlo draws per part.
+    pub monte_carlo_draws: usize,
+    /// Seed of the Monte Carlo (mixed with the axle and component).
+    pub seed: u64,
+    /// Fit hot-stop energy as its own regressor.
+    pub hot_regressor: bool,
+    /// Fit a bedding-in intercept common to cycles that began with a recorded replacement.
+    pub bedding_intercept: bool,
+    /// Thickness gauge noise SD, mm, used when no residual SD is known (common practice, no source).
+    pub gauge_sd_mm: f64,
+    /// Weight ν₀ (degrees of freedom) of the group's residual SD when shrinking a vehicle's own.
+    pub prior_residual_weight: f64,
+    /// Longest trajectory, days.
+    pub trajectory_cap_days: f64,
+    /// Most trajectory points (the step grows beyond daily to respect it).
+    pub trajectory_max_points: usize,
+}
+
+impl Default for ForecastSettings {
+    fn default() -> Self {
+        Self {
+            band_level: 0.8,
+            energy_window_days: 120,
+            energy_half_life_days: 60.0,
+            energy_rate_relative_sd: 0.12,
+            monte_carlo_draws: 1000,
+            seed: 0x5eed_b4a7,
+            hot_regressor: false,
+            bedding_intercept: false,
+            gauge_sd_mm: 0.3,
+            prior_residual_weight: 4.0,
+            trajectory_cap_days: 3.0 * 365.0,
+            trajectory_max_points: 200,
+        }
+    }
+}
+
+/// What a forecast's wear rate rests on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum ForecastBasis {
+    /// The vehicle's own inspections only.
+    VehicleData,
+    /// The fleet prior of the vehicle's group only.
+    FleetPrior,
+    /// Both, precision weighted.
+    Combined,
+}
+
+/// Due day (days since the Unix epoch, fractional) at probabilities 0.01, 0.02, ..., 0.99.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DueDistribution {
+    /// 99 non-decreasing values, days since epoch.
+    pub quantile_days: Vec<f64>,
+}
+
+impl DueDistribution {
+    /// Builds the 99 quantiles from draws (days since epoch). `None` if there are no finite draws.
+    pub fn from_draws(mut draws: Vec<f64>) -> Option<Self> {
+        draws.retain(|d| !d.is_nan());
+        if draws.is_empty() {
+            return None;
+        }
+        draws.sort_by(f64::total_cmp);
+        let n = draws.len();
+        let quantile_days = (1..=DUE_QUANTILES)
+            .map(|i| {
+                let p = i as f64 / 100.0;
+                let pos = p * (n - 1) as f64;
+                let lo = pos.floor() as usize;
+                let hi = (lo + 1).min(n - 1);
+                let frac = pos - lo as f64;
+                if frac == 0.0 || draws[lo] == draws[hi] {
+                    draws[lo]
+                } else {
+                    draws[lo] + frac * (draws[hi] - draws[lo])
+                }
+            })
+            .collect();
+        Some(Self { quantile_days })
+    }
+
+    /// Due day at `probability`, interpolated; probability clamped to [0.01, 0.99].
+    pub fn at(&self, probability: f64) -> f64 {
+        let q = &self.quantile_days;
+        if q.is_empty() {
+            return f64::NAN;
+        }
+        let p = if probability.is_nan() { 0.5 } else { probability.clamp(0.01, 0.99) };
+        let pos = (p * 100.0 - 1.0).clamp(0.0, (q.len() - 1) as f64);
+        let lo = pos.floor() as usize;
+        let hi = (lo + 1).min(q.len() - 1);
+        let frac = pos - lo as f64;
+        if frac == 0.0 || q[lo] == q[hi] {
+            q[lo]
+        } else {
+            q[lo] + frac * (q[hi] - q[lo])
+        }
+    }
+
+    /// `(low, median, high)` due days of the central band at `level` (0.8 → 10th, 50th, 90th).
+    pub fn band(&self, level: f64) -> (f64, f64, f64) {
+        let level = if level.is_nan() { 0.8 } else { level.clamp(0.0, 0.98) };
+        (self.at(0.5 - level / 2.0), self.at(0.5), self.at(0.5 + level / 2.0))
+    }
+}
+
+/// One point of the thickness trajectory.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct TrajectoryPoint {
+    /// Days since the Unix epoch.
+    pub day: f64,
+    /// Median thickness, mm.
+    pub median_mm: f64,
+    /// Lower band edge, mm.
+    pub low_mm: f64,
+    /// Upper band edge, mm.
+    pub high_mm: f64,
+}
+
+/// The forecast for one part.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PartOutlook {
+    /// Estimated thickness today, mm (NaN when no inspection or replacement is on record).
+    pub current_thickness_mm: f64,
+    /// Lower band edge of today's thickness, mm.
+    pub current_thickness_low_mm: f64,
+    /// Upper band edge of today's thickness, mm.
+    pub current_thickness_high_mm: f64,
+    /// Minimum thickness, mm.
+    pub min_thickness_mm: f64,
+    /// Wear rate used, mm/MJ (posterior mean; NaN when none).
+    pub wear_rate_mm_per_mj: f64,
+    /// Its standard deviation, mm/MJ.
+    pub wear_rate_stderr_mm_per_mj: f64,
+    /// Recency-weighted mean friction energy per day at this brake, MJ/day.
+    pub daily_energy_mj: f64,
+    /// Due-day distribution; `None` when no date can be given (reason in `notes`).
+    pub due: Option<DueDistribution>,
+    /// What the wear rate rests on.
+    pub basis: ForecastBasis,
+    /// Inspections behind the wear rate.
+    pub inspections_used: u32,
+    /// Plain-words remarks: fallbacks, edge cases, reasons for a missing date.
+    pub notes: Vec<String>,
+    /// Day the current part was fitted, when on record.
+    pub fitted_day: Option<f64>,
+    /// Energy since the part was fitted (or since its first inspection when the fitting is not
+    /// on record), MJ.
+    pub energy_since_fitted_mj: f64,
+    /// Thickness from today until the median reaches the minimum (capped), at the band level.
+    pub trajectory: Vec<TrajectoryPoint>,
+}
+
+/// Posterior wear rate with its provenance.
+struct RateEstimate {
+    mean: f64,
+    variance: f64,
+    basis: ForecastBasis,
+    inspections: u32,
+}
+
+fn residual_sd_fallback(prior: Option<&WearPrior>, settings: &ForecastSettings) -> f64 {
+    match prior {
+        Some(p) if p.residual_degrees_of_freedom > 0.0 && p.residual_sd_mm > 0.0 => p.residual_sd_mm,
+        _ => settings.gauge_sd_mm,
+    }
+}
+
+fn valid_fit(f: &WearFit) -> bool {
+    f.rate_mm_per_mj.is_finite() && f.rate_mm_per_mj > 0.0 && f.rate_variance_per_residual_variance.is_finite()
+}
+
+fn choose_rate(
+    history: &PartHistory,
+    own_fit: Option<&WearFit>,
+    prior: Option<&WearPrior>,
+    settings: &ForecastSettings,
+    sigma0: f64,
+    notes: &mut Vec<String>,
+) -> (Option<RateEstimate>, f64) {
+    let own_result: Result<WearFit, ModelError> = match own_fit {
+        Some(f) if valid_fit(f) => Ok(f.clone()),
+        Some(f) => Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: f.rate_mm_per_mj }),
+        None => fit_part(history, settings),
+    };
+    match own_result {
+        Ok(fit) => {
+            let nu = fit.degrees_of_freedom.max(0.0);
+            let nu0 = settings.prior_residual_weight.max(0.0);
+            let sigma2 = if nu + nu0 > 0.0 {
+                (nu * fit.residual_sd_mm.powi(2) + nu0 * sigma0 * sigma0) / (nu + nu0)
+            } else {
+                sigma0 * sigma0
+            };
+            let own_var = fit.rate_variance_per_residual_variance * sigma2;
+            let (mean, variance, basis) = match prior {
+                Some(p) => {
+                    let (m, v) = combine(fit.rate_mm_per_mj, own_var, p);
+                    (m, v, ForecastBasis::Combined)
+                }
+                None => (fit.rate_mm_per_mj, own_var, ForecastBasis::VehicleData),
+            };
+            (Some(RateEstimate { mean, variance, basis, inspections: fit.inspections_used }), sigma2.sqrt())
+        }
+        Err(ModelError::NonPositiveWearRate { rate_mm_per_mj }) => {
+            notes.push(format!(
+                "the vehicle's own wear fit gave a non-positive rate ({rate_mm_per_mj:.3e} mm/MJ) and was rejected"
+            ));
+            match prior {
+                Some(p) => {
+                    notes.push(format!("wear rate from the fleet prior of {} vehicles", p.vehicles));
+                    (Some(prior_only(p)), sigma0)
+                }
+                None => (None, sigma0),
+            }
+        }
+        Err(_) => {
+            // Too few inspections for a fit with residual degrees of freedom: use the closed-form
+            // slope with the assumed residual SD, if the inspections carry any energy information.
+            let sums = rate_sums(history);
+            let slope = sums.slope().filter(|s| s.is_finite());
+            match (slope, prior) {
+                (Some(k), Some(p)) => {
+                    let (m, v) = combine(k, sigma0 * sigma0 / sums.sxx, p);
+                    notes.push(format!(
+                        "{} inspection(s) combined with the fleet prior (residual SD {sigma0:.2} mm assumed)",
+                        sums.points
+                    ));
+                    if m > 0.0 {
+                        (Some(RateEstimate { mean: m, variance: v, basis: ForecastBasis::Combined, inspections: sums.points }), sigma0)
+                    } else {
+                        (Some(prior_only(p)), sigma0)
+                    }
+                }
+                (Some(k), None) if k > 0.0 => {
+                    notes.push(format!(
+                        "wear rate from {} inspection(s) with an assumed residual SD of {sigma0:.2} mm",
+                        sums.points
+                    ));
+                    (
+                        Some(RateEstimate {
+                            mean: k,
+                            variance: sigma0 * sigma0 / sums.sxx,
+                            basis: ForecastBasis::VehicleData,
+                            inspections: sums.points,
+                        }),
+                        sigma0,
+                    )
+                }
+                (_, Some(p)) => {
+                    notes.push(format!(
+                        "no inspection since fitting measures wear: wear rate from the fleet prior of {} vehicles",
+                        p.vehicles
+                    ));
+                    (Some(prior_only(p)), sigma0)
+                }
+                (_, None) => {
+                    notes.push("the vehicle's inspections do not yet show a positive wear rate and no fleet prior is available".into());
+                    (None, sigma0)
+                }
+            }
+        }
+    }
+}
+
+fn prior_only(p: &WearPrior) -> RateEstimate {
+    RateEstimate {
+        mean: p.mean_mm_per_mj,
+        variance: p.between_sd_mm_per_mj.powi(2),
+        basis: ForecastBasis::FleetPrior,
+        inspections: 0,
+    }
+}
+
+/// Standard normal quantile.
+fn normal_quantile(p: f64) -> f64 {
+    match Normal::new(0.0, 1.0) {
+        Ok(n) => n.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12)),
+        Err(_) => 0.0,
+    }
+}
+
+/// Forecasts when the part reaches its minimum thickness (see the module docs).
+///
+/// `daily_energy_mj`: this brake's friction energy per calendar day, oldest first, ending with
+/// the last complete day before `today_day` (zeros on idle days; may be shorter than the
+/// window). `current_cumulative_energy_mj`: cumulative energy at this brake up to today, same
+/// origin as [`crate::wear_history::PartEvent::cumulative_energy_mj`].
+pub fn forecast_part(
+    history: &PartHistory,
+    own_fit: Option<&WearFit>,
+    prior: Option<&WearPrior>,
+    daily_energy_mj: &[f64],
+    today_day: f64,
+    current_cumulative_energy_mj: f64,
+    settings: &ForecastSettings,
+) -> PartOutlook {
+    let mut notes = Vec::new();
+    let level = if settings.band_level.is_finite() { settings.band_level.clamp(0.01, 0.98) } else { 0.8 };
+    let z = normal_quantile(0.5 + level / 2.0);
+    let sigma0 = residual_sd_fallback(prior, settings);
+    let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
+    let energy = estimate_energy_rate(
+        daily_energy_mj,
+        settings.energy_window_days,
+        settings.energy_half_life_days,
+        settings.energy_rate_relative_sd,
+    );
+
+    let cycles = history.cycles();
+    let current = cycles.last();
+    let fitted_day = current.and_then(|c| c.start.map(|s| s.day));
+    // Anchor A (mm), its variance, and the energy origin of d.
+    let anchor: Option<(f64, f64, f64)> = current.and_then(|c| match (&c.start, c.points.is_empty()) {
+        (Some(s), _) => Some((s.new_thickness_mm, 0.0, s.energy_mj)),
+        (None, false) => {
+            let n = c.points.len() as f64;
+            let t = c.points.iter().map(|p| p.thickness_mm).sum::<f64>() / n;
+            let e = c.points.iter().map(|p| p.energy_mj).sum::<f64>() / n;
+            Some((t, sigma * sigma / n, e))
+        }
+        (None, true) => None,
+    });
+    let origin_energy = current.and_then(|c| c.origin_energy_mj()).map_or(0.0, |o| o.0);
+    let energy_since_fitted_mj = (current_cumulative_energy_mj - origin_energy).max(0.0);
+
+    let mut outlook = PartOutlook {
+        current_thickness_mm: f64::NAN,
+        current_thickness_low_mm: f64::NAN,
+        current_thickness_high_mm: f64::NAN,
+        min_thickness_mm: history.min_thickness_mm,
+        wear_rate_mm_per_mj: rate.as_ref().map_or(f64::NAN, |r| r.mean),
+        wear_rate_stderr_mm_per_mj: rate.as_ref().map_or(f64::NAN, |r| r.variance.max(0.0).sqrt()),
+        daily_energy_mj: energy.map_or(0.0, |e| e.mean_mj_per_day),
+        due: None,
+        basis: rate.as_ref().map_or(ForecastBasis::FleetPrior, |r| r.basis),
+        inspections_used: rate.as_ref().map_or(0, |r| r.inspections),
+        notes: Vec::new(),
+        fitted_day,
+        energy_since_fitted_mj,
+        trajectory: Vec::new(),
+    };
+
+    let Some((anchor_mm, anchor_var, anchor_energy)) = anchor else {
+        notes.push("no replacement or inspection on record: today's thickness is unknown".into());
+        outlook.notes = notes;
+        return outlook;
+    };
+    let d = current_cumulative_energy_mj - anchor_energy;
+    // Measured at or below the minimum since the last fitting: due now, whatever the model says.
+    let measured_below = current
+        .and_then(|c| c.points.last())
+        .filter(|p| p.thickness_mm <= history.min_thickness_mm)
+        .map(|p| p.thickness_mm);
+
+    let Some(rate) = rate else {
+        notes.push("no wear rate: no due date".into());
+        outlook.notes = notes;
+        if let Some(t) = measured_below {
+            outlook.current_thickness_mm = t;
+        }
+        return outlook;
+    };
+    let k_sd = rate.variance.max(0.0).sqrt();
+    let now_mean = anchor_mm - rate.mean * d;
+    let now_sd = (anchor_var + rate.variance * d * d).max(0.0).sqrt();
+    outlook.current_thickness_mm = now_mean;
+    outlook.current_thickness_low_mm = now_mean - z * now_sd;
+    outlook.current_thickness_high_mm = now_mean + z * now_sd;
+
+    if let Some(t) = measured_below {
+        notes.push(format!(
+            "measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now",
+            history.min_thickness_mm
+        ));
+        outlook.due = Some(DueDistribution { quantile_days: vec![today_day; DUE_QUANTILES] });
+        outlook.notes = notes;
+        return outlook;
+    }
+    if now_mean <= history.min_thickness_mm {
+        notes.push("estimated at or below the minimum thickness: due now".into());
+    }
+    let Some(energy) = energy else {
+        notes.push(format!(
+            "no braking energy at this axle in the last {} days: no due date can be forecast",
+            settings.energy_window_days
+        ));
+        outlook.notes = notes;
+        return outlook;
+    };
+
+    // Mix the part's own data into the seed so parts do not share one random stream.
+    let part_seed = current_cumulative_energy_mj.to_bits().rotate_left(17) ^ today_day.to_bits() ^ (history.events.len() as u64);
+    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, today_day, part_seed, settings);
+    if outlook.due.is_none() {
+        notes.push("the Monte Carlo produced no finite due date".into());
+    }
+    let median_due = outlook.due.as_ref().map_or(today_day, |q| q.at(0.5));
+    outlook.trajectory = trajectory(
+        today_day,
+        median_due,
+        now_mean,
+        anchor_var,
+        rate.mean,
+        k_sd,
+        d,
+        &energy,
+        z,
+        history.min_thickness_mm,
+        settings,
+    );
+    outlook.notes = notes;
+    outlook
+}
+
+#[allow(clippy::too_many_arguments)]
+fn monte_carlo_due(
+    history: &PartHistory,
+    rate: &RateEstimate,
+    anchor_mm: f64,
+    anchor_var: f64,
+    d: f64,
+    energy: &EnergyRate,
+    today_day: f64,
+    part_seed: u64,
+    settings: &ForecastSettings,
+) -> Option<DueDistribution> {
+    let component_code: u64 = match history.component {
+        crate::domain::Component::Friction => 1,
+        crate::domain::Component::Disc => 2,
+    };
+    let seed = settings.seed ^ part_seed ^ (u64::from(history.axle_index).wrapping_mul(0x9E37_79B9_7F4A_7C15)) ^ (component_code << 56);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let draws = settings.monte_carlo_draws.max(DUE_QUANTILES);
+    let k_sd = rate.variance.max(0.0).sqrt();
+    let a_sd = anchor_var.max(0.0).sqrt();
+    let mu_sd = energy.mean_variance.max(0.0).sqrt();
+    let mu_floor = 0.05 * energy.mean_mj_per_day;
+    let k_floor = 0.05 * rate.mean;
+    let mut out = Vec::with_capacity(draws);
+    for _ in 0..draws {
+        let zk: f64 = rng.sample(StandardNormal);
+        let za: f64 = rng.sample(StandardNormal);
+        let zm: f64 = rng.sample(StandardNormal);
+        let k = (rate.mean + k_sd * zk).max(k_floor);
+        let thickness = anchor_mm + a_sd * za - k * d;
+        let margin = thickness - history.min_thickness_mm;
+        if margin <= 0.0 {
+            out.push(today_day);
+            continue;
+        }
+        let remaining_mj = margin / k;
+        let mu = (energy.mean_mj_per_day + mu_sd * zm).max(mu_floor);
+        let days = match FirstPassage::new(remaining_mj, mu, energy.variance_mj2_per_day) {
+            Ok(fp) => fp.sample(&mut rng),
+            Err(_) => remaining_mj / mu,
+        };
+        out.push(today_day + days);
+    }
+    DueDistribution::from_draws(out)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn trajectory(
+    today_day: f64,
+    median_due: f64,
+    now_mean: f64,
+    anchor_var: f64,
+    k_mean: f64,
+    k_sd: f64,
+    d: f64,
+    energy: &EnergyRate,
+    z: f64,
+    min_mm: f64,
+    settings: &ForecastSettings,
+) -> Vec<TrajectoryPoint> {
+    let span = (median_due - today_day).clamp(0.0, settings.trajectory_cap_days.max(0.0));
+    let max_points = settings.trajectory_max_points.max(2);
+    let step = (span / (max_points - 1) as f64).ceil().max(1.0);
+    let mut out = Vec::new();
+    let mut tau = 0.0;
+    loop {
+        let e = energy.mean_mj_per_day * tau;
+        let mean = now_mean - k_mean * e;
+        let var = anchor_var
+            + k_sd * k_sd * (d + e) * (d + e)
+            + k_mean * k_mean * (energy.variance_mj2_per_day * tau + energy.mean_variance * tau * tau);
+        let sd = var.max(0.0).sqrt();
+        out.push(TrajectoryPoint { day: today_day + tau, median_mm: mean, low_mm: mean - z * sd, high_mm: mean + z * sd });
+        if tau >= span || mean <= min_mm || out.len() >= max_points {
+            break;
+        }
+        tau = (tau + step).min(span);
+    }
+    out
+}

@@ -1,0 +1,186 @@
+//! Behaviour of the fit and the forecast on small hand-made histories: the edge cases the issue
+//! names, each with its defined answer, and the Fieller inverse interval's closed form.
+
+use brakeledger_models::domain::Component;
+use brakeledger_models::error::ModelError;
+use brakeledger_models::regression::{fieller_inverse, fit_rows, student_t_quantile};
+use brakeledger_models::{
+    fit_part, forecast_part, ForecastBasis, ForecastSettings, PartEvent, PartEventKind, PartHistory, WearPrior,
+};
+
+pub fn inspection(day: f64, energy: f64, thickness: f64) -> PartEvent {
+    PartEvent { day, cumulative_energy_mj: energy, cumulative_hot_energy_mj: 0.0, kind: PartEventKind::Inspection { thickness_mm: thickness } }
+}
+
+pub fn replacement(day: f64, energy: f64) -> PartEvent {
+    PartEvent { day, cumulative_energy_mj: energy, cumulative_hot_energy_mj: 0.0, kind: PartEventKind::Replacement { new_thickness_mm: 22.0 } }
+}
+
+pub fn pad(events: Vec<PartEvent>) -> PartHistory {
+    PartHistory { axle_index: 1, component: Component::Friction, new_thickness_mm: 22.0, min_thickness_mm: 3.0, events }
+}
+
+pub fn prior() -> WearPrior {
+    WearPrior { mean_mm_per_mj: 5e-4, between_sd_mm_per_mj: 1e-4, vehicles: 20, residual_sd_mm: 0.3, residual_degrees_of_freedom: 100.0 }
+}
+
+const TODAY: f64 = 20_000.0;
+
+/// 100 MJ/day, 5 idle days in 7.
+pub fn energy() -> Vec<f64> {
+    (0..120).map(|d| if d % 7 < 5 { 100.0 } else { 0.0 }).collect()
+}
+
+#[test]
+fn already_below_minimum_is_due_now() {
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_800.0, 8000.0, 18.0), inspection(19_990.0, 30_000.0, 2.8)]);
+    let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 31_000.0, &ForecastSettings::default());
+    let due = o.due.expect("a date");
+    assert!(due.quantile_days.iter().all(|d| *d == TODAY), "{:?}", &due.quantile_days[..3]);
+    assert!(o.notes.iter().any(|n| n.contains("due now")), "{:?}", o.notes);
+}
+
+#[test]
+fn no_braking_energy_gives_no_date_with_the_reason() {
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_800.0, 8000.0, 18.0), inspection(19_900.0, 16_000.0, 14.1)]);
+    let o = forecast_part(&h, None, Some(&prior()), &vec![0.0; 120], TODAY, 16_000.0, &ForecastSettings::default());
+    assert!(o.due.is_none());
+    assert!(o.notes.iter().any(|n| n.contains("no braking energy")), "{:?}", o.notes);
+    // The thickness estimate is still given.
+    assert!(o.current_thickness_mm < 22.0 && o.current_thickness_mm > 3.0);
+}
+
+#[test]
+fn a_single_inspection_combines_with_the_prior_or_stands_alone() {
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_900.0, 20_000.0, 12.0)]);
+    assert!(matches!(fit_part(&h, &ForecastSettings::default()), Err(ModelError::TooFewPoints { .. })));
+    let settings = ForecastSettings::default();
+    let with_prior = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 25_000.0, &settings);
+    assert_eq!(with_prior.basis, ForecastBasis::Combined);
+    assert_eq!(with_prior.inspections_used, 1);
+    // Own slope 10 mm / 20 000 MJ = 5e-4, the prior's mean: the posterior stays there and is
+    // tighter than the prior.
+    assert!((with_prior.wear_rate_mm_per_mj - 5e-4).abs() < 1e-9);
+    assert!(with_prior.wear_rate_stderr_mm_per_mj < prior().between_sd_mm_per_mj);
+    assert!(with_prior.due.is_some());
+    let alone = forecast_part(&h, None, None, &energy(), TODAY, 25_000.0, &settings);
+    assert_eq!(alone.basis, ForecastBasis::VehicleData);
+    assert!(alone.due.is_some());
+    // The stand-alone rate's SD is the assumed gauge SD over √Σx².
+    assert!((alone.wear_rate_stderr_mm_per_mj - 0.3 / 20_000.0).abs() < 1e-12);
+}
+
+#[test]
+fn a_negative_fitted_rate_is_rejected_and_the_prior_used() {
+    let h = pad(vec![
+        inspection(19_700.0, 0.0, 15.0),
+        inspection(19_800.0, 8000.0, 15.5),
+        inspection(19_900.0, 16_000.0, 16.0),
+    ]);
+    let err = fit_part(&h, &ForecastSettings::default()).expect_err("negative rate");
+    assert!(matches!(err, ModelError::NonPositiveWearRate { rate_mm_per_mj } if rate_mm_per_mj < 0.0));
+    let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 20_000.0, &ForecastSettings::default());
+    assert_eq!(o.basis, ForecastBasis::FleetPrior);
+    assert_eq!(o.wear_rate_mm_per_mj, prior().mean_mm_per_mj);
+    assert!(o.notes.iter().any(|n| n.contains("rejected")), "{:?}", o.notes);
+    assert!(o.due.is_some());
+}
+
+#[test]
+fn a_replacement_with_no_inspection_since_uses_the_prior_from_the_new_thickness() {
+    let h = pad(vec![inspection(19_700.0, 0.0, 10.0), inspection(19_800.0, 8000.0, 6.0), replacement(19_900.0, 16_000.0)]);
+    let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 26_000.0, &ForecastSettings::default());
+    // The earlier cycle (10 → 6 mm over 8000 MJ, 5e-4 mm/MJ) still informs the rate.
+    assert_eq!(o.basis, ForecastBasis::Combined);
+    assert_eq!(o.inspections_used, 2);
+    assert_eq!(o.fitted_day, Some(19_900.0));
+    assert!((o.energy_since_fitted_mj - 10_000.0).abs() < 1e-9);
+    // 22 mm − 5e-4 mm/MJ · 10 000 MJ = 17 mm.
+    assert!((o.current_thickness_mm - 17.0).abs() < 1e-9, "{}", o.current_thickness_mm);
+    let due = o.due.expect("a date");
+    // 14 mm left at 5e-4 mm/MJ is 28 000 MJ, ~ 392 days at 500/7 MJ per day.
+    let expected = TODAY + 28_000.0 / (500.0 / 7.0);
+    assert!((due.at(0.5) - expected).abs() < 0.1 * (expected - TODAY), "{} vs {expected}", due.at(0.5));
+}
+
+#[test]
+fn a_replacement_alone_rests_on_the_fleet_prior() {
+    let h = pad(vec![replacement(19_900.0, 16_000.0)]);
+    let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 26_000.0, &ForecastSettings::default());
+    assert_eq!(o.basis, ForecastBasis::FleetPrior);
+    assert_eq!(o.inspections_used, 0);
+    assert_eq!(o.wear_rate_mm_per_mj, prior().mean_mm_per_mj);
+    assert!((o.current_thickness_mm - 17.0).abs() < 1e-9);
+    // Without a prior there is no rate and no date, with the reason.
+    let none = forecast_part(&h, None, None, &energy(), TODAY, 26_000.0, &ForecastSettings::default());
+    assert!(none.due.is_none() && !none.notes.is_empty());
+}
+
+#[test]
+fn trajectory_runs_from_today_down_to_the_minimum() {
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_800.0, 8000.0, 18.1), inspection(19_900.0, 16_000.0, 14.0)]);
+    let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 20_000.0, &ForecastSettings::default());
+    let t = &o.trajectory;
+    assert!(t.len() >= 2);
+    assert_eq!(t[0].day, TODAY);
+    assert!((t[0].median_mm - o.current_thickness_mm).abs() < 1e-9);
+    assert!(t.windows(2).all(|w| w[1].day > w[0].day && w[1].median_mm <= w[0].median_mm));
+    assert!(t.iter().all(|p| p.low_mm <= p.median_mm && p.median_mm <= p.high_mm));
+    let last = t.last().expect("point");
+    assert!((last.median_mm - 3.0).abs() < 1.0, "ends near the minimum: {}", last.median_mm);
+}
+
+/// Fieller's interval for a line through the origin has the closed form
+/// x = y₀/(b ∓ t·se(b)) (Fieller 1954); checked on the NIST NoInt1 fit.
+#[test]
+fn fieller_interval_matches_its_closed_form_through_the_origin() {
+    let data = include_str!("data/noint1.csv");
+    let (rows, y): (Vec<Vec<f64>>, Vec<f64>) = data
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let v: Vec<f64> = l.split(',').map(|s| s.parse().expect("number")).collect();
+            (vec![v[1]], v[0])
+        })
+        .unzip();
+    let fit = fit_rows(&rows, &y).expect("fit");
+    let b = fit.coefficients[0];
+    let var_b = fit.covariance[0][0];
+    let target = 150.0;
+    let est = fieller_inverse(0.0, b, 0.0, var_b, 0.0, target, 0.95, fit.degrees_of_freedom).expect("bounded");
+    let t = student_t_quantile(0.975, fit.degrees_of_freedom).expect("t");
+    let se = var_b.sqrt();
+    assert!((est.estimate - target / b).abs() < 1e-12);
+    assert!((est.low - target / (b + t * se)).abs() < 1e-9);
+    assert!((est.high - target / (b - t * se)).abs() < 1e-9);
+    // The prediction interval at x widens with the level and contains the fitted value.
+    let (l80, h80) = fit.prediction_interval(&[65.0], 0.8).expect("interval");
+    let (l95, h95) = fit.prediction_interval(&[65.0], 0.95).expect("interval");
+    let centre = b * 65.0;
+    assert!(l95 < l80 && l80 < centre && centre < h80 && h80 < h95);
+}
+
+/// With the hot regressor, a noiseless history with varying hot shares gives back both rates,
+/// and the reported rate is the effective one at the part's hot fraction.
+#[test]
+fn hot_regressor_recovers_both_rates() {
+    let (k, k_hot) = (4e-4, 6e-4);
+    let mut events = vec![replacement(19_000.0, 0.0)];
+    let (mut e, mut h) = (0.0, 0.0);
+    for (i, (de, share)) in [(3000.0, 0.05), (2500.0, 0.3), (4000.0, 0.1), (3500.0, 0.5)].iter().enumerate() {
+        e += de;
+        h += de * share;
+        events.push(PartEvent {
+            day: 19_030.0 + 30.0 * i as f64,
+            cumulative_energy_mj: e,
+            cumulative_hot_energy_mj: h,
+            kind: PartEventKind::Inspection { thickness_mm: 22.0 - k * e - k_hot * h },
+        });
+    }
+    let settings = ForecastSettings { hot_regressor: true, ..ForecastSettings::default() };
+    let fit = fit_part(&pad(events), &settings).expect("fit");
+    assert_eq!(fit.coefficient_names[..2], ["energy".to_string(), "hot_energy".to_string()]);
+    assert!((fit.coefficients[0] - k).abs() < 1e-12 && (fit.coefficients[1] - k_hot).abs() < 1e-12, "{:?}", fit.coefficients);
+    assert!((fit.hot_fraction - h / e).abs() < 1e-12);
+    assert!((fit.rate_mm_per_mj - (k + k_hot * h / e)).abs() < 1e-12);
+}
