@@ -413,6 +413,29 @@ pub fn forecast_part(
         }
         return outlook;
     };
+    // A latest inspection far off the wear line (beyond 3 residual SDs of the group, or of the
+    // gauge) means the line no longer describes this part (changed duty, a sticking caliper, an
+    // unrecorded part swap). Today's thickness is then projected from that inspection rather
+    // than from the line: a fresh measurement outranks an extrapolation.
+    let (anchor_mm, anchor_var, d) = match current.and_then(|c| c.points.last()) {
+        Some(last) => {
+            let on_line = anchor_mm - rate.mean * (last.energy_mj - anchor_energy);
+            let deviation = last.thickness_mm - on_line;
+            let limit = 3.0 * sigma0.max(settings.gauge_sd_mm);
+            if deviation.abs() > limit {
+                notes.push(format!(
+                    "the latest inspection ({:.1} mm) is {:.1} mm {} the wear line: today's thickness is projected from it",
+                    last.thickness_mm,
+                    deviation.abs(),
+                    if deviation < 0.0 { "below" } else { "above" }
+                ));
+                (last.thickness_mm, settings.gauge_sd_mm.powi(2), current_cumulative_energy_mj - last.energy_mj)
+            } else {
+                (anchor_mm, anchor_var, d)
+            }
+        }
+        None => (anchor_mm, anchor_var, d),
+    };
     let k_sd = rate.variance.max(0.0).sqrt();
     let now_mean = anchor_mm - rate.mean * d;
     let now_sd = (anchor_var + rate.variance * d * d).max(0.0).sqrt();

@@ -184,3 +184,22 @@ fn hot_regressor_recovers_both_rates() {
     assert!((fit.hot_fraction - h / e).abs() < 1e-12);
     assert!((fit.rate_mm_per_mj - (k + k_hot * h / e)).abs() < 1e-12);
 }
+
+#[test]
+fn a_latest_inspection_far_below_the_wear_line_sets_todays_thickness() {
+    // New pad (22 mm) wearing 5e-4 mm/MJ: 20 mm at 4000 MJ, 18 mm at 8000 MJ; then the workshop
+    // measures 6 mm at 12 000 MJ, where the line says 16 mm.
+    let steady = vec![replacement(19_700.0, 0.0), inspection(19_750.0, 4000.0, 20.0), inspection(19_800.0, 8000.0, 18.0)];
+    let mut worn = steady.clone();
+    worn.push(inspection(19_990.0, 12_000.0, 6.0));
+    let settings = ForecastSettings::default();
+    let line = forecast_part(&pad(steady), None, Some(&prior()), &energy(), TODAY, 12_500.0, &settings);
+    let o = forecast_part(&pad(worn), None, Some(&prior()), &energy(), TODAY, 12_500.0, &settings);
+    // Projected from the 6 mm reading over 500 MJ, never from the line's ~16 mm.
+    assert!(o.current_thickness_mm < 6.0 && o.current_thickness_mm > 5.0, "{}", o.current_thickness_mm);
+    assert!(o.notes.iter().any(|n| n.contains("latest inspection")), "{:?}", o.notes);
+    let (soon, later) = (o.due.expect("date").at(0.5), line.due.expect("date").at(0.5));
+    assert!(soon < later - 100.0, "due {soon} must come well before the steady line's {later}");
+    // A reading on the line changes nothing of the kind.
+    assert!(!line.notes.iter().any(|n| n.contains("latest inspection")));
+}

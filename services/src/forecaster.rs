@@ -1,15 +1,355 @@
-//! Builds model inputs from stored data and keeps forecasts materialised (placeholder until
-//! the forecast issue lands).
+//! Forecasts from stored data: builds the models' inputs for a vehicle (per-part histories with
+//! cumulative energies from the daily roll-up), computes its part outlooks with the fleet's
+//! pooled priors, and keeps them materialised.
+//!
+//! # Materialisation
+//! Every accepted write marks its vehicle stale (in the same transaction). [`run`] wakes on
+//! writes, waits `coalesce_ms` so that a burst becomes one pass, then recomputes stale vehicles
+//! in batches off the async runtime and stores their forecasts together with the due index, so
+//! that ListDue, WatchDue and PlanVisits read ranges, never refit the fleet. After a pass it
+//! re-estimates the fleet's priors from the stored own-data fits; when a group's prior moved,
+//! the vehicles of that class are marked stale once more. Own fits do not depend on priors, so
+//! this settles after one extra pass. Stale marks are durable: after a crash the work resumes.
 
+use std::collections::{BTreeMap, HashMap};
+use std::sync::Arc;
+use std::time::Duration;
+
+use brakeledger_models::domain::Component;
+use brakeledger_models::wear_history::{history_from_daily_energy, DatedEvent};
+use brakeledger_models::{estimate_prior, fit_part, forecast_part, ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
 use tokio::sync::watch;
 
-use crate::state::AppState;
+use crate::config::ForecastConfig;
+use crate::error::{ServiceError, ServiceResult};
+use crate::state::{AppState, ForecastChange};
+use crate::store::{
+    days_to_ms, DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, StaleMark, Store, StoredPart, VehicleForecasts,
+    VehicleRecord, MS_PER_DAY,
+};
 
-/// Runs until `stop` turns true.
-pub async fn run(_state: AppState, mut stop: watch::Receiver<bool>) {
-    while !*stop.borrow() {
-        if stop.changed().await.is_err() {
-            break;
+/// J per MJ.
+const J_PER_MJ: f64 = 1.0e6;
+
+/// Everything stored about one vehicle that its forecasts read.
+#[derive(Debug, Clone)]
+pub struct VehicleData {
+    /// The vehicle.
+    pub vehicle: VehicleRecord,
+    /// Daily roll-up, oldest first.
+    pub daily: Vec<DailyEnergy>,
+    /// Inspections and replacements.
+    pub history: ServiceHistory,
+}
+
+/// Reads what a vehicle's forecast needs; `None` when the vehicle is not registered.
+pub fn load_vehicle_data(store: &dyn Store, fleet_id: &str, vehicle_id: &str) -> ServiceResult<Option<VehicleData>> {
+    let Some(vehicle) = store.get_vehicle(fleet_id, vehicle_id)? else {
+        return Ok(None);
+    };
+    Ok(Some(VehicleData {
+        daily: store.daily_energy(fleet_id, vehicle_id)?,
+        history: store.service_history(fleet_id, vehicle_id)?,
+        vehicle,
+    }))
+}
+
+/// The models' input for one part.
+#[derive(Debug, Clone)]
+pub struct PartInput {
+    /// Dated events with cumulative energies.
+    pub history: PartHistory,
+    /// Friction energy per day at this brake, MJ, from the first stored day through yesterday.
+    pub daily_energy_mj: Vec<f64>,
+    /// Cumulative energy at this brake up to now, MJ.
+    pub current_cumulative_energy_mj: f64,
+    /// Day (since epoch) of `daily_energy_mj[0]`.
+    pub first_day: i64,
+}
+
+/// Per-axle dense daily series (MJ) from the first stored day through the day before `today`,
+/// plus the energy of `today` and later (a trip can end up to minutes in the future).
+fn axle_series(daily: &[DailyEnergy], axle: usize, today: i64) -> (i64, Vec<f64>, Vec<f64>, f64) {
+    let Some(first_day) = daily.first().map(|d| d.day) else {
+        return (today, Vec::new(), Vec::new(), 0.0);
+    };
+    let len = (today - first_day).max(0) as usize;
+    let mut energy = vec![0.0; len];
+    let mut hot = vec![0.0; len];
+    let mut from_today = 0.0;
+    for day in daily {
+        let value = day.axle_energy_j.get(axle).copied().unwrap_or(0.0) / J_PER_MJ;
+        let offset = day.day - first_day;
+        if (offset as usize) < len {
+            energy[offset as usize] += value;
+            hot[offset as usize] += day.axle_hot_energy_j.get(axle).copied().unwrap_or(0.0) / J_PER_MJ;
+        } else {
+            from_today += value;
         }
     }
+    (first_day, energy, hot, from_today)
+}
+
+/// Builds the models' input for every axle and component of a vehicle, at `now_ms`.
+pub fn part_inputs(data: &VehicleData, now_ms: i64) -> Vec<PartInput> {
+    let today = now_ms.div_euclid(MS_PER_DAY);
+    let mut inputs = Vec::new();
+    for (axle_position, axle) in data.vehicle.spec.axles.iter().enumerate() {
+        let (first_day, energy, hot, from_today) = axle_series(&data.daily, axle_position, today);
+        let current_cumulative_energy_mj = energy.iter().sum::<f64>() + from_today;
+        for component in Component::ALL {
+            let matches = |axle_index: u32, c: Component| axle_index == axle.axle_index && c == component;
+            let events: Vec<DatedEvent> = data
+                .history
+                .replacements
+                .iter()
+                .filter(|r| matches(r.axle_index, r.component))
+                .map(|r| DatedEvent {
+                    day: r.replaced_at_ms as f64 / MS_PER_DAY as f64,
+                    kind: PartEventKind::Replacement { new_thickness_mm: r.new_thickness_mm },
+                })
+                .chain(data.history.inspections.iter().filter(|i| matches(i.axle_index, i.component)).map(|i| DatedEvent {
+                    day: i.measured_at_ms as f64 / MS_PER_DAY as f64,
+                    kind: PartEventKind::Inspection { thickness_mm: i.thickness_mm },
+                }))
+                .collect();
+            let history = history_from_daily_energy(
+                axle.axle_index,
+                component,
+                axle.new_mm(component),
+                axle.min_mm(component),
+                first_day,
+                &energy,
+                &hot,
+                &events,
+            );
+            inputs.push(PartInput { history, daily_energy_mj: energy.clone(), current_cumulative_energy_mj, first_day });
+        }
+    }
+    inputs
+}
+
+/// Model settings from the service's forecast config at a band level.
+pub fn model_settings(config: &ForecastConfig, band_level: f64) -> ForecastSettings {
+    ForecastSettings {
+        band_level,
+        energy_window_days: config.energy_window_days,
+        monte_carlo_draws: config.monte_carlo_draws,
+        ..ForecastSettings::default()
+    }
+}
+
+/// One part's own fit and outlook.
+#[derive(Debug, Clone)]
+pub struct ComputedPart {
+    /// The model input it came from.
+    pub input: PartInput,
+    /// The vehicle's own fit, when one could be made.
+    pub own_fit: Option<WearFit>,
+    /// The outlook.
+    pub outlook: PartOutlook,
+}
+
+/// Computes every part of a vehicle at `now_ms` with the fleet's priors.
+pub fn compute_vehicle(data: &VehicleData, priors: &FleetPriors, now_ms: i64, settings: &ForecastSettings) -> Vec<ComputedPart> {
+    let today_day = now_ms as f64 / MS_PER_DAY as f64;
+    part_inputs(data, now_ms)
+        .into_iter()
+        .map(|input| {
+            let own_fit = fit_part(&input.history, settings).ok();
+            let prior = priors
+                .find(&data.vehicle.spec.vehicle_class, input.history.axle_index, input.history.component)
+                .map(|g| &g.prior);
+            let outlook = forecast_part(
+                &input.history,
+                own_fit.as_ref(),
+                prior,
+                &input.daily_energy_mj,
+                today_day,
+                input.current_cumulative_energy_mj,
+                settings,
+            );
+            ComputedPart { input, own_fit, outlook }
+        })
+        .collect()
+}
+
+/// The stored form of computed parts (due quantiles kept whole, so any band level can be read).
+pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> VehicleForecasts {
+    VehicleForecasts {
+        fleet_id: data.vehicle.fleet_id.clone(),
+        vehicle_id: data.vehicle.vehicle_id.clone(),
+        vehicle_class: data.vehicle.spec.vehicle_class.clone(),
+        computed_at_ms: now_ms,
+        parts: parts
+            .iter()
+            .map(|p| {
+                let o = &p.outlook;
+                StoredPart {
+                    axle_index: p.input.history.axle_index,
+                    component: p.input.history.component,
+                    own_fit: p.own_fit.clone(),
+                    current_thickness_mm: o.current_thickness_mm,
+                    current_thickness_low_mm: o.current_thickness_low_mm,
+                    current_thickness_high_mm: o.current_thickness_high_mm,
+                    min_thickness_mm: o.min_thickness_mm,
+                    wear_rate_mm_per_mj: o.wear_rate_mm_per_mj,
+                    wear_rate_stderr_mm_per_mj: o.wear_rate_stderr_mm_per_mj,
+                    daily_energy_mj: o.daily_energy_mj,
+                    due_quantile_days: o.due.as_ref().map(|d| d.quantile_days.clone()),
+                    basis: o.basis,
+                    inspections_used: o.inspections_used,
+                    notes: o.notes.clone(),
+                }
+            })
+            .collect(),
+    }
+}
+
+/// Pools the own fits of a fleet's stored forecasts into group priors.
+pub fn pool_priors(forecasts: &[VehicleForecasts]) -> FleetPriors {
+    let mut groups: BTreeMap<(String, u32, Component), Vec<WearFit>> = BTreeMap::new();
+    for vehicle in forecasts {
+        for part in &vehicle.parts {
+            if let Some(fit) = &part.own_fit {
+                groups.entry((vehicle.vehicle_class.clone(), part.axle_index, part.component)).or_default().push(fit.clone());
+            }
+        }
+    }
+    FleetPriors {
+        groups: groups
+            .into_iter()
+            .filter_map(|((vehicle_class, axle_index, component), fits)| {
+                estimate_prior(&fits).map(|prior| GroupPrior { vehicle_class, axle_index, component, prior })
+            })
+            .collect(),
+    }
+}
+
+/// Whether a group's prior moved enough to recompute the forecasts resting on it.
+fn prior_moved(old: Option<&GroupPrior>, new: &GroupPrior) -> bool {
+    match old {
+        None => true,
+        Some(old) => {
+            let relative = |a: f64, b: f64| (a - b).abs() / a.abs().max(b.abs()).max(1e-12);
+            relative(old.prior.mean_mm_per_mj, new.prior.mean_mm_per_mj) > 0.01
+                || relative(old.prior.between_sd_mm_per_mj, new.prior.between_sd_mm_per_mj) > 0.05
+        }
+    }
+}
+
+/// Recomputes one stale vehicle; returns its change (or `None` when it is not registered).
+/// The caller clears the mark.
+fn refresh_vehicle(store: &dyn Store, mark: &StaleMark, priors: &FleetPriors, config: &ForecastConfig, now_ms: i64) -> ServiceResult<Option<ForecastChange>> {
+    let Some(data) = load_vehicle_data(store, &mark.fleet_id, &mark.vehicle_id)? else {
+        return Ok(None);
+    };
+    let settings = model_settings(config, 0.8);
+    let parts = compute_vehicle(&data, priors, now_ms, &settings);
+    let record = materialise(&data, &parts, now_ms);
+    let before = store.get_forecasts(&mark.fleet_id, &mark.vehicle_id)?.map(Arc::new);
+    store.put_forecasts(&record)?;
+    Ok(Some(ForecastChange { before, after: Arc::new(record) }))
+}
+
+/// One pass over up to `batch_vehicles` stale vehicles, then prior re-estimation for the fleets
+/// touched. Returns the changes and whether stale vehicles remain.
+pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
+    let marks = store.stale_vehicles(config.batch_vehicles.max(1))?;
+    if marks.is_empty() {
+        return Ok((Vec::new(), false));
+    }
+    let mut priors_by_fleet: HashMap<String, FleetPriors> = HashMap::new();
+    let mut changes = Vec::new();
+    for mark in &marks {
+        if !priors_by_fleet.contains_key(&mark.fleet_id) {
+            let priors = store.get_priors(&mark.fleet_id)?.unwrap_or_default();
+            priors_by_fleet.insert(mark.fleet_id.clone(), priors);
+        }
+        let priors = &priors_by_fleet[&mark.fleet_id];
+        if let Some(change) = refresh_vehicle(store, mark, priors, config, now_ms)? {
+            changes.push(change);
+        }
+    }
+    for (fleet_id, old) in &priors_by_fleet {
+        let forecasts = store.fleet_forecasts(fleet_id)?;
+        let new = pool_priors(&forecasts);
+        let moved: Vec<&GroupPrior> = new
+            .groups
+            .iter()
+            .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
+            .collect();
+        let vanished = old.groups.iter().any(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none());
+        if moved.is_empty() && !vanished {
+            continue;
+        }
+        store.put_priors(fleet_id, &new)?;
+        let classes: Vec<&str> = moved.iter().map(|g| g.vehicle_class.as_str()).chain(old.groups.iter().map(|g| g.vehicle_class.as_str()).filter(|_| vanished)).collect();
+        let again: Vec<String> = forecasts
+            .iter()
+            .filter(|f| classes.contains(&f.vehicle_class.as_str()))
+            .map(|f| f.vehicle_id.clone())
+            .collect();
+        tracing::debug!(fleet = %fleet_id, groups = moved.len(), vehicles = again.len(), "fleet priors moved; recomputing");
+        store.mark_stale(fleet_id, &again)?;
+    }
+    // Cleared last, so that a vehicle re-marked above stays stale and the pending count never
+    // reads zero while work remains.
+    for mark in &marks {
+        store.clear_stale(mark)?;
+    }
+    let remaining = !store.stale_vehicles(1)?.is_empty();
+    Ok((changes, remaining))
+}
+
+/// Keeps forecasts materialised until `stop` turns true (see the module docs).
+pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
+    let coalesce = Duration::from_millis(state.forecast.coalesce_ms);
+    let mut more_work = true; // stale marks may survive a restart
+    loop {
+        if !more_work {
+            tokio::select! {
+                _ = stop.changed() => {}
+                _ = state.wake_forecaster.notified() => {}
+                _ = tokio::time::sleep(Duration::from_secs(5)) => {}
+            }
+        }
+        if *stop.borrow() {
+            break;
+        }
+        tokio::time::sleep(coalesce).await;
+        let store = Arc::clone(&state.store);
+        let config = state.forecast.clone();
+        let pass = tokio::task::spawn_blocking(move || refresh_pass(store.as_ref(), &config, crate::convert::now_ms())).await;
+        match pass {
+            Ok(Ok((changes, remaining))) => {
+                for change in changes {
+                    let _ = state.changes.send(change);
+                }
+                more_work = remaining;
+            }
+            Ok(Err(error)) => {
+                tracing::error!(%error, "forecast refresh failed; retrying later");
+                more_work = false;
+            }
+            Err(error) => {
+                tracing::error!(%error, "forecast refresh task failed");
+                more_work = false;
+            }
+        }
+    }
+}
+
+/// Computes a vehicle's forecasts now (for single-vehicle requests), with its data.
+pub fn vehicle_forecast_now(store: &dyn Store, fleet_id: &str, vehicle_id: &str, config: &ForecastConfig, band_level: f64, now_ms: i64) -> ServiceResult<(VehicleData, Vec<ComputedPart>)> {
+    let data = load_vehicle_data(store, fleet_id, vehicle_id)?
+        .ok_or_else(|| ServiceError::NotFound(format!("vehicle '{vehicle_id}' is not registered in fleet '{fleet_id}'")))?;
+    let priors = store.get_priors(fleet_id)?.unwrap_or_default();
+    let parts = compute_vehicle(&data, &priors, now_ms, &model_settings(config, band_level));
+    Ok((data, parts))
+}
+
+/// Due day (days since epoch) to ms.
+pub fn due_ms(days: f64) -> i64 {
+    days_to_ms(days)
 }

@@ -9,7 +9,6 @@ use brakeledger_proto::v1::{
     maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
 };
 use tokio::net::TcpListener;
-use tokio::sync::watch;
 use tokio_stream::wrappers::TcpListenerStream;
 
 use crate::forecaster;
@@ -47,8 +46,13 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
         .build_v1alpha()?;
 
-    let (stop_forecaster, forecaster_stopped) = watch::channel(false);
-    let forecaster_task = tokio::spawn(forecaster::run(state.clone(), forecaster_stopped));
+    let forecaster_task = tokio::spawn(forecaster::run(state.clone(), state.stopping.subscribe()));
+    let stopping = std::sync::Arc::clone(&state.stopping);
+    let shutdown = async move {
+        shutdown.await;
+        // Ends watch streams and the materialiser, so that draining can finish.
+        stopping.send_replace(true);
+    };
 
     let address = listener.local_addr().ok();
     tracing::info!(?address, "serving brakeledger.v1");
@@ -63,7 +67,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .serve_with_incoming_shutdown(TcpListenerStream::new(listener), shutdown)
         .await;
     tracing::info!("stopped accepting calls; draining done, flushing the store");
-    let _ = stop_forecaster.send(true);
+    state.stopping.send_replace(true);
     let _ = forecaster_task.await;
     let store = std::sync::Arc::clone(&state.store);
     tokio::task::spawn_blocking(move || store.flush()).await.ok().transpose()?;

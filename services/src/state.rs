@@ -2,7 +2,7 @@
 
 use std::sync::Arc;
 
-use tokio::sync::{broadcast, Notify};
+use tokio::sync::{broadcast, watch, Notify};
 
 use crate::config::ForecastConfig;
 use crate::error::{ServiceError, ServiceResult};
@@ -28,13 +28,17 @@ pub struct AppState {
     pub wake_forecaster: Arc<Notify>,
     /// Forecast changes, published by the materialiser.
     pub changes: broadcast::Sender<ForecastChange>,
+    /// Turns true when the server begins to shut down; long-lived streams and background
+    /// tasks end when they see it.
+    pub stopping: Arc<watch::Sender<bool>>,
 }
 
 impl AppState {
     /// State around a store.
     pub fn new(store: Arc<dyn Store>, forecast: ForecastConfig) -> Self {
         let (changes, _) = broadcast::channel(4096);
-        Self { store, forecast, wake_forecaster: Arc::new(Notify::new()), changes }
+        let (stopping, _) = watch::channel(false);
+        Self { store, forecast, wake_forecaster: Arc::new(Notify::new()), changes, stopping: Arc::new(stopping) }
     }
 
     /// Runs blocking store work off the async runtime.

@@ -189,3 +189,94 @@ pub async fn register(server: &TestServer, vehicle: pb::Vehicle) {
         .await
         .expect("upsert vehicle");
 }
+
+/// Seconds in a day.
+pub const DAY_S: i64 = 86_400;
+
+/// True wear rates used by [`seed_vehicle`], mm/MJ: (front pad, front rotor, rear pad, rear
+/// rotor) for a vehicle of `speed` 1.0. Invented test values, sized so a pad lasts about a year.
+pub const TEST_WEAR_MM_PER_MJ: [f64; 4] = [0.0024, 0.00026, 0.0030, 0.00030];
+
+/// Registers a two-axle vehicle and gives it `days` days of history ending yesterday: one trip
+/// a day (30 MJ, 65/35 split by the configured shares), every part replaced at the start, and
+/// inspections at the given days-before-today showing wear at `speed` × the test rates
+/// (no gauge noise beyond a small deterministic wobble).
+pub async fn seed_vehicle(server: &TestServer, vehicle_id: &str, days: i64, speed: f64, inspection_days_ago: &[i64]) {
+    register(server, two_axle_vehicle("north", vehicle_id)).await;
+    let today = now_s().div_euclid(DAY_S) * DAY_S;
+    let trips: Vec<pb::TripSummary> = (1..=days)
+        .map(|ago| {
+            let end = today - ago * DAY_S + 15 * 3600;
+            let mut t = trip("north", vehicle_id, 0, end);
+            t.trip_id = format!("day-{ago}");
+            t
+        })
+        .collect();
+    let report = server.telemetry().push_trips(pb::PushTripsRequest { trips }).await.expect("push").into_inner();
+    assert_eq!(report.accepted as i64, days, "seed trips accepted: {:?}", report.rejected.first());
+    let mut maintenance = server.maintenance();
+    for axle in 1..=2u32 {
+        for component in [pb::Component::Friction, pb::Component::Disc] {
+            maintenance
+                .record_replacement(pb::RecordReplacementRequest {
+                    fleet_id: "north".into(),
+                    vehicle_id: vehicle_id.into(),
+                    replacement_id: format!("fit-{axle}-{}", component as i32),
+                    axle_index: axle,
+                    component: component as i32,
+                    new_thickness_mm: 0.0,
+                    replaced_at: Some(ts(today - days * DAY_S + 3600)),
+                })
+                .await
+                .expect("replacement");
+        }
+    }
+    for &ago in inspection_days_ago {
+        record_test_inspection(server, vehicle_id, days, speed, ago, None).await;
+    }
+}
+
+/// Records inspections of all four parts `ago` days before today, with thickness following
+/// the test wear rates (or `front_pad_mm` for the front pad when given).
+pub async fn record_test_inspection(server: &TestServer, vehicle_id: &str, days: i64, speed: f64, ago: i64, front_pad_mm: Option<f64>) {
+    let today = now_s().div_euclid(DAY_S) * DAY_S;
+    // Energy at each axle before the inspection day: one 30 MJ trip a day since the start.
+    let days_run = (days - ago) as f64;
+    let axle_mj = [30.0 * 0.65 * days_run, 30.0 * 0.35 * days_run];
+    let new_mm = [22.0, 45.0];
+    let mut maintenance = server.maintenance();
+    for axle in 1..=2u32 {
+        for (c, component) in [pb::Component::Friction, pb::Component::Disc].into_iter().enumerate() {
+            let rate = TEST_WEAR_MM_PER_MJ[(axle as usize - 1) * 2 + c] * speed;
+            let wobble = 0.05 * ((ago as f64) * 1.7 + axle as f64).sin();
+            let mut thickness = new_mm[c] - rate * axle_mj[axle as usize - 1] + wobble;
+            if axle == 1 && c == 0 {
+                thickness = front_pad_mm.unwrap_or(thickness);
+            }
+            maintenance
+                .record_inspection(pb::RecordInspectionRequest {
+                    fleet_id: "north".into(),
+                    vehicle_id: vehicle_id.into(),
+                    inspection_id: format!("insp-{ago}-{axle}-{}", component as i32),
+                    axle_index: axle,
+                    component: component as i32,
+                    thickness_mm: thickness,
+                    measured_at: Some(ts(today - ago * DAY_S + 8 * 3600)),
+                })
+                .await
+                .expect("inspection");
+        }
+    }
+}
+
+/// Waits until every forecast of fleet "north" reflects what is stored.
+pub async fn wait_for_forecasts(server: &TestServer) {
+    for _ in 0..600 {
+        let fleet = server.fleet().get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get fleet").into_inner();
+        if fleet.forecasts_pending == 0 {
+            return;
+        }
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+    panic!("forecasts still pending after 30 s");
+}

@@ -1,17 +1,29 @@
-//! `ForecastService` (placeholder: UNIMPLEMENTED until the forecast issue lands).
+//! `ForecastService`: one vehicle's forecast, the fleet's due list (paged range scans of the
+//! materialised due index), live due-list updates, a part's wear trajectory, and visit plans.
 
+use std::collections::HashMap;
 use std::pin::Pin;
 
+use brakeledger_models::domain::Component;
+use brakeledger_models::visit_plan::{plan_visits, PlanLimits, PlanPart};
 use brakeledger_proto::v1 as pb;
 use pb::forecast_service_server::ForecastService;
 use tokio_stream::Stream;
 use tonic::{Request, Response, Status};
 
+use crate::convert::{check_id, component_from_wire, component_to_wire, ms_timestamp, now_ms, require_ids};
+use crate::error::{ServiceError, ServiceResult};
+use crate::forecaster::{materialise, vehicle_forecast_now};
+use crate::grpc::due_watch;
+use crate::grpc::forecast_views::{
+    band_level, fleet_zone, indexed_band_level, local_date, local_day_number, part_forecast, required_time, STORED_THICKNESS_LEVEL,
+};
+use crate::grpc::paging::{decode_token, encode_token, page_size};
 use crate::state::AppState;
+use crate::store::{days_to_ms, BandLevel, DueCursor, FleetRecord, Store, VehicleForecasts, MS_PER_DAY};
 
 /// Implements `brakeledger.v1.ForecastService`.
 pub struct ForecastApi {
-    #[allow(dead_code)]
     state: AppState,
 }
 
@@ -22,25 +34,368 @@ impl ForecastApi {
     }
 }
 
+/// A fleet's settings (defaults when never set).
+pub fn fleet_or_default(store: &dyn Store, fleet_id: &str) -> ServiceResult<FleetRecord> {
+    Ok(store.get_fleet(fleet_id)?.unwrap_or_else(|| FleetRecord::default_for(fleet_id)))
+}
+
+fn component_filter(value: i32) -> ServiceResult<Option<Component>> {
+    match pb::Component::try_from(value) {
+        Ok(pb::Component::Unspecified) => Ok(None),
+        Ok(pb::Component::Friction) => Ok(Some(Component::Friction)),
+        Ok(pb::Component::Disc) => Ok(Some(Component::Disc)),
+        Err(_) => Err(ServiceError::invalid("component", "is not a known component")),
+    }
+}
+
+fn component_code(component: Option<Component>) -> &'static str {
+    match component {
+        None => "any",
+        Some(Component::Friction) => "friction",
+        Some(Component::Disc) => "disc",
+    }
+}
+
+/// Reads due-index entries in order until `wanted` match the filter or the range ends.
+/// Returns the matches and whether more entries may follow.
+pub fn scan_due_filtered(
+    store: &dyn Store,
+    fleet_id: &str,
+    level: BandLevel,
+    due_before_ms: i64,
+    mut after: Option<DueCursor>,
+    component: Option<Component>,
+    wanted: usize,
+) -> ServiceResult<Vec<DueCursor>> {
+    let mut found = Vec::new();
+    let chunk = wanted.max(16);
+    loop {
+        let cursors = store.scan_due(fleet_id, level, due_before_ms, after.as_ref(), chunk)?;
+        let exhausted = cursors.len() < chunk;
+        after = cursors.last().cloned();
+        found.extend(cursors.into_iter().filter(|c| component.is_none_or(|wanted| c.component == wanted)));
+        if found.len() >= wanted || exhausted {
+            found.truncate(wanted);
+            return Ok(found);
+        }
+    }
+}
+
+/// The `DuePart` messages of index entries, reading each vehicle's forecasts once.
+pub fn due_parts(store: &dyn Store, fleet_id: &str, cursors: &[DueCursor], level: f64, zone: chrono_tz::Tz) -> ServiceResult<Vec<pb::DuePart>> {
+    let mut vehicles: HashMap<String, Option<VehicleForecasts>> = HashMap::new();
+    let mut parts = Vec::with_capacity(cursors.len());
+    for cursor in cursors {
+        if !vehicles.contains_key(&cursor.vehicle_id) {
+            vehicles.insert(cursor.vehicle_id.clone(), store.get_forecasts(fleet_id, &cursor.vehicle_id)?);
+        }
+        let Some(Some(record)) = vehicles.get(&cursor.vehicle_id) else { continue };
+        if let Some(part) = record.parts.iter().find(|p| p.axle_index == cursor.axle_index && p.component == cursor.component) {
+            parts.push(due_part(record, part, level, zone));
+        }
+    }
+    Ok(parts)
+}
+
+/// One `DuePart` of a vehicle's materialised forecasts.
+pub fn due_part(record: &VehicleForecasts, part: &crate::store::StoredPart, level: f64, zone: chrono_tz::Tz) -> pb::DuePart {
+    pb::DuePart {
+        fleet_id: record.fleet_id.clone(),
+        vehicle_id: record.vehicle_id.clone(),
+        vehicle_class: record.vehicle_class.clone(),
+        part: Some(part_forecast(part, level, STORED_THICKNESS_LEVEL, zone)),
+    }
+}
+
 type WatchStream = Pin<Box<dyn Stream<Item = Result<pb::WatchDueEvent, Status>> + Send>>;
 
 #[tonic::async_trait]
 impl ForecastService for ForecastApi {
     type WatchDueStream = WatchStream;
 
-    async fn get_vehicle_forecast(&self, _: Request<pb::GetVehicleForecastRequest>) -> Result<Response<pb::GetVehicleForecastResponse>, Status> {
-        Err(Status::unimplemented("GetVehicleForecast"))
+    async fn get_vehicle_forecast(&self, request: Request<pb::GetVehicleForecastRequest>) -> Result<Response<pb::GetVehicleForecastResponse>, Status> {
+        let r = request.into_inner();
+        require_ids(&[("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id)])?;
+        let level = band_level("band_level", r.band_level)?;
+        let config = self.state.forecast.clone();
+        let now = now_ms();
+        let (fleet_id, vehicle_id) = (r.fleet_id.clone(), r.vehicle_id.clone());
+        let (fleet, record) = self
+            .state
+            .blocking(move |store| {
+                let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
+                Ok((fleet_or_default(store, &fleet_id)?, materialise(&data, &parts, now)))
+            })
+            .await?;
+        if record.parts.iter().all(|p| p.due_quantile_days.is_none()) {
+            let reasons: Vec<String> = record
+                .parts
+                .iter()
+                .flat_map(|p| p.notes.iter().map(move |n| format!("axle {} {:?}: {n}", p.axle_index, p.component)))
+                .collect();
+            return Err(ServiceError::FailedPrecondition(format!(
+                "no part of vehicle '{}' can be forecast yet: {}",
+                r.vehicle_id,
+                if reasons.is_empty() { "no data".to_owned() } else { reasons.join("; ") }
+            ))
+            .into());
+        }
+        let zone = fleet_zone(&fleet);
+        Ok(Response::new(pb::GetVehicleForecastResponse {
+            parts: record.parts.iter().map(|p| part_forecast(p, level, level, zone)).collect(),
+            fleet_id: r.fleet_id,
+            vehicle_id: r.vehicle_id,
+            time_zone: fleet.time_zone,
+            computed_at: Some(ms_timestamp(now)),
+            caution: crate::SAFETY_CAUTION.to_owned(),
+        }))
     }
-    async fn list_due(&self, _: Request<pb::ListDueRequest>) -> Result<Response<pb::ListDueResponse>, Status> {
-        Err(Status::unimplemented("ListDue"))
+
+    async fn list_due(&self, request: Request<pb::ListDueRequest>) -> Result<Response<pb::ListDueResponse>, Status> {
+        let r = request.into_inner();
+        check_id("fleet_id", &r.fleet_id).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
+        let due_before_ms = required_time("due_before", r.due_before.as_ref())?;
+        let level = indexed_band_level("band_level", r.band_level)?;
+        let component = component_filter(r.component)?;
+        let limit = page_size(r.page_size);
+        let request_key = [r.fleet_id.clone(), level.code().to_string(), due_before_ms.to_string(), component_code(component).to_owned()];
+        let after = if r.page_token.is_empty() {
+            None
+        } else {
+            let parts = decode_token(&r.page_token, 8)?;
+            if parts[..4] != request_key {
+                return Err(ServiceError::invalid("page_token", "was issued for a different fleet, window, band level or component").into());
+            }
+            let bad = || ServiceError::invalid("page_token", "is not a token this server issued");
+            Some(DueCursor {
+                due_earliest_ms: parts[4].parse().map_err(|_| bad())?,
+                vehicle_id: parts[5].clone(),
+                axle_index: parts[6].parse().map_err(|_| bad())?,
+                component: if parts[7] == "disc" { Component::Disc } else { Component::Friction },
+            })
+        };
+        let fleet_id = r.fleet_id.clone();
+        let (fleet, cursors, parts) = self
+            .state
+            .blocking(move |store| {
+                let fleet = fleet_or_default(store, &fleet_id)?;
+                let cursors = scan_due_filtered(store, &fleet_id, level, due_before_ms, after, component, limit + 1)?;
+                let page = &cursors[..cursors.len().min(limit)];
+                let parts = due_parts(store, &fleet_id, page, level.probability(), fleet_zone(&fleet))?;
+                Ok((fleet, cursors, parts))
+            })
+            .await?;
+        let next_page_token = if cursors.len() > limit {
+            let last = &cursors[limit - 1];
+            let component_text = component_code(Some(last.component));
+            encode_token(&[
+                &request_key[0], &request_key[1], &request_key[2], &request_key[3],
+                &last.due_earliest_ms.to_string(), &last.vehicle_id, &last.axle_index.to_string(), component_text,
+            ])
+        } else {
+            String::new()
+        };
+        Ok(Response::new(pb::ListDueResponse { parts, next_page_token, time_zone: fleet.time_zone }))
     }
-    async fn watch_due(&self, _: Request<pb::WatchDueRequest>) -> Result<Response<Self::WatchDueStream>, Status> {
-        Err(Status::unimplemented("WatchDue"))
+
+    async fn watch_due(&self, request: Request<pb::WatchDueRequest>) -> Result<Response<Self::WatchDueStream>, Status> {
+        let r = request.into_inner();
+        check_id("fleet_id", &r.fleet_id).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
+        let due_before_ms = required_time("due_before", r.due_before.as_ref())?;
+        let level = indexed_band_level("band_level", r.band_level)?;
+        let stream = due_watch::start(self.state.clone(), r.fleet_id, due_before_ms, level).await?;
+        Ok(Response::new(Box::pin(stream)))
     }
-    async fn get_wear_trajectory(&self, _: Request<pb::GetWearTrajectoryRequest>) -> Result<Response<pb::GetWearTrajectoryResponse>, Status> {
-        Err(Status::unimplemented("GetWearTrajectory"))
+
+    async fn get_wear_trajectory(&self, request: Request<pb::GetWearTrajectoryRequest>) -> Result<Response<pb::GetWearTrajectoryResponse>, Status> {
+        let r = request.into_inner();
+        require_ids(&[("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id)])?;
+        let component = component_from_wire("component", r.component).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
+        let level = band_level("band_level", r.band_level)?;
+        let config = self.state.forecast.clone();
+        let now = now_ms();
+        let (fleet_id, vehicle_id, axle_index) = (r.fleet_id.clone(), r.vehicle_id.clone(), r.axle_index);
+        let (fleet, data, parts) = self
+            .state
+            .blocking(move |store| {
+                let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
+                Ok((fleet_or_default(store, &fleet_id)?, data, parts))
+            })
+            .await?;
+        let zone = fleet_zone(&fleet);
+        let Some(position) = parts.iter().position(|p| p.input.history.axle_index == axle_index && p.input.history.component == component) else {
+            return Err(ServiceError::NotFound(format!("vehicle '{}' has no axle {axle_index}", r.vehicle_id)).into());
+        };
+        let part = &parts[position];
+        let record = materialise(&data, std::slice::from_ref(part), now);
+        let fitted_at_ms = data
+            .history
+            .replacements
+            .iter()
+            .filter(|x| x.axle_index == axle_index && x.component == component)
+            .map(|x| x.replaced_at_ms)
+            .max();
+        // Energy at the start of an instant's UTC day, from the part's daily series (MJ).
+        let energy_before = |ms: i64| {
+            let days = (ms.div_euclid(MS_PER_DAY) - part.input.first_day).clamp(0, part.input.daily_energy_mj.len() as i64) as usize;
+            part.input.daily_energy_mj[..days].iter().sum::<f64>()
+        };
+        let inspections: Vec<_> = data
+            .history
+            .inspections
+            .iter()
+            .filter(|i| i.axle_index == axle_index && i.component == component && fitted_at_ms.is_none_or(|f| i.measured_at_ms >= f))
+            .collect();
+        let origin_mj = match (fitted_at_ms, inspections.first()) {
+            (Some(fitted), _) => energy_before(fitted),
+            (None, Some(first)) => energy_before(first.measured_at_ms),
+            (None, None) => 0.0,
+        };
+        let measured = inspections
+            .iter()
+            .map(|i| pb::MeasuredPoint {
+                measured_at: Some(ms_timestamp(i.measured_at_ms)),
+                thickness_mm: i.thickness_mm,
+                energy_since_fitted_mj: energy_before(i.measured_at_ms) - origin_mj,
+                inspection_id: i.inspection_id.clone(),
+            })
+            .collect();
+        let forecast = part
+            .outlook
+            .trajectory
+            .iter()
+            .map(|t| {
+                let ms = days_to_ms(t.day);
+                pb::TrajectoryPoint {
+                    date: Some(ms_timestamp(ms)),
+                    calendar_date: local_date(ms, zone),
+                    median_mm: t.median_mm,
+                    low_mm: t.low_mm,
+                    high_mm: t.high_mm,
+                }
+            })
+            .collect();
+        Ok(Response::new(pb::GetWearTrajectoryResponse {
+            part: record.parts.first().map(|p| part_forecast(p, level, level, zone)),
+            measured,
+            forecast,
+            fitted_at: fitted_at_ms.map(ms_timestamp),
+        }))
     }
-    async fn plan_visits(&self, _: Request<pb::PlanVisitsRequest>) -> Result<Response<pb::PlanVisitsResponse>, Status> {
-        Err(Status::unimplemented("PlanVisits"))
+
+    async fn plan_visits(&self, request: Request<pb::PlanVisitsRequest>) -> Result<Response<pb::PlanVisitsResponse>, Status> {
+        let r = request.into_inner();
+        let mut violations = Vec::new();
+        if let Err(v) = check_id("fleet_id", &r.fleet_id) {
+            violations.push(v);
+        }
+        let from_ms = crate::convert::required_time_ms("from", r.from.as_ref()).map_err(|v| violations.push(v)).ok();
+        let to_ms = crate::convert::required_time_ms("to", r.to.as_ref()).map_err(|v| violations.push(v)).ok();
+        if !(r.capacity_hours_per_day.is_finite() && r.capacity_hours_per_day > 0.0 && r.capacity_hours_per_day <= 24.0 * 50.0) {
+            violations.push(brakeledger_models::domain::FieldViolation::new("capacity_hours_per_day", "must be a number of hours greater than 0"));
+        }
+        for (field, value) in [("friction_job_hours", r.friction_job_hours), ("disc_job_hours", r.disc_job_hours)] {
+            if !(value.is_finite() && value >= 0.0) {
+                violations.push(brakeledger_models::domain::FieldViolation::new(field, "must be 0 (default) or a positive number of hours"));
+            }
+        }
+        if let (Some(from), Some(to)) = (from_ms, to_ms) {
+            if to < from {
+                violations.push(brakeledger_models::domain::FieldViolation::new("to", "must not be before from"));
+            } else if to - from > 366 * MS_PER_DAY {
+                violations.push(brakeledger_models::domain::FieldViolation::new("to", "a plan covers at most 366 days"));
+            }
+        }
+        let level = match indexed_band_level("band_level", r.band_level) {
+            Ok(level) => Some(level),
+            Err(ServiceError::InvalidArgument(mut more)) => {
+                violations.append(&mut more);
+                None
+            }
+            Err(other) => return Err(other.into()),
+        };
+        let (Some(from_ms), Some(to_ms), Some(level), true) = (from_ms, to_ms, level, violations.is_empty()) else {
+            return Err(ServiceError::InvalidArgument(violations).into());
+        };
+        let friction_hours = if r.friction_job_hours == 0.0 { 1.5 } else { r.friction_job_hours };
+        let disc_hours = if r.disc_job_hours == 0.0 { 3.0 } else { r.disc_job_hours };
+        let bundle_days = if r.bundle_within_days == 0 { 14 } else { i64::from(r.bundle_within_days.min(366)) };
+        let capacity = r.capacity_hours_per_day;
+        let fleet_id = r.fleet_id.clone();
+        let (fleet, parts) = self
+            .state
+            .blocking(move |store| {
+                let fleet = fleet_or_default(store, &fleet_id)?;
+                // Everything due before the plan ends, plus what could join a bundle.
+                let horizon_ms = to_ms + (bundle_days + 2) * MS_PER_DAY;
+                let cursors = scan_due_filtered(store, &fleet_id, level, horizon_ms, None, None, usize::MAX)?;
+                let parts = due_parts(store, &fleet_id, &cursors, level.probability(), fleet_zone(&fleet))?;
+                Ok((fleet, parts))
+            })
+            .await?;
+        let zone = fleet_zone(&fleet);
+        // Parts with a due date, each beside its planner input (same index).
+        let (booked_parts, plan_parts): (Vec<&pb::DuePart>, Vec<PlanPart>) = parts
+            .iter()
+            .filter_map(|due| {
+                let part = due.part.as_ref()?;
+                let earliest = part.due_earliest.as_ref().and_then(crate::convert::timestamp_ms)?;
+                let component = component_from_wire("component", part.component).ok()?;
+                let hours = match component {
+                    Component::Friction => friction_hours,
+                    Component::Disc => disc_hours,
+                };
+                Some((due, PlanPart { vehicle_id: due.vehicle_id.clone(), axle_index: part.axle_index, component, due_day: local_day_number(earliest, zone), hours }))
+            })
+            .unzip();
+        let limits = PlanLimits {
+            from_day: local_day_number(from_ms, zone),
+            to_day: local_day_number(to_ms, zone),
+            capacity_hours_per_day: capacity,
+            bundle_within_days: bundle_days,
+        };
+        let plan = plan_visits(&plan_parts, &limits);
+        let epoch = chrono::NaiveDate::from_ymd_opt(1970, 1, 1).unwrap_or_default();
+        let day_text = |day: i64| (epoch + chrono::Duration::days(day)).to_string();
+        let find = |i: usize| (booked_parts[i], booked_parts[i].part.as_ref());
+        let visits = plan
+            .visits
+            .iter()
+            .map(|visit| pb::Visit {
+                vehicle_id: visit.vehicle_id.clone(),
+                visit_date: day_text(visit.day),
+                hours: visit.hours(),
+                jobs: visit
+                    .jobs
+                    .iter()
+                    .map(|(i, hours)| {
+                        let (_, part) = find(*i);
+                        pb::PlannedJob {
+                            axle_index: plan_parts[*i].axle_index,
+                            component: component_to_wire(plan_parts[*i].component) as i32,
+                            due_earliest: part.and_then(|p| p.due_earliest),
+                            due_earliest_date: part.map(|p| p.due_earliest_date.clone()).unwrap_or_default(),
+                            hours: *hours,
+                        }
+                    })
+                    .collect(),
+            })
+            .collect();
+        let unplanned = plan
+            .unplanned
+            .iter()
+            .map(|(i, reason)| {
+                let (due, part) = find(*i);
+                pb::UnplannedPart {
+                    vehicle_id: due.vehicle_id.clone(),
+                    axle_index: plan_parts[*i].axle_index,
+                    component: component_to_wire(plan_parts[*i].component) as i32,
+                    due_earliest: part.and_then(|p| p.due_earliest),
+                    due_earliest_date: part.map(|p| p.due_earliest_date.clone()).unwrap_or_default(),
+                    reason: reason.describe().to_owned(),
+                }
+            })
+            .collect();
+        Ok(Response::new(pb::PlanVisitsResponse { visits, unplanned, time_zone: fleet.time_zone, caution: crate::SAFETY_CAUTION.to_owned() }))
     }
 }

@@ -2,7 +2,9 @@
 //! domain values, makes one call into the store or the forecaster, and converts back.
 
 pub mod fleet_api;
+pub mod due_watch;
 pub mod forecast_api;
+pub mod forecast_views;
 pub mod maintenance_api;
 pub mod paging;
 pub mod telemetry_api;

@@ -2,6 +2,7 @@
 //! Unix epoch (`_ms`), days are whole UTC days since the epoch, energies are J unless named `_mj`.
 
 use brakeledger_models::domain::{Component, VehicleSpec};
+use brakeledger_models::{ForecastBasis, WearFit, WearPrior};
 use serde::{Deserialize, Serialize};
 
 /// Milliseconds in a day.
@@ -190,32 +191,6 @@ impl BandLevel {
     }
 }
 
-/// A vehicle's own wear-rate fit of one part, kept for fleet pooling.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct FitSummary {
-    /// Wear rate, mm/MJ.
-    pub rate_mm_per_mj: f64,
-    /// Its standard error, mm/MJ.
-    pub rate_stderr_mm_per_mj: f64,
-    /// Inspections used.
-    pub inspections_used: u32,
-    /// Residual degrees of freedom.
-    pub degrees_of_freedom: f64,
-    /// Residual standard deviation, mm.
-    pub residual_sd_mm: f64,
-}
-
-/// Where a forecast's wear rate came from (mirrors the models crate's basis).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-pub enum StoredBasis {
-    /// The vehicle's own data.
-    VehicleData,
-    /// The fleet prior alone.
-    FleetPrior,
-    /// Both.
-    Combined,
-}
-
 /// The materialised forecast of one part.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct StoredPart {
@@ -223,8 +198,8 @@ pub struct StoredPart {
     pub axle_index: u32,
     /// Component.
     pub component: Component,
-    /// The vehicle's own fit, when one could be made.
-    pub own_fit: Option<FitSummary>,
+    /// The vehicle's own fit, when one could be made (kept for fleet pooling).
+    pub own_fit: Option<WearFit>,
     /// Estimated thickness now (median), mm.
     pub current_thickness_mm: f64,
     /// Lower band of the thickness now, mm (at 80 %).
@@ -242,7 +217,7 @@ pub struct StoredPart {
     /// Due day quantiles (days since epoch) at probabilities 0.01..=0.99; `None` when no date.
     pub due_quantile_days: Option<Vec<f64>>,
     /// Basis of the wear rate.
-    pub basis: StoredBasis,
+    pub basis: ForecastBasis,
     /// Inspections the rate rests on.
     pub inspections_used: u32,
     /// Notes for planners.
@@ -288,7 +263,7 @@ pub struct StaleMark {
     pub generation: u64,
 }
 
-/// Pooled wear-rate prior of one group.
+/// Pooled wear-rate prior of one group (vehicle class, axle, component).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct GroupPrior {
     /// Vehicle class.
@@ -297,12 +272,8 @@ pub struct GroupPrior {
     pub axle_index: u32,
     /// Component.
     pub component: Component,
-    /// Population mean wear rate, mm/MJ.
-    pub mean_mm_per_mj: f64,
-    /// Between-vehicle standard deviation, mm/MJ.
-    pub between_sd_mm_per_mj: f64,
-    /// Vehicles it rests on.
-    pub vehicles: u32,
+    /// The population distribution of wear rates in the group.
+    pub prior: WearPrior,
 }
 
 /// A fleet's pooled priors.

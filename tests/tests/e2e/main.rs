@@ -2,6 +2,7 @@
 //! directory and talks gRPC to it. One binary, one module per topic.
 
 mod durability;
+mod forecast;
 mod fleet;
 mod health;
 mod ingest;
