@@ -9,7 +9,6 @@ use brakeledger_proto::v1::{
     maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
 };
 use tokio::net::TcpListener;
-use tokio_stream::wrappers::TcpListenerStream;
 
 use crate::forecaster;
 use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
@@ -64,7 +63,11 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .add_service(TelemetryServiceServer::new(TelemetryApi::new(state.clone())))
         .add_service(MaintenanceServiceServer::new(MaintenanceApi::new(state.clone())))
         .add_service(ForecastServiceServer::new(ForecastApi::new(state.clone())))
-        .serve_with_incoming_shutdown(TcpListenerStream::new(listener), shutdown)
+        .serve_with_incoming_shutdown(
+            // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
+            tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),
+            shutdown,
+        )
         .await;
     tracing::info!("stopped accepting calls; draining done, flushing the store");
     state.stopping.send_replace(true);
