@@ -4,7 +4,10 @@
 //! # Model
 //! The current thickness is `T_now = A − k·d`: `A` the cycle's anchor (the fitted part's new
 //! thickness when the replacement is on record; otherwise the mean of the cycle's inspections,
-//! with variance σ²/n) and `d` the energy since that anchor (MJ). The wear rate `k` (mm/MJ)
+//! with variance σ²/n) and `d` the energy since that anchor (MJ). When the cycle's latest
+//! inspection lies more than 3 residual SDs (of the group, or of the gauge) off the wear line,
+//! the line no longer describes the part and the anchor becomes that inspection (variance: the
+//! gauge noise), with a note: a fresh measurement outranks an extrapolation. The wear rate `k` (mm/MJ)
 //! is normal with the posterior mean and variance from [`crate::pooling`] (own fit, fleet
 //! prior, or both). The residual SD σ used to scale the own fit's rate variance is shrunk
 //! toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
