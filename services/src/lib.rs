@@ -17,6 +17,8 @@
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
 //! technician, nor the roadworthiness rules that apply where the vehicle runs.
 
+#![cfg_attr(test, allow(clippy::unwrap_used))]
+
 pub mod cli;
 pub mod config;
 pub mod convert;

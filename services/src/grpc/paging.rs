@@ -24,7 +24,7 @@ pub fn encode_token(parts: &[&str]) -> String {
 /// Decodes a token made by [`encode_token`] into exactly `expected` parts.
 pub fn decode_token(token: &str, expected: usize) -> ServiceResult<Vec<String>> {
     let bad = || ServiceError::invalid("page_token", "is not a token this server issued");
-    if token.len() % 2 != 0 {
+    if !token.len().is_multiple_of(2) {
         return Err(bad());
     }
     let bytes = (0..token.len())

@@ -29,7 +29,7 @@ async fn list_all_due(server: &TestServer, due_before_s: i64, page_size: u32) ->
             .forecast()
             .list_due(pb::ListDueRequest {
                 fleet_id: "north".into(),
-                due_before: due_before.clone(),
+                due_before,
                 band_level: 0.0,
                 component: 0,
                 page_size,
