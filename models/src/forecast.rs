@@ -55,7 +55,8 @@ pub struct ForecastSettings {
     pub energy_rate_relative_sd: f64,
     /// Monte Carlo draws per part.
     pub monte_carlo_draws: usize,
-    /// Seed of the Monte Carlo (mixed with the axle and component).
+    /// Seed of the Monte Carlo (mixed with the axle and component). Callers set one per vehicle
+    /// (see [`vehicle_seed`]) so that vehicles do not share random streams.
     pub seed: u64,
     /// Fit hot-stop energy as its own regressor.
     pub hot_regressor: bool,
@@ -442,9 +443,10 @@ pub fn forecast_part(
     let k_sd = rate.variance.max(0.0).sqrt();
     let now_mean = anchor_mm - rate.mean * d;
     let now_sd = (anchor_var + rate.variance * d * d).max(0.0).sqrt();
-    outlook.current_thickness_mm = now_mean;
-    outlook.current_thickness_low_mm = now_mean - z * now_sd;
-    outlook.current_thickness_high_mm = now_mean + z * now_sd;
+    // A projection past the backing plate reads 0 mm: thickness cannot be negative.
+    outlook.current_thickness_mm = now_mean.max(0.0);
+    outlook.current_thickness_low_mm = (now_mean - z * now_sd).max(0.0);
+    outlook.current_thickness_high_mm = (now_mean + z * now_sd).max(0.0);
 
     if let Some(t) = measured_below {
         notes.push(format!(
@@ -467,9 +469,10 @@ pub fn forecast_part(
         return outlook;
     };
 
-    // Mix the part's own data into the seed so parts do not share one random stream.
-    let part_seed = current_cumulative_energy_mj.to_bits().rotate_left(17) ^ today_day.to_bits() ^ (history.events.len() as u64);
-    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, today_day, part_seed, settings);
+    // Common random numbers: the draws depend on the seed (set per vehicle by the caller), the
+    // axle and the component only, never on the data or the clock, so a forecast recomputed
+    // with a little more data moves smoothly instead of jumping with Monte Carlo noise.
+    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, today_day, settings);
     if outlook.due.is_none() {
         notes.push("the Monte Carlo produced no finite due date".into());
     }
@@ -500,14 +503,13 @@ fn monte_carlo_due(
     d: f64,
     energy: &EnergyRate,
     today_day: f64,
-    part_seed: u64,
     settings: &ForecastSettings,
 ) -> Option<DueDistribution> {
     let component_code: u64 = match history.component {
         crate::domain::Component::Friction => 1,
         crate::domain::Component::Disc => 2,
     };
-    let seed = settings.seed ^ part_seed ^ (u64::from(history.axle_index).wrapping_mul(0x9E37_79B9_7F4A_7C15)) ^ (component_code << 56);
+    let seed = settings.seed ^ (u64::from(history.axle_index).wrapping_mul(0x9E37_79B9_7F4A_7C15)) ^ (component_code << 56);
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let draws = settings.monte_carlo_draws.max(DUE_QUANTILES);
     let k_sd = rate.variance.max(0.0).sqrt();
@@ -571,4 +573,17 @@ fn trajectory(
         tau = (tau + step).min(span);
     }
     out
+}
+
+/// A stable Monte Carlo seed for one vehicle: FNV-1a (64-bit) of its identifiers, mixed with
+/// `base`. Stable across runs and platforms, so forecasts are reproducible.
+pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
+    let mut hash: u64 = 0xcbf2_9ce4_8422_2325;
+    for id in identifiers {
+        for byte in id.bytes().chain(std::iter::once(0u8)) {
+            hash ^= u64::from(byte);
+            hash = hash.wrapping_mul(0x0000_0100_0000_01b3);
+        }
+    }
+    base ^ hash
 }

@@ -8,7 +8,7 @@
 use std::collections::HashMap;
 
 use crate::domain::Component;
-use crate::forecast::{forecast_part, ForecastSettings, PartOutlook};
+use crate::forecast::{forecast_part, vehicle_seed, ForecastSettings, PartOutlook};
 use crate::pooling::{estimate_prior, WearPrior};
 use crate::wear_fit::{fit_part, WearFit};
 use crate::wear_history::PartHistory;
@@ -65,7 +65,10 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     inputs
         .iter()
         .zip(fits)
-        .map(|(input, own_fit)| {
+        .enumerate()
+        .map(|(index, (input, own_fit))| {
+            // One random stream per input, as the service has one per vehicle.
+            let part_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[&index.to_string()]), ..settings.clone() };
             let outlook = forecast_part(
                 &input.history,
                 own_fit.as_ref(),
@@ -73,7 +76,7 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
                 &input.daily_energy_mj,
                 today_day,
                 input.current_cumulative_energy_mj,
-                settings,
+                &part_settings,
             );
             PartResult { own_fit, outlook }
         })

@@ -387,7 +387,8 @@ fn simulate_vehicle(config: &SimConfig, class: &VehicleClass, index: usize, seed
             if d == next_inspection {
                 for (i, p) in parts.iter().enumerate() {
                     let noise = gauge.map_or(0.0, |g| g.sample(&mut rng));
-                    let measured = ((p.thickness + noise) * 10.0).round() / 10.0;
+                    // A gauge reads no less than zero: a part worn through reads 0 mm.
+                    let measured = (((p.thickness + noise) * 10.0).round() / 10.0).max(0.0);
                     inspections.push(SimInspection {
                         inspection_id: format!("{vehicle_id}-i{}", inspections.len() + 1),
                         unix_s: day as f64 * SECONDS_PER_DAY + 5.0 * 3600.0,

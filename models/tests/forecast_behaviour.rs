@@ -203,3 +203,20 @@ fn a_latest_inspection_far_below_the_wear_line_sets_todays_thickness() {
     // A reading on the line changes nothing of the kind.
     assert!(!line.notes.iter().any(|n| n.contains("latest inspection")));
 }
+
+#[test]
+fn the_same_data_a_little_later_gives_the_same_draws() {
+    // Common random numbers: with no new data, an hour later shifts every quantile by an hour,
+    // so dashboards do not see dates jump with Monte Carlo noise between calls.
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_750.0, 4000.0, 20.0), inspection(19_800.0, 8000.0, 18.1)]);
+    let settings = ForecastSettings::default();
+    let first = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 12_500.0, &settings).due.expect("date");
+    let later = forecast_part(&h, None, Some(&prior()), &energy(), TODAY + 1.0 / 24.0, 12_500.0, &settings).due.expect("date");
+    for (a, b) in first.quantile_days.iter().zip(&later.quantile_days) {
+        assert!((b - a - 1.0 / 24.0).abs() < 1e-9, "{a} -> {b}");
+    }
+    // Another vehicle's seed gives other draws (vehicles do not share one random stream).
+    let other = ForecastSettings { seed: brakeledger_models::forecast::vehicle_seed(settings.seed, &["fleet", "other"]), ..settings };
+    let third = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 12_500.0, &other).due.expect("date");
+    assert_ne!(first.quantile_days, third.quantile_days);
+}

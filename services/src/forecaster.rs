@@ -17,6 +17,7 @@ use std::time::Duration;
 
 use brakeledger_models::domain::Component;
 use brakeledger_models::wear_history::{history_from_daily_energy, DatedEvent};
+use brakeledger_models::forecast::vehicle_seed;
 use brakeledger_models::{estimate_prior, fit_part, forecast_part, ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
 use tokio::sync::watch;
 
@@ -150,9 +151,14 @@ pub struct ComputedPart {
     pub outlook: PartOutlook,
 }
 
-/// Computes every part of a vehicle at `now_ms` with the fleet's priors.
+/// Computes every part of a vehicle at `now_ms` with the fleet's priors. The Monte Carlo seed
+/// is the vehicle's own (stable), so repeated calls agree and new data moves dates smoothly.
 pub fn compute_vehicle(data: &VehicleData, priors: &FleetPriors, now_ms: i64, settings: &ForecastSettings) -> Vec<ComputedPart> {
     let today_day = now_ms as f64 / MS_PER_DAY as f64;
+    let settings = &ForecastSettings {
+        seed: vehicle_seed(settings.seed, &[&data.vehicle.fleet_id, &data.vehicle.vehicle_id]),
+        ..settings.clone()
+    };
     part_inputs(data, now_ms)
         .into_iter()
         .map(|input| {

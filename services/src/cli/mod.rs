@@ -1,18 +1,57 @@
 //! The `brakeledger` command line: `serve` runs the server; the other subcommands are clients
-//! of a running server, plus `demo`, which runs a whole invented fleet through the real API.
+//! of a running server, plus `summarise` (local physics, no server) and `demo`, which runs a
+//! whole invented fleet through the real API.
+//!
+//! # Layout
+//! - [`serve`]: the `serve` subcommand.
+//! - [`client`]: the connection to a server and readable errors from gRPC status.
+//! - [`dates`]: date and time flags in, calendar dates out.
+//! - [`table`]: plain aligned text tables.
+//! - [`parts`]: pad, lining, rotor and drum: component flags and names.
+//! - [`trip_file`]: reading trip summaries from CSV or JSON Lines files, with line numbers.
+//! - [`trips`]: `push-trips`, streaming a trip file and printing the ingest report.
+//! - [`vehicle_file`]: `add-vehicle` from a JSON or TOML file.
+//! - [`maintenance`]: `record-inspection` and `record-replacement`.
+//! - [`forecast_view`]: `forecast` and `due` (tables and JSON).
+//! - [`plan_view`]: the `plan` subcommand.
+//! - [`chart`]: `chart`, the SVG wear chart of one part.
+//! - [`summarise`]: `summarise`, a speed trace into a trip summary.
+//! - [`demo`], [`demo_feed`], [`demo_accuracy`]: `demo`.
 
+pub mod chart;
+pub mod client;
+pub mod dates;
+pub mod demo;
+pub mod demo_accuracy;
+pub mod demo_feed;
+pub mod forecast_view;
+pub mod maintenance;
+pub mod parts;
+pub mod plan_view;
 pub mod serve;
+pub mod summarise;
+pub mod table;
+pub mod trip_file;
+pub mod trips;
+pub mod vehicle_file;
 
+use std::io::Write;
 use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
+
+/// Where client subcommands connect when neither `--server` nor `BRAKELEDGER_SERVER` is given.
+pub const DEFAULT_SERVER: &str = "http://127.0.0.1:50051";
 
 /// brakeledger: when will each brake pad, rotor, lining and drum of a fleet reach its minimum
 /// thickness? Forecasts support planning; they do not replace inspection by a qualified
 /// technician or local roadworthiness rules.
 #[derive(Debug, Parser)]
-#[command(name = "brakeledger", version, about, long_about = None)]
+#[command(name = "brakeledger", version)]
 pub struct Cli {
+    /// Server that client subcommands talk to.
+    #[arg(long, global = true, env = "BRAKELEDGER_SERVER", default_value = DEFAULT_SERVER)]
+    pub server: String,
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
@@ -25,12 +64,60 @@ pub enum Command {
     ///
     /// Example: brakeledger serve --data /var/lib/brakeledger --listen 127.0.0.1:50051
     Serve(ServeArgs),
+    /// Send trip summaries from a CSV or JSON Lines file and print what the server made of them.
+    #[command(long_about = trips::PUSH_LONG_ABOUT, after_help = format!("{}{}", trips::PUSH_EXAMPLES, trip_file::COLUMNS_HELP))]
+    PushTrips(trips::PushTripsArgs),
+    /// Register (or replace) a vehicle described in a JSON or TOML file.
+    #[command(long_about = vehicle_file::ADD_VEHICLE_LONG_ABOUT, after_help = vehicle_file::ADD_VEHICLE_EXAMPLES)]
+    AddVehicle(vehicle_file::AddVehicleArgs),
+    /// Record a measured pad, lining, rotor or drum thickness.
+    #[command(after_help = maintenance::INSPECTION_EXAMPLES)]
+    RecordInspection(maintenance::InspectionArgs),
+    /// Record that a pad, lining, rotor or drum was replaced.
+    #[command(after_help = maintenance::REPLACEMENT_EXAMPLES)]
+    RecordReplacement(maintenance::ReplacementArgs),
+    /// Show one vehicle's forecast: every axle's friction part and rotor or drum.
+    #[command(after_help = forecast_view::FORECAST_EXAMPLES)]
+    Forecast(forecast_view::ForecastArgs),
+    /// List the parts of a fleet due before a date, earliest first.
+    #[command(after_help = forecast_view::DUE_EXAMPLES)]
+    Due(forecast_view::DueArgs),
+    /// Make a workshop plan that books parts before they are due, within a daily capacity.
+    #[command(after_help = plan_view::PLAN_EXAMPLES)]
+    Plan(plan_view::PlanArgs),
+    /// Write an SVG chart of one part: measurements, forecast band and minimum thickness.
+    #[command(after_help = chart::CHART_EXAMPLES)]
+    Chart(chart::ChartArgs),
+    /// Turn a speed-trace CSV into a trip summary (JSON), using the braking physics. No server.
+    #[command(long_about = summarise::SUMMARISE_LONG_ABOUT, after_help = summarise::SUMMARISE_EXAMPLES)]
+    Summarise(summarise::SummariseArgs),
+    /// Run an invented fleet through an in-process server and show every answer it gives.
+    #[command(long_about = demo::DEMO_LONG_ABOUT, after_help = demo::DEMO_EXAMPLES)]
+    Demo(demo::DemoArgs),
 }
 
-/// Runs a parsed command line to completion.
+/// Runs a parsed command line to completion, answers on stdout.
 pub async fn run(cli: Cli) -> anyhow::Result<()> {
+    run_with_output(cli, &mut std::io::stdout()).await
+}
+
+/// Runs a parsed command line, writing the answers (tables, JSON, reports) to `out`; progress
+/// and logs still go to stderr. Tests pass a buffer.
+pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<()> {
+    let server = cli.server;
+    let out = &mut *out;
     match cli.command {
         Command::Serve(args) => serve::serve(args).await,
+        Command::PushTrips(args) => trips::push_trips(&server, &args, out).await,
+        Command::AddVehicle(args) => vehicle_file::add_vehicle(&server, &args, out).await,
+        Command::RecordInspection(args) => maintenance::record_inspection(&server, &args, out).await,
+        Command::RecordReplacement(args) => maintenance::record_replacement(&server, &args, out).await,
+        Command::Forecast(args) => forecast_view::forecast(&server, &args, out).await,
+        Command::Due(args) => forecast_view::due(&server, &args, out).await,
+        Command::Plan(args) => plan_view::plan(&server, &args, out).await,
+        Command::Chart(args) => chart::chart(&server, &args, out).await,
+        Command::Summarise(args) => summarise::summarise(&args, out),
+        Command::Demo(args) => demo::demo(&args, out).await,
     }
 }
 
@@ -50,4 +137,33 @@ pub struct ServeArgs {
     /// Log lines as JSON objects.
     #[arg(long)]
     pub json_logs: bool,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn command_line_definition_is_consistent() {
+        Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn every_client_subcommand_shows_an_example_in_its_help() {
+        let mut cli = Cli::command();
+        for sub in cli.get_subcommands_mut() {
+            let name = sub.get_name().to_owned();
+            let help = sub.render_long_help().to_string();
+            assert!(help.contains("brakeledger "), "`{name} --help` has no example:\n{help}");
+        }
+    }
+
+    #[test]
+    fn server_flag_is_global_with_a_loopback_default() {
+        let cli = Cli::try_parse_from(["brakeledger", "due", "--fleet", "north", "--within-days", "30"]).expect("parse");
+        assert_eq!(cli.server, DEFAULT_SERVER);
+        let cli = Cli::try_parse_from(["brakeledger", "due", "--fleet", "north", "--server", "http://10.0.0.5:9000"]).expect("parse");
+        assert_eq!(cli.server, "http://10.0.0.5:9000");
+    }
 }

@@ -1,0 +1,114 @@
+//! The client side of a connection: one [`Connection`] to a brakeledger server holding a client
+//! per service, and [`explain`], which turns a gRPC status (with its field violations) into an
+//! error a person can act on.
+
+use anyhow::Context;
+use brakeledger_proto::v1 as pb;
+use tonic::transport::{Channel, Endpoint};
+use tonic_types::StatusExt;
+
+/// Clients of every brakeledger service over one channel.
+#[derive(Debug, Clone)]
+pub struct Connection {
+    /// FleetService.
+    pub fleet: pb::fleet_service_client::FleetServiceClient<Channel>,
+    /// TelemetryService.
+    pub telemetry: pb::telemetry_service_client::TelemetryServiceClient<Channel>,
+    /// MaintenanceService.
+    pub maintenance: pb::maintenance_service_client::MaintenanceServiceClient<Channel>,
+    /// ForecastService.
+    pub forecast: pb::forecast_service_client::ForecastServiceClient<Channel>,
+}
+
+impl Connection {
+    /// Connects to `server` (a URL such as `http://127.0.0.1:50051`).
+    pub async fn open(server: &str) -> anyhow::Result<Self> {
+        let endpoint = Endpoint::from_shared(server.to_owned())
+            .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051)"))?
+            .connect_timeout(std::time::Duration::from_secs(10));
+        let channel = endpoint
+            .connect()
+            .await
+            .with_context(|| format!("cannot connect to the brakeledger server at {server} (is it running? see --server)"))?;
+        Ok(Self::over(channel))
+    }
+
+    /// Clients over an existing channel.
+    pub fn over(channel: Channel) -> Self {
+        Self {
+            fleet: pb::fleet_service_client::FleetServiceClient::new(channel.clone()),
+            telemetry: pb::telemetry_service_client::TelemetryServiceClient::new(channel.clone()),
+            maintenance: pb::maintenance_service_client::MaintenanceServiceClient::new(channel.clone()),
+            forecast: pb::forecast_service_client::ForecastServiceClient::new(channel),
+        }
+    }
+
+    /// The fleet's time zone name as stored (defaults to UTC on the server).
+    pub async fn fleet_time_zone(&mut self, fleet_id: &str) -> anyhow::Result<chrono_tz::Tz> {
+        let response = self
+            .fleet
+            .get_fleet(pb::GetFleetRequest { fleet_id: fleet_id.to_owned() })
+            .await
+            .map_err(|s| explain(s, &format!("reading fleet '{fleet_id}'")))?
+            .into_inner();
+        let name = response.fleet.map(|f| f.time_zone).unwrap_or_default();
+        if name.is_empty() {
+            return Ok(chrono_tz::UTC);
+        }
+        name.parse().map_err(|e| anyhow::anyhow!("the server gave fleet '{fleet_id}' an unknown time zone '{name}': {e}"))
+    }
+
+    /// Every vehicle of a fleet, following the pages.
+    pub async fn all_vehicles(&mut self, fleet_id: &str) -> anyhow::Result<Vec<pb::Vehicle>> {
+        let mut vehicles = Vec::new();
+        let mut page_token = String::new();
+        loop {
+            let page = self
+                .fleet
+                .list_vehicles(pb::ListVehiclesRequest { fleet_id: fleet_id.to_owned(), page_size: 1000, page_token })
+                .await
+                .map_err(|s| explain(s, &format!("listing the vehicles of fleet '{fleet_id}'")))?
+                .into_inner();
+            vehicles.extend(page.vehicles);
+            if page.next_page_token.is_empty() {
+                return Ok(vehicles);
+            }
+            page_token = page.next_page_token;
+        }
+    }
+}
+
+/// An error saying what was being done, the status code and message, and each offending field.
+pub fn explain(status: tonic::Status, doing: &str) -> anyhow::Error {
+    let mut message = format!("{doing}: the server answered {:?}: {}", status.code(), status.message());
+    if let Some(bad_request) = status.get_details_bad_request() {
+        for violation in bad_request.field_violations {
+            message.push_str(&format!("\n  - {}: {}", violation.field, violation.description));
+        }
+    }
+    anyhow::anyhow!(message)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use tonic_types::ErrorDetails;
+
+    #[test]
+    fn explain_lists_each_field_violation() {
+        let mut details = ErrorDetails::new();
+        details.add_bad_request_violation("vehicle.mass_kg", "must be greater than 0");
+        details.add_bad_request_violation("vehicle.axles", "a vehicle needs at least one braked axle");
+        let status = tonic::Status::with_error_details(tonic::Code::InvalidArgument, "2 invalid fields", details);
+        let text = explain(status, "registering vehicle 'bus-1'").to_string();
+        assert!(text.starts_with("registering vehicle 'bus-1': the server answered InvalidArgument: 2 invalid fields"), "{text}");
+        assert!(text.contains("\n  - vehicle.mass_kg: must be greater than 0"), "{text}");
+        assert!(text.contains("\n  - vehicle.axles: a vehicle needs at least one braked axle"), "{text}");
+    }
+
+    #[tokio::test]
+    async fn a_bad_server_url_is_a_clear_error() {
+        let error = Connection::open("not a url").await.expect_err("must fail");
+        assert!(format!("{error:#}").contains("'not a url' is not a server URL"), "{error:#}");
+    }
+}

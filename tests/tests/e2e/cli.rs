@@ -1,0 +1,189 @@
+//! The command-line client against a real server: each test parses a `brakeledger` command
+//! line as the binary would and runs it with its answers captured.
+
+use brakeledger::cli::{run_with_output, Cli};
+use brakeledger_tests::{register, seed_vehicle, two_axle_vehicle, wait_for_forecasts, TestServer};
+use clap::Parser;
+
+/// Runs `brakeledger --server <server> <args...>` and returns what it printed.
+async fn brakeledger(server: &TestServer, args: &[&str]) -> anyhow::Result<String> {
+    let url = format!("http://{}", server.addr);
+    let mut argv = vec!["brakeledger", "--server", url.as_str()];
+    argv.extend_from_slice(args);
+    let cli = Cli::try_parse_from(argv)?;
+    let mut out = Vec::new();
+    run_with_output(cli, &mut out).await?;
+    Ok(String::from_utf8(out)?)
+}
+
+/// The ISO 8601 calendar dates in a line of text, in order.
+fn dates_in(line: &str) -> Vec<chrono::NaiveDate> {
+    line.split_whitespace().filter_map(|word| chrono::NaiveDate::parse_from_str(word, "%Y-%m-%d").ok()).collect()
+}
+
+#[tokio::test]
+async fn push_trips_from_csv_reports_each_refusal_by_line_and_is_safe_to_repeat() {
+    let server = TestServer::start().await;
+    register(&server, two_axle_vehicle("north", "bus-1")).await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("trips.csv");
+    let day = chrono::Utc::now().date_naive() - chrono::Duration::days(3);
+    let at = |h: u32| format!("{day}T{h:02}:00:00Z");
+    let csv = format!(
+        "fleet_id,vehicle_id,trip_id,start_time,end_time,distance_m,friction_energy_j,axle_energy_j,brake_applications\n\
+         north,bus-1,t1,{},{},40000,3.0e7,1.95e7;1.05e7,120\n\
+         north,bus-1,t2,{},{},38000,2.8e7,,100\n\
+         \n\
+         north,bus-1,t3,{},{},41000,3.1e7,,110\n\
+         north,ghost,t4,{},{},41000,3.1e7,,110\n",
+        at(6), at(7), at(9), at(8), at(10), at(11), at(12), at(13)
+    );
+    std::fs::write(&path, csv).expect("write csv");
+    let file = path.to_string_lossy().into_owned();
+
+    let first = brakeledger(&server, &["push-trips", &file]).await.expect("push");
+    let lines: Vec<&str> = first.lines().collect();
+    assert_eq!(lines[0], "sent 4 trips: 2 stored, 0 already stored, 2 refused", "{first}");
+    let end_time_row = lines.iter().find(|l| l.contains("end_time")).unwrap_or_else(|| panic!("no end_time refusal: {first}"));
+    assert!(end_time_row.trim_start().starts_with("3  t2"), "t2 is on line 3: {first}");
+    let vehicle_row = lines.iter().find(|l| l.contains("vehicle_id")).unwrap_or_else(|| panic!("no vehicle refusal: {first}"));
+    assert!(vehicle_row.trim_start().starts_with("6  t4"), "t4 is on line 6, after a blank line: {first}");
+
+    let again = brakeledger(&server, &["push-trips", &file, "--json"]).await.expect("push again");
+    assert!(again.contains("\"accepted\": 0,") && again.contains("\"duplicates\": 2,"), "{again}");
+    assert_eq!(again.matches("\"reason\":").count(), 2, "{again}");
+
+    let vehicle = server
+        .fleet()
+        .get_vehicle(brakeledger_proto::v1::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "bus-1".into() })
+        .await
+        .expect("vehicle")
+        .into_inner();
+    assert_eq!(vehicle.trips_recorded, 2);
+    assert!((vehicle.friction_energy_j - 6.1e7).abs() < 1.0);
+
+    // A file with an unreadable line sends nothing.
+    let bad = dir.path().join("bad.jsonl");
+    std::fs::write(&bad, "{\"fleet_id\":\"north\",\"vehicle_id\":\"bus-1\",\"trip_id\":\"x\"}\n").expect("write");
+    let error = brakeledger(&server, &["push-trips", &bad.to_string_lossy()]).await.expect_err("bad file");
+    let message = format!("{error:#}");
+    assert!(message.contains("nothing was sent") && message.contains("line 1"), "{message}");
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn vehicles_and_workshop_records_go_in_through_the_cli() {
+    let server = TestServer::start().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("van.toml");
+    std::fs::write(
+        &path,
+        "fleet_id = \"north\"\nvehicle_id = \"van-7\"\nvehicle_class = \"van\"\nmass_kg = 3500\n\n\
+         [[axles]]\nbrake_type = \"disc\"\nenergy_share = 0.7\nfriction_new_mm = 12\nfriction_min_mm = 2\ndisc_new_mm = 28\ndisc_min_mm = 25.5\n\n\
+         [[axles]]\nbrake_type = \"drum\"\nenergy_share = 0.3\nfriction_new_mm = 6\nfriction_min_mm = 1.5\ndisc_new_mm = 10\ndisc_min_mm = 8\n",
+    )
+    .expect("write toml");
+    let file = path.to_string_lossy().into_owned();
+    let out = brakeledger(&server, &["add-vehicle", &file]).await.expect("add vehicle");
+    assert_eq!(out, "vehicle 'van-7' of fleet 'north': registered, 2 braked axle(s)\n");
+    let out = brakeledger(&server, &["add-vehicle", &file]).await.expect("add again");
+    assert!(out.contains("replaced"), "{out}");
+
+    let at = (chrono::Utc::now() - chrono::Duration::days(1)).format("%Y-%m-%dT08:00:00Z").to_string();
+    let inspect = ["record-inspection", "--fleet", "north", "--vehicle", "van-7", "--axle", "2", "--component", "lining", "--thickness-mm", "4.2", "--at", &at];
+    let out = brakeledger(&server, &inspect).await.expect("inspection");
+    assert!(out.ends_with(": stored\n") && out.contains("axle 2"), "{out}");
+    let out = brakeledger(&server, &inspect).await.expect("same inspection again");
+    assert!(out.ends_with("already stored, nothing changed\n"), "{out}");
+
+    let replace = ["record-replacement", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "rotor", "--at", &at];
+    let out = brakeledger(&server, &replace).await.expect("replacement");
+    assert!(out.ends_with(": stored\n"), "{out}");
+
+    // The server's refusal comes back with the field that is wrong.
+    let error = brakeledger(&server, &["record-inspection", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "pad", "--thickness-mm=-3"])
+        .await
+        .expect_err("negative thickness");
+    let message = format!("{error:#}");
+    assert!(message.contains("InvalidArgument") && message.contains("thickness_mm"), "{message}");
+    let error = brakeledger(&server, &["record-inspection", "--fleet", "north", "--vehicle", "nobody", "--axle", "1", "--component", "pad", "--thickness-mm", "5"])
+        .await
+        .expect_err("unknown vehicle");
+    assert!(format!("{error:#}").contains("NotFound"), "{error:#}");
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn forecast_due_plan_and_chart_answer_from_the_server() {
+    let server = TestServer::start().await;
+    // bus-fast wears 1.5 times the test rates: its front pad reaches 3 mm about 70 days from
+    // now (22 mm new, 0.0036 mm/MJ at 19.5 MJ/day: 8 mm left after 200 days). bus-slow's
+    // front pad has about 200 days left.
+    seed_vehicle(&server, "bus-fast", 200, 1.5, &[150, 90, 30, 5]).await;
+    seed_vehicle(&server, "bus-slow", 200, 1.0, &[150, 90, 30, 5]).await;
+    wait_for_forecasts(&server).await;
+
+    let text = brakeledger(&server, &["forecast", "--fleet", "north", "--vehicle", "bus-fast"]).await.expect("forecast");
+    assert!(text.starts_with("Forecast for vehicle bus-fast (fleet north)"), "{text}");
+    let rows: Vec<&str> = text.lines().filter(|l| l.trim_start().starts_with(['1', '2'])).collect();
+    assert_eq!(rows.len(), 4, "two axles, pad and rotor each: {text}");
+    assert!(rows[0].trim_start().starts_with("1  pad") && rows[1].trim_start().starts_with("1  rotor"), "{text}");
+    let dates = dates_in(rows[0]);
+    assert_eq!(dates.len(), 3, "earliest, median, latest: {}", rows[0]);
+    assert!(dates[0] <= dates[1] && dates[1] <= dates[2], "{dates:?}");
+    let days_left = (dates[1] - chrono::Utc::now().date_naive()).num_days();
+    assert!((40..=110).contains(&days_left), "front pad of bus-fast due in about 70 days, got {days_left}");
+    assert!(text.trim_end().ends_with(brakeledger::SAFETY_CAUTION), "{text}");
+
+    let json = brakeledger(&server, &["forecast", "--fleet", "north", "--vehicle", "bus-fast", "--json"]).await.expect("forecast json");
+    // The first part in the JSON is the front pad; its median date is the table's: the
+    // Monte Carlo uses the vehicle's own stable seed, so calls agree (dates shift only by the
+    // seconds between the calls).
+    let json_median = json
+        .split_once("\"due_median_date\": \"")
+        .and_then(|(_, rest)| rest.get(..10))
+        .and_then(|d| chrono::NaiveDate::parse_from_str(d, "%Y-%m-%d").ok())
+        .unwrap_or_else(|| panic!("no median date in the JSON: {json}"));
+    assert_eq!(json_median, dates[1], "JSON median vs table median");
+    assert!(json.contains("\"caution\": \"Caution:"), "{json}");
+
+    let table = brakeledger(&server, &["due", "--fleet", "north", "--within-days", "120"]).await.expect("due");
+    let listed: Vec<&str> = table.lines().filter(|l| l.get(..10).is_some_and(|d| !dates_in(d).is_empty())).collect();
+    assert!(
+        listed.iter().any(|l| l.contains("bus-fast") && l.contains("    1  pad")),
+        "bus-fast's front pad is due within 120 days: {table}"
+    );
+    let earliest: Vec<chrono::NaiveDate> = listed.iter().filter_map(|l| dates_in(l).first().copied()).collect();
+    assert_eq!(earliest.len(), listed.len());
+    assert!(earliest.windows(2).all(|w| w[0] <= w[1]), "sorted by due earliest: {earliest:?}");
+    let window_end = chrono::Utc::now().date_naive() + chrono::Duration::days(120);
+    assert!(earliest.iter().all(|d| *d <= window_end), "{earliest:?}");
+    assert!(table.trim_end().ends_with(brakeledger::SAFETY_CAUTION), "{table}");
+
+    let pads = brakeledger(&server, &["due", "--fleet", "north", "--within-days", "120", "--component", "pad"]).await.expect("due pads");
+    let pad_rows = listed.iter().filter(|l| l.contains(" pad ")).count();
+    assert!(pads.starts_with(&format!("{pad_rows} part(s) on")), "{pads}");
+    assert!(!pads.contains(" rotor "), "--component pad lists pads only: {pads}");
+    let due_json = brakeledger(&server, &["due", "--fleet", "north", "--within-days", "120", "--json"]).await.expect("due json");
+    assert_eq!(due_json.matches("\"vehicle_id\":").count(), listed.len(), "{due_json}");
+
+    let plan = brakeledger(&server, &["plan", "--fleet", "north", "--days", "120", "--hours-per-day", "8"]).await.expect("plan");
+    assert!(plan.starts_with("Workshop plan for fleet north"), "{plan}");
+    assert!(plan.contains("bus-fast") && plan.contains("axle 1 pad"), "the front pad of bus-fast is booked: {plan}");
+    assert!(plan.trim_end().ends_with(brakeledger::SAFETY_CAUTION), "{plan}");
+
+    let dir = tempfile::tempdir().expect("temp dir");
+    let svg_path = dir.path().join("front-pad.svg");
+    let svg_arg = svg_path.to_string_lossy().into_owned();
+    let said = brakeledger(&server, &["chart", "--fleet", "north", "--vehicle", "bus-fast", "--axle", "1", "--component", "pad", "--out", &svg_arg])
+        .await
+        .expect("chart");
+    assert!(said.contains(&svg_arg), "{said}");
+    let svg = std::fs::read_to_string(&svg_path).expect("svg written");
+    assert_eq!(svg.matches("<circle").count(), 4 + 1, "four inspections since the fitting, and the legend's dot");
+    assert!(svg.contains("<polygon") && svg.contains("Thickness (mm)") && svg.contains("minimum thickness (3 mm)"));
+
+    let error = brakeledger(&server, &["forecast", "--fleet", "north", "--vehicle", "ghost"]).await.expect_err("unknown vehicle");
+    assert!(format!("{error:#}").contains("NotFound"), "{error:#}");
+    server.stop().await;
+}
