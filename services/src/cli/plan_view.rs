@@ -22,9 +22,10 @@ Examples:
   brakeledger plan --fleet north --from 2025-04-07 --days 28 --hours-per-day 16 --bundle-days 21
   brakeledger plan --fleet north --pad-job-hours 2 --rotor-job-hours 4 --json
 
-Parts are taken earliest due first and booked on the latest day with room that is still
-before they are due; other parts of the same vehicle due soon after ride along in the same
-visit. Dates are calendar dates in the fleet's time zone.";
+Parts are taken earliest due first and booked on the first day with room that is still
+before their due date; other parts of the same vehicle due soon after ride along in the same
+visit (a rotor or drum job includes that axle's pads or linings). Dates are calendar dates in
+the fleet's time zone.";
 
 /// Flags of `plan`.
 #[derive(Debug, clap::Args)]
