@@ -54,6 +54,13 @@ impl TestServer {
         Self { addr, channel, stop: Some(stop), task: Some(task), data_dir: None }
     }
 
+    /// Begins a graceful stop without waiting: new calls are refused, open ones may finish.
+    pub fn begin_stop(&mut self) {
+        if let Some(stop) = self.stop.take() {
+            let _ = stop.send(());
+        }
+    }
+
     /// Stops the server gracefully and waits for it.
     pub async fn stop(mut self) {
         if let Some(stop) = self.stop.take() {
@@ -123,6 +130,14 @@ impl ServerProcess {
         std::io::BufReader::new(stdout).read_line(&mut line).expect("read listen line");
         let addr = line.trim().rsplit(' ').next().and_then(|a| a.parse().ok()).unwrap_or_else(|| panic!("unexpected first line {line:?}"));
         Self { child, addr }
+    }
+
+    /// Sends SIGTERM and waits for the process to exit; returns its exit status.
+    pub fn terminate(mut self) -> std::process::ExitStatus {
+        let pid = self.child.id().to_string();
+        let sent = std::process::Command::new("kill").args(["-TERM", &pid]).status().expect("run kill");
+        assert!(sent.success(), "kill -TERM {pid}");
+        self.child.wait().expect("wait")
     }
 
     /// Kills the process with SIGKILL and reaps it.

@@ -87,3 +87,54 @@ fn a_database_from_a_newer_schema_is_refused() {
         Ok(_) => panic!("a newer schema must be refused"),
     }
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_graceful_stop_lets_an_open_stream_finish_and_report() {
+    let mut server = brakeledger_tests::TestServer::start().await;
+    brakeledger_tests::register(&server, two_axle_vehicle("north", "bus-1")).await;
+    let end = now_s() - 60;
+    let (sender, receiver) = tokio::sync::mpsc::channel::<pb::TripSummary>(16);
+    let mut telemetry = server.telemetry();
+    let call = tokio::spawn(async move { telemetry.stream_trips(tokio_stream::wrappers::ReceiverStream::new(receiver)).await });
+    for n in 0..100 {
+        sender.send(trip("north", "bus-1", n, end)).await.expect("send");
+    }
+    // The stop begins while the stream is open; the rest of the stream still arrives.
+    server.begin_stop();
+    tokio::time::sleep(Duration::from_millis(100)).await;
+    for n in 100..200 {
+        sender.send(trip("north", "bus-1", n, end)).await.expect("send");
+    }
+    drop(sender);
+    let report = call.await.expect("join").expect("the open stream completes").into_inner();
+    assert_eq!(report.accepted, 200);
+    let dir = server.data_dir.take().expect("data dir");
+    server.stop().await;
+    // Everything reported is in the database when the server has stopped.
+    let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("reopen");
+    use brakeledger::store::Store;
+    assert_eq!(store.vehicle_totals("north", "bus-1").expect("totals").trips_recorded, 200);
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn sigterm_stops_the_process_cleanly_with_everything_on_disk() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let server = ServerProcess::spawn(&server_binary(), dir.path());
+    let channel = connect(server.addr).await;
+    pb::fleet_service_client::FleetServiceClient::new(channel.clone())
+        .upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(two_axle_vehicle("north", "truck-9")) })
+        .await
+        .expect("upsert");
+    let trips: Vec<pb::TripSummary> = (0..500).map(|n| trip("north", "truck-9", n, now_s() - 60)).collect();
+    let report = pb::telemetry_service_client::TelemetryServiceClient::new(channel)
+        .push_trips(pb::PushTripsRequest { trips })
+        .await
+        .expect("push")
+        .into_inner();
+    assert_eq!(report.accepted, 500);
+    let status = server.terminate();
+    assert!(status.success(), "exit status after SIGTERM: {status:?}");
+    let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("reopen");
+    use brakeledger::store::Store;
+    assert_eq!(store.vehicle_totals("north", "truck-9").expect("totals").trips_recorded, 500);
+}
