@@ -189,24 +189,11 @@ pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> V
         computed_at_ms: now_ms,
         parts: parts
             .iter()
-            .map(|p| {
-                let o = &p.outlook;
-                StoredPart {
-                    axle_index: p.input.history.axle_index,
-                    component: p.input.history.component,
-                    own_fit: p.own_fit.clone(),
-                    current_thickness_mm: o.current_thickness_mm,
-                    current_thickness_low_mm: o.current_thickness_low_mm,
-                    current_thickness_high_mm: o.current_thickness_high_mm,
-                    min_thickness_mm: o.min_thickness_mm,
-                    wear_rate_mm_per_mj: o.wear_rate_mm_per_mj,
-                    wear_rate_stderr_mm_per_mj: o.wear_rate_stderr_mm_per_mj,
-                    daily_energy_mj: o.daily_energy_mj,
-                    due_quantile_days: o.due.as_ref().map(|d| d.quantile_days.clone()),
-                    basis: o.basis,
-                    inspections_used: o.inspections_used,
-                    notes: o.notes.clone(),
-                }
+            .map(|p| StoredPart {
+                axle_index: p.input.history.axle_index,
+                component: p.input.history.component,
+                own_fit: p.own_fit.clone(),
+                outlook: PartOutlook { trajectory: Vec::new(), ..p.outlook.clone() },
             })
             .collect(),
     }

@@ -16,7 +16,7 @@ use std::time::Instant;
 
 use brakeledger::store::{sled_store::SledStore, Store, StoredPart, TripRecord, VehicleForecasts};
 use brakeledger_models::domain::Component;
-use brakeledger_models::ForecastBasis;
+use brakeledger_models::{DueDistribution, ForecastBasis, PartOutlook};
 use brakeledger_proto::v1 as pb;
 use brakeledger_tests::{now_s, trip, two_axle_vehicle, TestServer};
 
@@ -96,17 +96,22 @@ fn synthetic_forecasts(store: &dyn Store) {
                         axle_index: axle,
                         component,
                         own_fit: None,
-                        current_thickness_mm: 10.0,
-                        current_thickness_low_mm: 9.0,
-                        current_thickness_high_mm: 11.0,
-                        min_thickness_mm: 3.0,
-                        wear_rate_mm_per_mj: 0.002,
-                        wear_rate_stderr_mm_per_mj: 0.0002,
-                        daily_energy_mj: 20.0,
-                        due_quantile_days: Some((1..=99).map(|q| base + q as f64).collect()),
-                        basis: ForecastBasis::Combined,
-                        inspections_used: 4,
-                        notes: Vec::new(),
+                        outlook: PartOutlook {
+                            current_thickness_mm: 10.0,
+                            current_thickness_low_mm: 9.0,
+                            current_thickness_high_mm: 11.0,
+                            min_thickness_mm: 3.0,
+                            wear_rate_mm_per_mj: 0.002,
+                            wear_rate_stderr_mm_per_mj: 0.0002,
+                            daily_energy_mj: 20.0,
+                            due: Some(DueDistribution { quantile_days: (1..=99).map(|q| base + q as f64).collect() }),
+                            basis: ForecastBasis::Combined,
+                            inspections_used: 4,
+                            notes: Vec::new(),
+                            fitted_day: None,
+                            energy_since_fitted_mj: 0.0,
+                            trajectory: Vec::new(),
+                        },
                     }
                 })
             })

@@ -99,12 +99,7 @@ pub async fn fetch_chart(
         .await
         .map_err(|s| explain(s, &format!("reading the wear trajectory of vehicle '{vehicle_id}' axle {axle_index}")))?
         .into_inner();
-    let vehicle = connection
-        .fleet
-        .get_vehicle(pb::GetVehicleRequest { fleet_id: fleet_id.to_owned(), vehicle_id: vehicle_id.to_owned() })
-        .await
-        .ok()
-        .and_then(|r| r.into_inner().vehicle);
+    let vehicle = connection.vehicle_if_any(fleet_id, vehicle_id).await;
     let name = part_name(part.component() as i32, brake_type_of(vehicle.as_ref(), axle_index));
     Ok(ChartData { title: format!("vehicle {vehicle_id}, axle {axle_index} {name}"), trajectory, today: Some(Utc::now()) })
 }

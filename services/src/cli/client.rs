@@ -33,6 +33,16 @@ impl Connection {
         Ok(Self::over(channel))
     }
 
+    /// The vehicle, when it can be read (used only to name parts: pad or lining, rotor or
+    /// drum; a failure leaves the generic names).
+    pub async fn vehicle_if_any(&mut self, fleet_id: &str, vehicle_id: &str) -> Option<pb::Vehicle> {
+        self.fleet
+            .get_vehicle(pb::GetVehicleRequest { fleet_id: fleet_id.to_owned(), vehicle_id: vehicle_id.to_owned() })
+            .await
+            .ok()
+            .and_then(|r| r.into_inner().vehicle)
+    }
+
     /// Clients over an existing channel.
     pub fn over(channel: Channel) -> Self {
         Self {

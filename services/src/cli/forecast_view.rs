@@ -249,12 +249,7 @@ pub async fn fetch_forecast(
         .await
         .map_err(|s| explain(s, &doing))?
         .into_inner();
-    let vehicle = connection
-        .fleet
-        .get_vehicle(pb::GetVehicleRequest { fleet_id: fleet_id.to_owned(), vehicle_id: vehicle_id.to_owned() })
-        .await
-        .ok()
-        .and_then(|r| r.into_inner().vehicle);
+    let vehicle = connection.vehicle_if_any(fleet_id, vehicle_id).await;
     Ok((response, vehicle))
 }
 

@@ -127,11 +127,11 @@ impl ForecastService for ForecastApi {
                 Ok((fleet_or_default(store, &fleet_id)?, materialise(&data, &parts, now)))
             })
             .await?;
-        if record.parts.iter().all(|p| p.due_quantile_days.is_none()) {
+        if record.parts.iter().all(|p| p.outlook.due.is_none()) {
             let reasons: Vec<String> = record
                 .parts
                 .iter()
-                .flat_map(|p| p.notes.iter().map(move |n| format!("axle {} {:?}: {n}", p.axle_index, p.component)))
+                .flat_map(|p| p.outlook.notes.iter().map(move |n| format!("axle {} {:?}: {n}", p.axle_index, p.component)))
                 .collect();
             return Err(ServiceError::FailedPrecondition(format!(
                 "no part of vehicle '{}' can be forecast yet: {}",

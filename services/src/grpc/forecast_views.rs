@@ -75,12 +75,13 @@ fn z(probability: f64) -> f64 {
 /// `PartForecast` of a materialised part at `level`. `thickness_level` is the level its
 /// thickness band was computed at; the band is rescaled to `level` as a normal band.
 pub fn part_forecast(part: &StoredPart, level: f64, thickness_level: f64, zone: Tz) -> pb::PartForecast {
+    let o = &part.outlook;
     let (low, high) = if (level - thickness_level).abs() < 1e-12 {
-        (part.current_thickness_low_mm, part.current_thickness_high_mm)
+        (o.current_thickness_low_mm, o.current_thickness_high_mm)
     } else {
         let scale = z(0.5 + level / 2.0) / z(0.5 + thickness_level / 2.0);
-        let mid = part.current_thickness_mm;
-        (mid - (mid - part.current_thickness_low_mm) * scale, mid + (part.current_thickness_high_mm - mid) * scale)
+        let mid = o.current_thickness_mm;
+        ((mid - (mid - o.current_thickness_low_mm) * scale).max(0.0), mid + (o.current_thickness_high_mm - mid) * scale)
     };
     let band = part.due_band_days(level);
     let at = |pick: fn((f64, f64, f64)) -> f64| band.map(|b| days_to_ms(pick(b)));
@@ -89,22 +90,22 @@ pub fn part_forecast(part: &StoredPart, level: f64, thickness_level: f64, zone: 
     pb::PartForecast {
         axle_index: part.axle_index,
         component: component_to_wire(part.component) as i32,
-        current_thickness_mm: part.current_thickness_mm,
+        current_thickness_mm: o.current_thickness_mm,
         current_thickness_low_mm: low,
         current_thickness_high_mm: high,
-        min_thickness_mm: part.min_thickness_mm,
-        wear_rate_mm_per_mj: part.wear_rate_mm_per_mj,
-        wear_rate_stderr: part.wear_rate_stderr_mm_per_mj,
-        daily_energy_mj: part.daily_energy_mj,
+        min_thickness_mm: o.min_thickness_mm,
+        wear_rate_mm_per_mj: o.wear_rate_mm_per_mj,
+        wear_rate_stderr: o.wear_rate_stderr_mm_per_mj,
+        daily_energy_mj: o.daily_energy_mj,
         due_earliest: earliest.map(ms_timestamp),
         due_median: median.map(ms_timestamp),
         due_latest: latest.map(ms_timestamp),
         due_earliest_date: date(earliest),
         due_median_date: date(median),
         due_latest_date: date(latest),
-        basis: basis_to_wire(part.basis) as i32,
-        inspections_used: part.inspections_used,
-        notes: part.notes.clone(),
+        basis: basis_to_wire(o.basis) as i32,
+        inspections_used: o.inspections_used,
+        notes: o.notes.clone(),
         band_level: level,
     }
 }

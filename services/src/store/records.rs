@@ -2,7 +2,7 @@
 //! Unix epoch (`_ms`), days are whole UTC days since the epoch, energies are J unless named `_mj`.
 
 use brakeledger_models::domain::{Component, VehicleSpec};
-use brakeledger_models::{ForecastBasis, WearFit, WearPrior};
+use brakeledger_models::{PartOutlook, WearFit, WearPrior};
 use serde::{Deserialize, Serialize};
 
 /// Milliseconds in a day.
@@ -191,7 +191,8 @@ impl BandLevel {
     }
 }
 
-/// The materialised forecast of one part.
+/// The materialised forecast of one part: the models' outlook (its trajectory left out: charts
+/// compute it afresh) with the due quantiles whole, so any band level can be read.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct StoredPart {
     /// Axle, 1 = front-most.
@@ -200,28 +201,8 @@ pub struct StoredPart {
     pub component: Component,
     /// The vehicle's own fit, when one could be made (kept for fleet pooling).
     pub own_fit: Option<WearFit>,
-    /// Estimated thickness now (median), mm.
-    pub current_thickness_mm: f64,
-    /// Lower band of the thickness now, mm (at 80 %).
-    pub current_thickness_low_mm: f64,
-    /// Upper band of the thickness now, mm (at 80 %).
-    pub current_thickness_high_mm: f64,
-    /// Minimum thickness, mm.
-    pub min_thickness_mm: f64,
-    /// Wear rate used, mm/MJ.
-    pub wear_rate_mm_per_mj: f64,
-    /// Its standard error, mm/MJ.
-    pub wear_rate_stderr_mm_per_mj: f64,
-    /// Expected friction energy per day at this brake, MJ/day.
-    pub daily_energy_mj: f64,
-    /// Due day quantiles (days since epoch) at probabilities 0.01..=0.99; `None` when no date.
-    pub due_quantile_days: Option<Vec<f64>>,
-    /// Basis of the wear rate.
-    pub basis: ForecastBasis,
-    /// Inspections the rate rests on.
-    pub inspections_used: u32,
-    /// Notes for planners.
-    pub notes: Vec<String>,
+    /// The outlook, thickness bands at 80 %.
+    pub outlook: PartOutlook,
 }
 
 /// The materialised forecasts of one vehicle.
@@ -292,27 +273,10 @@ impl FleetPriors {
     }
 }
 
-/// Probability levels of the stored due quantiles: 0.01, 0.02, ..., 0.99.
-pub const QUANTILE_COUNT: usize = 99;
-
-/// Interpolates stored due quantiles (days since epoch at 0.01..=0.99) at `probability`.
-pub fn quantile_at(quantile_days: &[f64], probability: f64) -> Option<f64> {
-    if quantile_days.len() != QUANTILE_COUNT {
-        return None;
-    }
-    let position = (probability.clamp(0.01, 0.99) * 100.0) - 1.0;
-    let lower = position.floor() as usize;
-    let upper = (lower + 1).min(QUANTILE_COUNT - 1);
-    let weight = position - lower as f64;
-    Some(quantile_days[lower] * (1.0 - weight) + quantile_days[upper] * weight)
-}
-
 impl StoredPart {
     /// (earliest, median, latest) due day at a band level, days since epoch.
     pub fn due_band_days(&self, level: f64) -> Option<(f64, f64, f64)> {
-        let q = self.due_quantile_days.as_ref()?;
-        let tail = (1.0 - level) / 2.0;
-        Some((quantile_at(q, tail)?, quantile_at(q, 0.5)?, quantile_at(q, 1.0 - tail)?))
+        self.outlook.due.as_ref().map(|due| due.band(level))
     }
 
     /// Lower end of the due band at `level`, ms.
