@@ -187,3 +187,40 @@ async fn forecast_due_plan_and_chart_answer_from_the_server() {
     assert!(format!("{error:#}").contains("NotFound"), "{error:#}");
     server.stop().await;
 }
+
+/// The number after `label` in `text` (the first number on the rest of that line).
+fn number_after(text: &str, label: &str) -> f64 {
+    let rest = text.split_once(label).unwrap_or_else(|| panic!("no '{label}' in:\n{text}")).1;
+    rest.split(|c: char| !(c.is_ascii_digit() || c == '.'))
+        .find(|w| !w.is_empty())
+        .and_then(|w| w.parse().ok())
+        .unwrap_or_else(|| panic!("no number after '{label}'"))
+}
+
+/// The demo end to end (its own in-process server, every record through gRPC), on a smaller
+/// invented fleet: its accuracy figures must meet the calibration test's bounds.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn the_demo_runs_and_its_forecasts_meet_the_calibration_bounds() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let chart = dir.path().join("chart.svg");
+    let chart_arg = chart.to_string_lossy().into_owned();
+    let cli = Cli::try_parse_from(["brakeledger", "demo", "--vehicles", "150", "--seed", "7", "--chart", &chart_arg]).expect("flags");
+    let mut out = Vec::new();
+    run_with_output(cli, &mut out).await.expect("demo");
+    let text = String::from_utf8(out).expect("utf-8");
+    for heading in ["== Parts due in the next 60 days ==", "== One vehicle's forecast ==", "== Workshop plan for the next two weeks ==", "== How close the forecasts came =="] {
+        assert!(text.contains(heading), "missing {heading}:\n{text}");
+    }
+    assert!(text.trim_end().ends_with(brakeledger::SAFETY_CAUTION));
+    let scored = number_after(&text, "forecasts read over gRPC; ");
+    assert!(scored >= 500.0, "at least 500 parts scored, got {scored}");
+    let coverage = number_after(&text, "inside the 80 % band for ");
+    assert!((75.0..=85.0).contains(&coverage), "80 % band coverage {coverage} %");
+    let ours = number_after(&text, "brakeledger median");
+    let mileage = number_after(&text, "fixed mileage interval");
+    let odometer = number_after(&text, "odometer straight line");
+    assert!(ours <= 0.5 * mileage, "median error {ours} d vs mileage interval {mileage} d");
+    assert!(ours <= 2.0 / 3.0 * odometer, "median error {ours} d vs odometer line {odometer} d");
+    let svg = std::fs::read_to_string(&chart).expect("chart written");
+    assert!(svg.starts_with("<svg") || svg.contains("<svg"), "an SVG file");
+}
