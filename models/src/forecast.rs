@@ -410,7 +410,9 @@ pub fn forecast_part(
         .map(|p| p.thickness_mm);
 
     let Some(rate) = rate else {
-        notes.push("no wear rate: no due date".into());
+        if notes.is_empty() {
+            notes.push("no wear rate: no due date".into());
+        }
         outlook.notes = notes;
         if let Some(t) = measured_below {
             outlook.current_thickness_mm = t;

@@ -101,6 +101,18 @@ pub async fn run(cli: Cli) -> anyhow::Result<()> {
     run_with_output(cli, &mut std::io::stdout()).await
 }
 
+/// Reports the outcome of a command the way a command-line user expects: the error and its
+/// causes on one line of standard error (never a backtrace), exit status 1.
+pub fn exit_code(outcome: anyhow::Result<()>) -> std::process::ExitCode {
+    match outcome {
+        Ok(()) => std::process::ExitCode::SUCCESS,
+        Err(error) => {
+            eprintln!("error: {error:#}");
+            std::process::ExitCode::FAILURE
+        }
+    }
+}
+
 /// Runs a parsed command line, writing the answers (tables, JSON, reports) to `out`; progress
 /// and logs still go to stderr. Tests pass a buffer.
 pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<()> {

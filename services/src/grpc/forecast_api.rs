@@ -4,7 +4,7 @@
 use std::collections::HashMap;
 use std::pin::Pin;
 
-use brakeledger_models::domain::Component;
+use brakeledger_models::domain::{BrakeType, Component};
 use brakeledger_models::visit_plan::{plan_visits, PlanLimits, PlanPart};
 use brakeledger_proto::v1 as pb;
 use pb::forecast_service_server::ForecastService;
@@ -120,23 +120,28 @@ impl ForecastService for ForecastApi {
         let config = self.state.forecast.clone();
         let now = now_ms();
         let (fleet_id, vehicle_id) = (r.fleet_id.clone(), r.vehicle_id.clone());
-        let (fleet, record) = self
+        let (fleet, record, spec) = self
             .state
             .blocking(move |store| {
                 let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
-                Ok((fleet_or_default(store, &fleet_id)?, materialise(&data, &parts, now)))
+                Ok((fleet_or_default(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
             })
             .await?;
         if record.parts.iter().all(|p| p.outlook.due.is_none()) {
+            // One clause per part, named as the trade names it: "axle 1 pad: ...".
             let reasons: Vec<String> = record
                 .parts
                 .iter()
-                .flat_map(|p| p.outlook.notes.iter().map(move |n| format!("axle {} {:?}: {n}", p.axle_index, p.component)))
+                .map(|p| {
+                    let brake = spec.axles.get(p.axle_index as usize - 1).map_or(BrakeType::Disc, |a| a.brake_type);
+                    let notes = if p.outlook.notes.is_empty() { "no data".to_owned() } else { p.outlook.notes.join(", ") };
+                    format!("axle {} {}: {notes}", p.axle_index, p.component.part_name(brake))
+                })
                 .collect();
             return Err(ServiceError::FailedPrecondition(format!(
-                "no part of vehicle '{}' can be forecast yet: {}",
+                "no part of vehicle '{}' can be forecast yet. {}",
                 r.vehicle_id,
-                if reasons.is_empty() { "no data".to_owned() } else { reasons.join("; ") }
+                reasons.join("; ")
             ))
             .into());
         }
