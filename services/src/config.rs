@@ -1,7 +1,7 @@
 //! Typed settings, layered once at start-up: built-in defaults, then an optional TOML file,
-//! then environment variables (`BRAKELEDGER_LISTEN`, `BRAKELEDGER_DATA`, `BRAKELEDGER_LOG`),
-//! then command-line flags. Libraries never read the environment; `main` does, through
-//! [`Settings::load`].
+//! then environment variables (`BRAKELEDGER_LISTEN`, `BRAKELEDGER_DATA`, `BRAKELEDGER_LOG`,
+//! `BRAKELEDGER_TOKENS`), then command-line flags. Libraries never read the environment; the
+//! `serve` subcommand does, through [`Settings::load`].
 
 use std::net::SocketAddr;
 use std::path::{Path, PathBuf};
@@ -20,6 +20,8 @@ pub struct Settings {
     pub log_format: LogFormat,
     /// Log filter in `tracing` env-filter syntax, e.g. "info,brakeledger=debug".
     pub log_filter: String,
+    /// Bearer tokens accepted from callers; empty means no token is required (see `auth`).
+    pub auth_tokens: Vec<String>,
     /// Forecast settings.
     pub forecast: ForecastConfig,
 }
@@ -61,6 +63,7 @@ impl Default for Settings {
             data_dir: PathBuf::from("brakeledger-data"),
             log_format: LogFormat::Text,
             log_filter: "info".to_owned(),
+            auth_tokens: Vec::new(),
             forecast: ForecastConfig::default(),
         }
     }
@@ -116,6 +119,9 @@ impl Settings {
         if let Some(filter) = env("BRAKELEDGER_LOG") {
             settings.log_filter = filter;
         }
+        if let Some(tokens) = env("BRAKELEDGER_TOKENS") {
+            settings.auth_tokens = tokens.split(',').map(|t| t.trim().to_owned()).filter(|t| !t.is_empty()).collect();
+        }
         Ok(settings)
     }
 }
@@ -134,6 +140,15 @@ mod tests {
         assert_eq!(settings.data_dir, PathBuf::from("/srv/y"));
         assert_eq!(settings.forecast.monte_carlo_draws, 500);
         assert_eq!(settings.forecast.energy_window_days, 120);
+    }
+
+    #[test]
+    fn the_example_config_in_deploy_parses() {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../deploy/brakeledger.toml");
+        let settings = Settings::load(Some(&path), |name| (name == "BRAKELEDGER_TOKENS").then(|| "a, b,,".to_owned())).unwrap();
+        assert_eq!(settings.data_dir, PathBuf::from("/var/lib/brakeledger"));
+        assert_eq!(settings.log_format, LogFormat::Json);
+        assert_eq!(settings.auth_tokens, vec!["a".to_owned(), "b".to_owned()]);
     }
 
     #[test]

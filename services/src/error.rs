@@ -25,6 +25,9 @@ pub enum ServiceError {
     /// The storage engine failed.
     #[error("storage: {0}")]
     Storage(#[from] StoreError),
+    /// The call carries no accepted bearer token.
+    #[error("{0}")]
+    Unauthenticated(String),
     /// A background computation failed or was cancelled.
     #[error("internal: {0}")]
     Internal(String),
@@ -63,6 +66,7 @@ impl ServiceError {
             }
             ServiceError::NotFound(_) => Status::not_found(message),
             ServiceError::FailedPrecondition(_) => Status::failed_precondition(message),
+            ServiceError::Unauthenticated(_) => Status::unauthenticated(message),
             ServiceError::Storage(StoreError::NewerSchema { .. }) => Status::failed_precondition(message),
             ServiceError::Storage(StoreError::Engine(_))
             | ServiceError::Storage(StoreError::Corrupt(_))

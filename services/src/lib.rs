@@ -4,6 +4,7 @@
 //! the wire contract in `brakeledger-proto`.
 //!
 //! # Layout
+//! - [`auth`]: bearer-token access to the brakeledger services.
 //! - [`config`]: typed settings (defaults, TOML file, environment).
 //! - [`store`]: the [`store::Store`] trait, its records and the sled engine.
 //! - [`convert`]: wire ⇄ domain conversions with field-level validation.
@@ -19,6 +20,7 @@
 
 #![cfg_attr(test, allow(clippy::unwrap_used))]
 
+pub mod auth;
 pub mod cli;
 pub mod config;
 pub mod convert;

@@ -54,15 +54,15 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     };
 
     let address = listener.local_addr().ok();
-    tracing::info!(?address, "serving brakeledger.v1");
+    tracing::info!(?address, token_required = state.access.requires_token(), "serving brakeledger.v1");
     let result = tonic::transport::Server::builder()
         .add_service(health_service)
         .add_service(reflection_v1)
         .add_service(reflection_v1alpha)
-        .add_service(FleetServiceServer::new(FleetApi::new(state.clone())))
-        .add_service(TelemetryServiceServer::new(TelemetryApi::new(state.clone())))
-        .add_service(MaintenanceServiceServer::new(MaintenanceApi::new(state.clone())))
-        .add_service(ForecastServiceServer::new(ForecastApi::new(state.clone())))
+        .add_service(FleetServiceServer::with_interceptor(FleetApi::new(state.clone()), state.access.clone()))
+        .add_service(TelemetryServiceServer::with_interceptor(TelemetryApi::new(state.clone()), state.access.clone()))
+        .add_service(MaintenanceServiceServer::with_interceptor(MaintenanceApi::new(state.clone()), state.access.clone()))
+        .add_service(ForecastServiceServer::with_interceptor(ForecastApi::new(state.clone()), state.access.clone()))
         .serve_with_incoming_shutdown(
             // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
             tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),

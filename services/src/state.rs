@@ -4,6 +4,7 @@ use std::sync::Arc;
 
 use tokio::sync::{broadcast, watch, Notify};
 
+use crate::auth::AccessPolicy;
 use crate::config::ForecastConfig;
 use crate::error::{ServiceError, ServiceResult};
 use crate::store::{Store, VehicleForecasts, VehicleRecord};
@@ -28,6 +29,8 @@ pub struct AppState {
     pub wake_forecaster: Arc<Notify>,
     /// Forecast changes, published by the materialiser.
     pub changes: broadcast::Sender<ForecastChange>,
+    /// Who may call the brakeledger services.
+    pub access: AccessPolicy,
     /// Turns true when the server begins to shut down; long-lived streams and background
     /// tasks end when they see it.
     pub stopping: Arc<watch::Sender<bool>>,
@@ -38,7 +41,20 @@ impl AppState {
     pub fn new(store: Arc<dyn Store>, forecast: ForecastConfig) -> Self {
         let (changes, _) = broadcast::channel(4096);
         let (stopping, _) = watch::channel(false);
-        Self { store, forecast, wake_forecaster: Arc::new(Notify::new()), changes, stopping: Arc::new(stopping) }
+        Self {
+            store,
+            forecast,
+            wake_forecaster: Arc::new(Notify::new()),
+            changes,
+            access: AccessPolicy::open(),
+            stopping: Arc::new(stopping),
+        }
+    }
+
+    /// The same state with an access policy.
+    pub fn with_access(mut self, access: AccessPolicy) -> Self {
+        self.access = access;
+        self
     }
 
     /// Runs blocking store work off the async runtime.

@@ -7,6 +7,7 @@ use std::path::Path;
 use std::sync::Arc;
 use std::time::Duration;
 
+use brakeledger::auth::AccessPolicy;
 use brakeledger::config::ForecastConfig;
 use brakeledger::state::AppState;
 use brakeledger::store::sled_store::SledStore;
@@ -36,12 +37,26 @@ impl TestServer {
         server
     }
 
+    /// Starts a server with a fresh temporary data directory that requires one of `tokens`.
+    pub async fn start_with_tokens(tokens: &[&str]) -> Self {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let access = AccessPolicy::with_tokens(tokens.iter().map(|t| (*t).to_owned()));
+        let mut server = Self::start_with(dir.path(), fast_forecasts(), access).await;
+        server.data_dir = Some(dir);
+        server
+    }
+
     /// Starts a server on an existing data directory.
     pub async fn start_on(dir: &Path, forecast: ForecastConfig) -> Self {
+        Self::start_with(dir, forecast, AccessPolicy::open()).await
+    }
+
+    /// Starts a server on an existing data directory with an access policy.
+    pub async fn start_with(dir: &Path, forecast: ForecastConfig, access: AccessPolicy) -> Self {
         let store = SledStore::open(dir).expect("open store");
         let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
         let addr = listener.local_addr().expect("addr");
-        let state = AppState::new(Arc::new(store), forecast);
+        let state = AppState::new(Arc::new(store), forecast).with_access(access);
         let (stop, stopped) = oneshot::channel::<()>();
         let task = tokio::spawn(async move {
             brakeledger::server::run(listener, state, async {

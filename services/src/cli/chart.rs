@@ -12,7 +12,7 @@ use brakeledger_proto::v1 as pb;
 use chrono::{DateTime, Utc};
 use plotters::prelude::*;
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{from_timestamp, SECONDS_PER_DAY};
 use crate::cli::forecast_view::parse_band_level;
 use crate::cli::parts::{brake_type_of, part_name, PartArg};
@@ -62,7 +62,7 @@ pub struct ChartData {
 const SIZE: (u32, u32) = (1000, 620);
 
 /// Runs `chart`.
-pub async fn chart(server: &str, args: &ChartArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn chart(server: &ServerTarget, args: &ChartArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let mut connection = Connection::open(server).await?;
     let path = match &args.out {
         Some(p) => p.clone(),

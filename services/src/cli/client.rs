@@ -4,25 +4,80 @@
 
 use anyhow::Context;
 use brakeledger_proto::v1 as pb;
+use tonic::metadata::{Ascii, MetadataValue};
+use tonic::service::interceptor::InterceptedService;
+use tonic::service::Interceptor;
 use tonic::transport::{Channel, Endpoint};
 use tonic_types::StatusExt;
 
+/// Where client subcommands connect, and the bearer token they present (if any).
+#[derive(Clone, PartialEq, Eq)]
+pub struct ServerTarget {
+    /// Server URL, e.g. `http://127.0.0.1:50051`.
+    pub url: String,
+    /// Bearer token for servers that require one.
+    pub token: Option<String>,
+}
+
+impl std::fmt::Debug for ServerTarget {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        // Never print the token itself.
+        f.debug_struct("ServerTarget").field("url", &self.url).field("token", &self.token.as_ref().map(|_| "…")).finish()
+    }
+}
+
+impl ServerTarget {
+    /// A server that needs no token.
+    pub fn open(url: impl Into<String>) -> Self {
+        Self { url: url.into(), token: None }
+    }
+}
+
+/// Adds `authorization: Bearer <token>` to every call when a token is set.
+#[derive(Clone, Default)]
+pub struct BearerToken(Option<MetadataValue<Ascii>>);
+
+impl Interceptor for BearerToken {
+    fn call(&mut self, mut request: tonic::Request<()>) -> Result<tonic::Request<()>, tonic::Status> {
+        if let Some(value) = &self.0 {
+            request.metadata_mut().insert("authorization", value.clone());
+        }
+        Ok(request)
+    }
+}
+
+impl std::fmt::Debug for Connection {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Connection { .. }")
+    }
+}
+
+/// A channel whose calls carry the bearer token.
+pub type AuthChannel = InterceptedService<Channel, BearerToken>;
+
 /// Clients of every brakeledger service over one channel.
-#[derive(Debug, Clone)]
+#[derive(Clone)]
 pub struct Connection {
     /// FleetService.
-    pub fleet: pb::fleet_service_client::FleetServiceClient<Channel>,
+    pub fleet: pb::fleet_service_client::FleetServiceClient<AuthChannel>,
     /// TelemetryService.
-    pub telemetry: pb::telemetry_service_client::TelemetryServiceClient<Channel>,
+    pub telemetry: pb::telemetry_service_client::TelemetryServiceClient<AuthChannel>,
     /// MaintenanceService.
-    pub maintenance: pb::maintenance_service_client::MaintenanceServiceClient<Channel>,
+    pub maintenance: pb::maintenance_service_client::MaintenanceServiceClient<AuthChannel>,
     /// ForecastService.
-    pub forecast: pb::forecast_service_client::ForecastServiceClient<Channel>,
+    pub forecast: pb::forecast_service_client::ForecastServiceClient<AuthChannel>,
 }
 
 impl Connection {
-    /// Connects to `server` (a URL such as `http://127.0.0.1:50051`).
-    pub async fn open(server: &str) -> anyhow::Result<Self> {
+    /// Connects to `target` (a URL such as `http://127.0.0.1:50051`, and a token if set).
+    pub async fn open(target: &ServerTarget) -> anyhow::Result<Self> {
+        let server = target.url.as_str();
+        let token = match &target.token {
+            Some(token) => Some(
+                format!("Bearer {token}").parse::<MetadataValue<Ascii>>().context("the token has characters a header cannot carry")?,
+            ),
+            None => None,
+        };
         let endpoint = Endpoint::from_shared(server.to_owned())
             .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051)"))?
             .connect_timeout(std::time::Duration::from_secs(10));
@@ -30,7 +85,7 @@ impl Connection {
             .connect()
             .await
             .with_context(|| format!("cannot connect to the brakeledger server at {server} (is it running? see --server)"))?;
-        Ok(Self::over(channel))
+        Ok(Self::over(channel, BearerToken(token)))
     }
 
     /// The vehicle, when it can be read (used only to name parts: pad or lining, rotor or
@@ -44,12 +99,12 @@ impl Connection {
     }
 
     /// Clients over an existing channel.
-    pub fn over(channel: Channel) -> Self {
+    pub fn over(channel: Channel, token: BearerToken) -> Self {
         Self {
-            fleet: pb::fleet_service_client::FleetServiceClient::new(channel.clone()),
-            telemetry: pb::telemetry_service_client::TelemetryServiceClient::new(channel.clone()),
-            maintenance: pb::maintenance_service_client::MaintenanceServiceClient::new(channel.clone()),
-            forecast: pb::forecast_service_client::ForecastServiceClient::new(channel),
+            fleet: pb::fleet_service_client::FleetServiceClient::with_interceptor(channel.clone(), token.clone()),
+            telemetry: pb::telemetry_service_client::TelemetryServiceClient::with_interceptor(channel.clone(), token.clone()),
+            maintenance: pb::maintenance_service_client::MaintenanceServiceClient::with_interceptor(channel.clone(), token.clone()),
+            forecast: pb::forecast_service_client::ForecastServiceClient::with_interceptor(channel, token),
         }
     }
 
@@ -118,7 +173,7 @@ mod tests {
 
     #[tokio::test]
     async fn a_bad_server_url_is_a_clear_error() {
-        let error = Connection::open("not a url").await.expect_err("must fail");
+        let error = Connection::open(&ServerTarget::open("not a url")).await.expect_err("must fail");
         assert!(format!("{error:#}").contains("'not a url' is not a server URL"), "{error:#}");
     }
 }

@@ -20,7 +20,7 @@ use chrono::Utc;
 use tokio::net::TcpListener;
 
 use crate::cli::chart::{fetch_chart, write_chart};
-use crate::cli::client::Connection;
+use crate::cli::client::{Connection, ServerTarget};
 use crate::cli::dates::{today_in, SECONDS_PER_DAY};
 use crate::cli::demo_accuracy::{render_accuracy, score_fleet};
 use crate::cli::demo_feed::{feed_fleet, wait_for_forecasts};
@@ -155,7 +155,7 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
 async fn connect(url: &str) -> anyhow::Result<Connection> {
     let mut last = None;
     for _ in 0..100 {
-        match Connection::open(url).await {
+        match Connection::open(&ServerTarget::open(url)).await {
             Ok(c) => return Ok(c),
             Err(e) => last = Some(e),
         }

@@ -10,7 +10,7 @@ use brakeledger_proto::v1 as pb;
 use chrono::{DateTime, Utc};
 use serde::Serialize;
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{from_timestamp, parse_date_or_instant, to_timestamp};
 use crate::cli::parts::{basis_name, brake_type_of, part_name, PartArg};
 use crate::cli::table::{number, with_uncertainty, Align, Table};
@@ -223,7 +223,7 @@ fn thickness_cell(part: &pb::PartForecast) -> String {
 }
 
 /// Runs `forecast`.
-pub async fn forecast(server: &str, args: &ForecastArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn forecast(server: &ServerTarget, args: &ForecastArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let mut connection = Connection::open(server).await?;
     let (response, vehicle) = fetch_forecast(&mut connection, &args.fleet, &args.vehicle, args.band_level).await?;
     if args.json {
@@ -377,7 +377,7 @@ pub async fn fetch_due(
 pub type VehicleIndex = HashMap<String, pb::Vehicle>;
 
 /// Runs `due`.
-pub async fn due(server: &str, args: &DueArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn due(server: &ServerTarget, args: &DueArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let mut connection = Connection::open(server).await?;
     let zone = connection.fleet_time_zone(&args.fleet).await?;
     let due_before = match &args.before {

@@ -7,7 +7,7 @@ use std::io::Write;
 use brakeledger_proto::v1 as pb;
 use chrono::{DateTime, Utc};
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{parse_instant, to_timestamp};
 use crate::cli::parts::PartArg;
 
@@ -88,7 +88,7 @@ pub struct ReplacementArgs {
 }
 
 /// Runs `record-inspection`.
-pub async fn record_inspection(server: &str, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let when = args.part.when();
     let request = pb::RecordInspectionRequest {
         fleet_id: args.part.fleet.clone(),
@@ -121,7 +121,7 @@ pub async fn record_inspection(server: &str, args: &InspectionArgs, out: &mut im
 }
 
 /// Runs `record-replacement`.
-pub async fn record_replacement(server: &str, args: &ReplacementArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn record_replacement(server: &ServerTarget, args: &ReplacementArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let when = args.part.when();
     let request = pb::RecordReplacementRequest {
         fleet_id: args.part.fleet.clone(),

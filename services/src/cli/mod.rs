@@ -52,6 +52,9 @@ pub struct Cli {
     /// Server that client subcommands talk to.
     #[arg(long, global = true, env = "BRAKELEDGER_SERVER", default_value = DEFAULT_SERVER)]
     pub server: String,
+    /// Bearer token for a server that requires one (sent as `authorization: Bearer <token>`).
+    #[arg(long, global = true, env = "BRAKELEDGER_TOKEN", hide_env_values = true)]
+    pub token: Option<String>,
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
@@ -116,7 +119,7 @@ pub fn exit_code(outcome: anyhow::Result<()>) -> std::process::ExitCode {
 /// Runs a parsed command line, writing the answers (tables, JSON, reports) to `out`; progress
 /// and logs still go to stderr. Tests pass a buffer.
 pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<()> {
-    let server = cli.server;
+    let server = client::ServerTarget { url: cli.server, token: cli.token };
     let out = &mut *out;
     match cli.command {
         Command::Serve(args) => serve::serve(args).await,

@@ -8,7 +8,7 @@ use brakeledger_proto::v1 as pb;
 use chrono::NaiveDate;
 use serde::Serialize;
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{start_of_day, to_timestamp, today_in};
 use crate::cli::forecast_view::{parse_band_level, VehicleIndex};
 use crate::cli::parts::{brake_type_of, part_name};
@@ -106,7 +106,7 @@ pub async fn fetch_plan(
 }
 
 /// Runs `plan`.
-pub async fn plan(server: &str, args: &PlanArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn plan(server: &ServerTarget, args: &PlanArgs, out: &mut impl Write) -> anyhow::Result<()> {
     if !(args.hours_per_day.is_finite() && args.hours_per_day > 0.0) {
         anyhow::bail!("--hours-per-day must be a number of hours greater than 0");
     }

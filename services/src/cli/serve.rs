@@ -5,6 +5,7 @@ use std::sync::Arc;
 use anyhow::Context;
 use tokio::net::TcpListener;
 
+use crate::auth::AccessPolicy;
 use crate::cli::ServeArgs;
 use crate::config::{LogFormat, Settings};
 use crate::server;
@@ -65,7 +66,11 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     let listener = TcpListener::bind(settings.listen).await.with_context(|| format!("listening on {}", settings.listen))?;
     // Tests and scripts read this line to learn the port when listening on :0.
     println!("brakeledger listening on {}", listener.local_addr()?);
-    let state = AppState::new(Arc::new(store), settings.forecast.clone());
+    let access = AccessPolicy::with_tokens(settings.auth_tokens.clone());
+    if !access.requires_token() && !settings.listen.ip().is_loopback() {
+        tracing::warn!(listen = %settings.listen, "listening beyond loopback with no auth_tokens: any caller can read and write");
+    }
+    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access);
     server::run(listener, state, shutdown_signal()).await?;
     Ok(())
 }

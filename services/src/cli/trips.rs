@@ -11,7 +11,7 @@ use futures::StreamExt;
 use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::trip_file::{read_trips, TripFormat, TripLine};
 
 /// Longer description of `push-trips`, with the file columns.
@@ -80,7 +80,7 @@ pub struct RejectedTrip {
 }
 
 /// Runs `push-trips`.
-pub async fn push_trips(server: &str, args: &PushTripsArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn push_trips(server: &ServerTarget, args: &PushTripsArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let format = match args.format.or_else(|| TripFormat::from_path(&args.file)) {
         Some(f) => f,
         None => anyhow::bail!("cannot tell the format of {} from its extension; give --format csv or --format jsonl", args.file.display()),

@@ -9,7 +9,7 @@ use anyhow::Context;
 use brakeledger_proto::v1 as pb;
 use serde::{Deserialize, Serialize};
 
-use crate::cli::client::{explain, Connection};
+use crate::cli::client::{explain, Connection, ServerTarget};
 
 /// Longer description of `add-vehicle`.
 pub const ADD_VEHICLE_LONG_ABOUT: &str = "\
@@ -177,7 +177,7 @@ pub fn parse_vehicles(path: &Path, text: &str) -> anyhow::Result<Vec<VehicleEntr
 }
 
 /// Runs `add-vehicle`.
-pub async fn add_vehicle(server: &str, args: &AddVehicleArgs, out: &mut impl Write) -> anyhow::Result<()> {
+pub async fn add_vehicle(server: &ServerTarget, args: &AddVehicleArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let text = std::fs::read_to_string(&args.file).with_context(|| format!("reading {}", args.file.display()))?;
     let entries = parse_vehicles(&args.file, &text).with_context(|| format!("reading vehicles from {}", args.file.display()))?;
     let vehicles = entries

@@ -96,24 +96,41 @@ async fn a_graceful_stop_lets_an_open_stream_finish_and_report() {
     let (sender, receiver) = tokio::sync::mpsc::channel::<pb::TripSummary>(16);
     let mut telemetry = server.telemetry();
     let call = tokio::spawn(async move { telemetry.stream_trips(tokio_stream::wrappers::ReceiverStream::new(receiver)).await });
-    for n in 0..100 {
+    // A first full chunk (2,000 trips) is stored while the stream stays open: proof that the
+    // server is handling the stream before the stop begins.
+    for n in 0..2500 {
         sender.send(trip("north", "bus-1", n, end)).await.expect("send");
     }
+    let mut stored = 0;
+    for _ in 0..600 {
+        stored = server
+            .fleet()
+            .get_vehicle(pb::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "bus-1".into() })
+            .await
+            .expect("get vehicle")
+            .into_inner()
+            .trips_recorded;
+        if stored >= 2000 {
+            break;
+        }
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+    assert!(stored >= 2000, "the first chunk is stored while the stream is open");
     // The stop begins while the stream is open; the rest of the stream still arrives.
     server.begin_stop();
     tokio::time::sleep(Duration::from_millis(100)).await;
-    for n in 100..200 {
+    for n in 2500..3000 {
         sender.send(trip("north", "bus-1", n, end)).await.expect("send");
     }
     drop(sender);
     let report = call.await.expect("join").expect("the open stream completes").into_inner();
-    assert_eq!(report.accepted, 200);
+    assert_eq!(report.accepted, 3000);
     let dir = server.data_dir.take().expect("data dir");
     server.stop().await;
     // Everything reported is in the database when the server has stopped.
     let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("reopen");
     use brakeledger::store::Store;
-    assert_eq!(store.vehicle_totals("north", "bus-1").expect("totals").trips_recorded, 200);
+    assert_eq!(store.vehicle_totals("north", "bus-1").expect("totals").trips_recorded, 3000);
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]

@@ -1,6 +1,7 @@
 //! End-to-end tests: each starts the real server on a loopback port with a temporary data
 //! directory and talks gRPC to it. One binary, one module per topic.
 
+mod auth;
 mod cli;
 mod durability;
 mod forecast;
