@@ -11,7 +11,7 @@
 //! the vehicles of that class are marked stale once more. Own fits do not depend on priors, so
 //! this settles after one extra pass. Stale marks are durable: after a crash the work resumes.
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::sync::Arc;
 use std::time::Duration;
 
@@ -267,23 +267,24 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
     for (fleet_id, old) in &priors_by_fleet {
         let forecasts = store.fleet_forecasts(fleet_id)?;
         let new = pool_priors(&forecasts);
-        let moved: Vec<&GroupPrior> = new
+        // Classes with a group whose prior moved, appeared or disappeared.
+        let changed: BTreeSet<&str> = new
             .groups
             .iter()
             .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
+            .chain(old.groups.iter().filter(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none()))
+            .map(|g| g.vehicle_class.as_str())
             .collect();
-        let vanished = old.groups.iter().any(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none());
-        if moved.is_empty() && !vanished {
+        if changed.is_empty() {
             continue;
         }
         store.put_priors(fleet_id, &new)?;
-        let classes: Vec<&str> = moved.iter().map(|g| g.vehicle_class.as_str()).chain(old.groups.iter().map(|g| g.vehicle_class.as_str()).filter(|_| vanished)).collect();
         let again: Vec<String> = forecasts
             .iter()
-            .filter(|f| classes.contains(&f.vehicle_class.as_str()))
+            .filter(|f| changed.contains(f.vehicle_class.as_str()))
             .map(|f| f.vehicle_id.clone())
             .collect();
-        tracing::debug!(fleet = %fleet_id, groups = moved.len(), vehicles = again.len(), "fleet priors moved; recomputing");
+        tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
         store.mark_stale(fleet_id, &again)?;
     }
     // Cleared last, so that a vehicle re-marked above stays stale and the pending count never
