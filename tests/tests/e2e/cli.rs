@@ -197,14 +197,17 @@ fn number_after(text: &str, label: &str) -> f64 {
         .unwrap_or_else(|| panic!("no number after '{label}'"))
 }
 
-/// The demo end to end (its own in-process server, every record through gRPC), on a smaller
-/// invented fleet: its accuracy figures must meet the calibration test's bounds.
+/// The README's demo end to end, as shipped (300 invented vehicles, seed 2024; its own
+/// in-process server, every record through gRPC): its accuracy figures must meet the
+/// calibration test's bounds. The demo's history ends today, so its figures move a little from
+/// day to day; the same fleet run through the models' pipeline for 70 consecutive cut dates
+/// gave 80.0-83.5 % coverage and an odometer-baseline ratio of at most 0.59.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn the_demo_runs_and_its_forecasts_meet_the_calibration_bounds() {
     let dir = tempfile::tempdir().expect("temp dir");
     let chart = dir.path().join("chart.svg");
     let chart_arg = chart.to_string_lossy().into_owned();
-    let cli = Cli::try_parse_from(["brakeledger", "demo", "--vehicles", "150", "--seed", "7", "--chart", &chart_arg]).expect("flags");
+    let cli = Cli::try_parse_from(["brakeledger", "demo", "--chart", &chart_arg]).expect("flags");
     let mut out = Vec::new();
     run_with_output(cli, &mut out).await.expect("demo");
     let text = String::from_utf8(out).expect("utf-8");
