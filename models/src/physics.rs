@@ -67,7 +67,7 @@ pub struct BrakingVehicle {
 }
 
 /// Energy summary of a trip.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct TripEnergy {
     /// Distance, m.
     pub distance_m: f64,

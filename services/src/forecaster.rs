@@ -25,7 +25,7 @@ use crate::config::ForecastConfig;
 use crate::error::{ServiceError, ServiceResult};
 use crate::state::{AppState, ForecastChange};
 use crate::store::{
-    days_to_ms, DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, StaleMark, Store, StoredPart, VehicleForecasts,
+    DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, StaleMark, Store, StoredPart, VehicleForecasts,
     VehicleRecord, MS_PER_DAY,
 };
 
@@ -341,9 +341,4 @@ pub fn vehicle_forecast_now(store: &dyn Store, fleet_id: &str, vehicle_id: &str,
     let priors = store.get_priors(fleet_id)?.unwrap_or_default();
     let parts = compute_vehicle(&data, &priors, now_ms, &model_settings(config, band_level));
     Ok((data, parts))
-}
-
-/// Due day (days since epoch) to ms.
-pub fn due_ms(days: f64) -> i64 {
-    days_to_ms(days)
 }

@@ -7,7 +7,7 @@ use std::io::{Read, Write};
 use std::path::PathBuf;
 
 use anyhow::Context;
-use brakeledger_models::physics::{summarise_trace, BrakingVehicle, TracePoint};
+use brakeledger_models::physics::{summarise_trace, BrakingVehicle, TracePoint, TripEnergy};
 use chrono::{DateTime, Utc};
 use serde::Serialize;
 
@@ -93,23 +93,14 @@ pub struct SummariseArgs {
     pub pretty: bool,
 }
 
-/// The summary printed without trip identity.
+/// The summary printed without trip identity: the trace's duration and the models' trip energy.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct TraceSummary {
     /// Duration of the trace, s.
     pub duration_s: f64,
-    /// Distance, m.
-    pub distance_m: f64,
-    /// Friction braking energy, J.
-    pub friction_energy_j: f64,
-    /// Friction energy per axle, J, front first.
-    pub axle_energy_j: Vec<f64>,
-    /// Energy taken by regenerative braking, J.
-    pub regen_energy_j: f64,
-    /// Brake applications.
-    pub brake_applications: u32,
-    /// Friction energy of hot stops, J.
-    pub hot_energy_j: f64,
+    /// Distance, energies (J), per-axle split and brake applications.
+    #[serde(flatten)]
+    pub energy: TripEnergy,
 }
 
 /// Reads a speed trace; every bad line is reported with its number.
@@ -247,15 +238,7 @@ pub fn summarise(args: &SummariseArgs, out: &mut impl Write) -> anyhow::Result<(
             to_json(&record, args.pretty)?
         }
         _ => to_json(
-            &TraceSummary {
-                duration_s,
-                distance_m: energy.distance_m,
-                friction_energy_j: energy.friction_energy_j,
-                axle_energy_j: energy.axle_energy_j,
-                regen_energy_j: energy.regen_energy_j,
-                brake_applications: energy.brake_applications,
-                hot_energy_j: energy.hot_energy_j,
-            },
+            &TraceSummary { duration_s, energy },
             args.pretty,
         )?,
     };
