@@ -21,7 +21,11 @@ fn inputs() -> (Vec<PartInput>, f64) {
     let fleet = simulate(&SimConfig { vehicles: 400, history_days: 730, future_days: 1, ..SimConfig::default() });
     let base: Vec<PartInput> =
         fleet.vehicles.iter().flat_map(|v| vehicle_inputs(v, fleet.start_day, fleet.cut_day, 120)).map(|(_, i)| i).collect();
-    let all = base.iter().cycle().take(PARTS).cloned().collect();
+    // Each repetition of the fleet gets its own vehicle ids, so no two copies pool as one vehicle.
+    let all = (0..)
+        .flat_map(|copy| base.iter().map(move |p| PartInput { vehicle_id: format!("{}-copy{copy}", p.vehicle_id), ..p.clone() }))
+        .take(PARTS)
+        .collect();
     (all, fleet.cut_day as f64)
 }
 

@@ -137,6 +137,7 @@ pub fn vehicle_inputs(vehicle: &SimVehicle, start_day: i64, cut_day: i64, window
             );
             let window = window_days.min(energy.len());
             let input = PartInput {
+                vehicle_id: vehicle.vehicle_id.clone(),
                 group: GroupKey { vehicle_class: vehicle.spec.vehicle_class.clone(), axle_index: axle.axle_index, component },
                 history,
                 daily_energy_mj: energy[energy.len() - window..].to_vec(),

@@ -27,6 +27,9 @@ pub struct GroupKey {
 /// Everything needed to forecast one part.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PartInput {
+    /// The vehicle the part belongs to (unique within the inputs of one call): parts of one
+    /// vehicle and axle are modelled together (a rotor borrows from its own pad).
+    pub vehicle_id: String,
     /// Pooling group.
     pub group: GroupKey,
     /// The part's history.
