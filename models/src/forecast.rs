@@ -192,6 +192,9 @@ pub struct PartOutlook {
     pub daily_energy_mj: f64,
     /// Due-day distribution; `None` when no date can be given (reason in `notes`).
     pub due: Option<DueDistribution>,
+    /// The part is measured or estimated at or below its minimum: every quantile of `due` is
+    /// today, whatever the wear rate or the recent energy.
+    pub due_now: bool,
     /// What the wear rate rests on.
     pub basis: ForecastBasis,
     /// Inspections behind the wear rate.
@@ -389,6 +392,7 @@ pub fn forecast_part(
         wear_rate_stderr_mm_per_mj: rate.as_ref().map_or(f64::NAN, |r| r.variance.max(0.0).sqrt()),
         daily_energy_mj: energy.map_or(0.0, |e| e.mean_mj_per_day),
         due: None,
+        due_now: false,
         basis: rate.as_ref().map_or(ForecastBasis::FleetPrior, |r| r.basis),
         inspections_used: rate.as_ref().map_or(0, |r| r.inspections),
         notes: Vec::new(),
@@ -410,13 +414,16 @@ pub fn forecast_part(
         .map(|p| p.thickness_mm);
 
     let Some(rate) = rate else {
+        if let Some(t) = measured_below {
+            outlook.current_thickness_mm = t;
+            outlook.current_thickness_low_mm = t;
+            outlook.current_thickness_high_mm = t;
+            return due_now(outlook, notes, today_day, format!("measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now", history.min_thickness_mm));
+        }
         if notes.is_empty() {
             notes.push("no wear rate: no due date".into());
         }
         outlook.notes = notes;
-        if let Some(t) = measured_below {
-            outlook.current_thickness_mm = t;
-        }
         return outlook;
     };
     // A latest inspection far off the wear line (beyond 3 residual SDs of the group, or of the
@@ -451,16 +458,12 @@ pub fn forecast_part(
     outlook.current_thickness_high_mm = (now_mean + z * now_sd).max(0.0);
 
     if let Some(t) = measured_below {
-        notes.push(format!(
-            "measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now",
-            history.min_thickness_mm
-        ));
-        outlook.due = Some(DueDistribution { quantile_days: vec![today_day; DUE_QUANTILES] });
-        outlook.notes = notes;
-        return outlook;
+        let note = format!("measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now", history.min_thickness_mm);
+        return due_now(outlook, notes, today_day, note);
     }
     if now_mean <= history.min_thickness_mm {
-        notes.push("estimated at or below the minimum thickness: due now".into());
+        let note = format!("estimated at {:.1} mm, at or below the minimum of {:.1} mm: due now", now_mean.max(0.0), history.min_thickness_mm);
+        return due_now(outlook, notes, today_day, note);
     }
     let Some(energy) = energy else {
         notes.push(format!(
@@ -492,6 +495,15 @@ pub fn forecast_part(
         history.min_thickness_mm,
         settings,
     );
+    outlook.notes = notes;
+    outlook
+}
+
+/// Marks a part due now: every quantile at today, whatever the rate or the recent energy.
+fn due_now(mut outlook: PartOutlook, mut notes: Vec<String>, today_day: f64, note: String) -> PartOutlook {
+    notes.push(note);
+    outlook.due = Some(DueDistribution { quantile_days: vec![today_day; DUE_QUANTILES] });
+    outlook.due_now = true;
     outlook.notes = notes;
     outlook
 }

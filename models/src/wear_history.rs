@@ -56,7 +56,8 @@ pub struct PartHistory {
     pub new_thickness_mm: f64,
     /// Minimum allowed thickness, mm.
     pub min_thickness_mm: f64,
-    /// Events sorted by day; a replacement sorts before an inspection on the same day.
+    /// Events in the order of [`order_events`]: by full timestamp, an inspection before a
+    /// replacement at the same instant.
     pub events: Vec<PartEvent>,
 }
 
@@ -165,8 +166,8 @@ pub struct DatedEvent {
 ///
 /// `first_day` is the day (since epoch) of `daily_energy_mj[0]`; `daily_hot_energy_mj` is
 /// either empty or as long as `daily_energy_mj`. Each event gets the sum of the days strictly
-/// before its `day.floor()` (the start-of-day convention). Events are sorted by day, with a
-/// replacement before an inspection on the same day.
+/// before its `day.floor()` (the start-of-day convention). Events are put in order by
+/// [`order_events`].
 #[allow(clippy::too_many_arguments)]
 pub fn history_from_daily_energy(
     axle_index: u32,
@@ -181,13 +182,7 @@ pub fn history_from_daily_energy(
     let prefix = prefix_sums(daily_energy_mj);
     let hot_prefix = prefix_sums(daily_hot_energy_mj);
     let mut sorted: Vec<DatedEvent> = events.iter().copied().filter(|e| e.day.is_finite()).collect();
-    sorted.sort_by(|a, b| {
-        a.day
-            .floor()
-            .total_cmp(&b.day.floor())
-            .then_with(|| event_rank(&a.kind).cmp(&event_rank(&b.kind)))
-            .then_with(|| a.day.total_cmp(&b.day))
-    });
+    order_events(&mut sorted);
     let events = sorted
         .into_iter()
         .map(|e| {
@@ -203,10 +198,20 @@ pub fn history_from_daily_energy(
     PartHistory { axle_index, component, new_thickness_mm, min_thickness_mm, events }
 }
 
+/// Puts a part's events in the order they happened: by their full timestamp; at exactly the
+/// same instant an inspection comes before a replacement. The tie rule follows the workshop
+/// routine of measuring a worn part and then replacing it: a reading stamped with the same
+/// instant as a replacement is taken to be of the part removed, never of the new one, so a worn
+/// reading can never be mistaken for the first point of a new part's cycle. Every view of a
+/// part's history (fit, forecast, trajectory chart) uses this one rule.
+pub fn order_events(events: &mut [DatedEvent]) {
+    events.sort_by(|a, b| a.day.total_cmp(&b.day).then_with(|| event_rank(&a.kind).cmp(&event_rank(&b.kind))));
+}
+
 fn event_rank(kind: &PartEventKind) -> u8 {
     match kind {
-        PartEventKind::Replacement { .. } => 0,
-        PartEventKind::Inspection { .. } => 1,
+        PartEventKind::Inspection { .. } => 0,
+        PartEventKind::Replacement { .. } => 1,
     }
 }
 

@@ -105,6 +105,7 @@ fn synthetic_forecasts(store: &dyn Store) {
                             wear_rate_stderr_mm_per_mj: 0.0002,
                             daily_energy_mj: 20.0,
                             due: Some(DueDistribution { quantile_days: (1..=99).map(|q| base + q as f64).collect() }),
+                            due_now: false,
                             basis: ForecastBasis::Combined,
                             inspections_used: 4,
                             notes: Vec::new(),
