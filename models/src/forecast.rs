@@ -31,65 +31,15 @@ use rand_distr::StandardNormal;
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ContinuousCDF, Normal};
 
+pub use crate::settings::ForecastSettings;
 use crate::energy_rate::{estimate_energy_rate, EnergyRate};
-use crate::error::ModelError;
 use crate::first_passage::FirstPassage;
-use crate::pooling::{combine, WearPrior};
-use crate::wear_fit::{fit_part, rate_sums, WearFit};
+use crate::pooling::{combine, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, RatePrior};
+use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
 
 /// Number of probabilities in a [`DueDistribution`] (0.01 ... 0.99).
 pub const DUE_QUANTILES: usize = 99;
-
-/// Settings of the fit and the forecast.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct ForecastSettings {
-    /// Two-sided level of the reported bands (0.8 = 10th to 90th percentile).
-    pub band_level: f64,
-    /// Days of daily energy used for the energy rate.
-    pub energy_window_days: usize,
-    /// Half-life of the recency weights on daily energy, days.
-    pub energy_half_life_days: f64,
-    /// Relative SD allowed for changes in daily energy the window cannot show (season, route).
-    /// 0.12 was chosen so the simulator's 80% bands cover about 80% (see `calibration`).
-    pub energy_rate_relative_sd: f64,
-    /// Monte Carlo draws per part.
-    pub monte_carlo_draws: usize,
-    /// Seed of the Monte Carlo (mixed with the axle and component). Callers set one per vehicle
-    /// (see [`vehicle_seed`]) so that vehicles do not share random streams.
-    pub seed: u64,
-    /// Fit hot-stop energy as its own regressor.
-    pub hot_regressor: bool,
-    /// Fit a bedding-in intercept common to cycles that began with a recorded replacement.
-    pub bedding_intercept: bool,
-    /// Thickness gauge noise SD, mm, used when no residual SD is known (common practice, no source).
-    pub gauge_sd_mm: f64,
-    /// Weight ν₀ (degrees of freedom) of the group's residual SD when shrinking a vehicle's own.
-    pub prior_residual_weight: f64,
-    /// Longest trajectory, days.
-    pub trajectory_cap_days: f64,
-    /// Most trajectory points (the step grows beyond daily to respect it).
-    pub trajectory_max_points: usize,
-}
-
-impl Default for ForecastSettings {
-    fn default() -> Self {
-        Self {
-            band_level: 0.8,
-            energy_window_days: 120,
-            energy_half_life_days: 60.0,
-            energy_rate_relative_sd: 0.12,
-            monte_carlo_draws: 1000,
-            seed: 0x5eed_b4a7,
-            hot_regressor: false,
-            bedding_intercept: false,
-            gauge_sd_mm: 0.3,
-            prior_residual_weight: 4.0,
-            trajectory_cap_days: 3.0 * 365.0,
-            trajectory_max_points: 200,
-        }
-    }
-}
 
 /// What a forecast's wear rate rests on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -218,117 +168,104 @@ struct RateEstimate {
     inspections: u32,
 }
 
-fn residual_sd_fallback(prior: Option<&WearPrior>, settings: &ForecastSettings) -> f64 {
-    match prior {
-        Some(p) if p.residual_degrees_of_freedom > 0.0 && p.residual_sd_mm > 0.0 => p.residual_sd_mm,
-        _ => settings.gauge_sd_mm,
-    }
+fn valid_fit(f: &WearFit) -> bool {
+    f.rate_mm_per_mj.is_finite() && f.rate_variance_per_residual_variance.is_finite() && f.rate_variance_per_residual_variance > 0.0
 }
 
-fn valid_fit(f: &WearFit) -> bool {
-    f.rate_mm_per_mj.is_finite() && f.rate_mm_per_mj > 0.0 && f.rate_variance_per_residual_variance.is_finite()
+/// The vehicle's own rate estimate `(k̂, s², inspections)` with the variance the pooling uses,
+/// and the shrunk residual SD (mm) for the anchor.
+fn own_estimate(
+    history: &PartHistory,
+    own_fit: Option<&WearFit>,
+    sigma0: f64,
+    autocorrelation: f64,
+    settings: &ForecastSettings,
+) -> (Option<(f64, f64, u32)>, f64) {
+    let fitted = match own_fit {
+        Some(f) => Some(f.clone()),
+        None => fit_part_any_sign(history, settings).ok(),
+    };
+    if let Some(fit) = fitted.filter(valid_fit) {
+        let variance = own_rate_variance(&fit, sigma0, autocorrelation, settings);
+        let sigma = shrunk_residual_variance(&fit, sigma0, settings).sqrt();
+        return (Some((fit.rate_mm_per_mj, variance, fit.inspections_used)), sigma);
+    }
+    // Too few inspections for a fit with residual degrees of freedom: the closed-form slope
+    // with the group's residual SD, if the inspections carry any energy information.
+    let sums = rate_sums(history);
+    let estimate = sums.slope().filter(|k| k.is_finite()).map(|k| {
+        let inflation = rate_variance_inflation(settings.prior_residual_weight, autocorrelation, settings);
+        (k, sigma0 * sigma0 / sums.sxx * inflation, sums.points)
+    });
+    (estimate, sigma0)
 }
 
 fn choose_rate(
     history: &PartHistory,
     own_fit: Option<&WearFit>,
-    prior: Option<&WearPrior>,
+    prior: Option<&RatePrior>,
     settings: &ForecastSettings,
     sigma0: f64,
     notes: &mut Vec<String>,
 ) -> (Option<RateEstimate>, f64) {
-    let own_result: Result<WearFit, ModelError> = match own_fit {
-        Some(f) if valid_fit(f) => Ok(f.clone()),
-        Some(f) => Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: f.rate_mm_per_mj }),
-        None => fit_part(history, settings),
-    };
-    match own_result {
-        Ok(fit) => {
-            let nu = fit.degrees_of_freedom.max(0.0);
-            let nu0 = settings.prior_residual_weight.max(0.0);
-            let sigma2 = if nu + nu0 > 0.0 {
-                (nu * fit.residual_sd_mm.powi(2) + nu0 * sigma0 * sigma0) / (nu + nu0)
-            } else {
-                sigma0 * sigma0
-            };
-            let own_var = fit.rate_variance_per_residual_variance * sigma2;
-            let (mean, variance, basis) = match prior {
-                Some(p) => {
-                    let (m, v) = combine(fit.rate_mm_per_mj, own_var, p);
-                    (m, v, ForecastBasis::Combined)
-                }
-                None => (fit.rate_mm_per_mj, own_var, ForecastBasis::VehicleData),
-            };
-            (Some(RateEstimate { mean, variance, basis, inspections: fit.inspections_used }), sigma2.sqrt())
+    let autocorrelation = prior.map_or(0.0, |p| p.residual_autocorrelation);
+    let (own, sigma) = own_estimate(history, own_fit, sigma0, autocorrelation, settings);
+    let fleet = |p: &RatePrior| RateEstimate { mean: p.mean_mm_per_mj, variance: p.variance, basis: ForecastBasis::FleetPrior, inspections: 0 };
+    let from_pad = |p: &RatePrior| if p.from_pad { " and this axle's own pad (lining) rate" } else { "" };
+    let rate = match (own, prior) {
+        (Some((k, v, inspections)), Some(p)) => {
+            // A wear rate cannot be negative: the posterior is the normal update truncated at 0.
+            let (mean, variance) = truncated_at_zero(combine(k, v, p));
+            if k <= 0.0 {
+                notes.push(format!(
+                    "the vehicle's own inspections show no wear yet ({k:.3e} mm/MJ); combined with the fleet prior of {} vehicles{}",
+                    p.vehicles,
+                    from_pad(p)
+                ));
+            }
+            Some(RateEstimate { mean, variance, basis: ForecastBasis::Combined, inspections })
         }
-        Err(ModelError::NonPositiveWearRate { rate_mm_per_mj }) => {
+        (Some((k, v, inspections)), None) if k > 0.0 => {
+            Some(RateEstimate { mean: k, variance: v, basis: ForecastBasis::VehicleData, inspections })
+        }
+        (Some((k, _, _)), None) => {
             notes.push(format!(
-                "the vehicle's own wear fit gave a non-positive rate ({rate_mm_per_mj:.3e} mm/MJ) and was rejected"
+                "the vehicle's own wear fit gave a non-positive rate ({k:.3e} mm/MJ) and no fleet prior is available"
             ));
-            match prior {
-                Some(p) => {
-                    notes.push(format!("wear rate from the fleet prior of {} vehicles", p.vehicles));
-                    (Some(prior_only(p)), sigma0)
-                }
-                None => (None, sigma0),
-            }
+            None
         }
-        Err(_) => {
-            // Too few inspections for a fit with residual degrees of freedom: use the closed-form
-            // slope with the assumed residual SD, if the inspections carry any energy information.
-            let sums = rate_sums(history);
-            let slope = sums.slope().filter(|s| s.is_finite());
-            match (slope, prior) {
-                (Some(k), Some(p)) => {
-                    let (m, v) = combine(k, sigma0 * sigma0 / sums.sxx, p);
-                    notes.push(format!(
-                        "{} inspection(s) combined with the fleet prior (residual SD {sigma0:.2} mm assumed)",
-                        sums.points
-                    ));
-                    if m > 0.0 {
-                        (Some(RateEstimate { mean: m, variance: v, basis: ForecastBasis::Combined, inspections: sums.points }), sigma0)
-                    } else {
-                        (Some(prior_only(p)), sigma0)
-                    }
-                }
-                (Some(k), None) if k > 0.0 => {
-                    notes.push(format!(
-                        "wear rate from {} inspection(s) with an assumed residual SD of {sigma0:.2} mm",
-                        sums.points
-                    ));
-                    (
-                        Some(RateEstimate {
-                            mean: k,
-                            variance: sigma0 * sigma0 / sums.sxx,
-                            basis: ForecastBasis::VehicleData,
-                            inspections: sums.points,
-                        }),
-                        sigma0,
-                    )
-                }
-                (_, Some(p)) => {
-                    notes.push(format!(
-                        "no inspection since fitting measures wear: wear rate from the fleet prior of {} vehicles",
-                        p.vehicles
-                    ));
-                    (Some(prior_only(p)), sigma0)
-                }
-                (_, None) => {
-                    notes.push("the vehicle's inspections do not yet show a positive wear rate and no fleet prior is available".into());
-                    (None, sigma0)
-                }
-            }
+        (None, Some(p)) => {
+            notes.push(format!(
+                "no inspection since fitting measures wear: wear rate from the fleet prior of {} vehicles{}",
+                p.vehicles,
+                from_pad(p)
+            ));
+            Some(fleet(p))
         }
-    }
+        (None, None) => {
+            notes.push("the vehicle's inspections do not yet show a wear rate and no fleet prior is available".into());
+            None
+        }
+    };
+    (rate, sigma)
 }
 
-fn prior_only(p: &WearPrior) -> RateEstimate {
-    RateEstimate {
-        mean: p.mean_mm_per_mj,
-        variance: p.between_sd_mm_per_mj.powi(2),
-        basis: ForecastBasis::FleetPrior,
-        inspections: 0,
+/// Mean and variance of N(mean, variance) truncated to positive values (Johnson, Kotz &
+/// Balakrishnan, *Continuous Univariate Distributions* vol. 1, §13.10.1):
+/// `α = −m/s`, `λ = φ(α)/(1 − Φ(α))`, mean `m + sλ`, variance `s²(1 + αλ − λ²)`.
+pub fn truncated_at_zero((mean, variance): (f64, f64)) -> (f64, f64) {
+    let sd = variance.max(0.0).sqrt();
+    if (sd.is_nan() || sd <= 0.0) || !mean.is_finite() {
+        return (mean, variance);
     }
+    let Ok(normal) = Normal::new(0.0, 1.0) else { return (mean, variance) };
+    let alpha = -mean / sd;
+    let tail = 1.0 - normal.cdf(alpha);
+    if tail.is_nan() || tail <= 1e-300 {
+        return (mean, variance);
+    }
+    let lambda = statrs::distribution::Continuous::pdf(&normal, alpha) / tail;
+    (mean + sd * lambda, variance * (1.0 + alpha * lambda - lambda * lambda).max(0.0))
 }
 
 /// Standard normal quantile.
@@ -348,7 +285,7 @@ fn normal_quantile(p: f64) -> f64 {
 pub fn forecast_part(
     history: &PartHistory,
     own_fit: Option<&WearFit>,
-    prior: Option<&WearPrior>,
+    prior: Option<&RatePrior>,
     daily_energy_mj: &[f64],
     today_day: f64,
     current_cumulative_energy_mj: f64,
@@ -357,7 +294,7 @@ pub fn forecast_part(
     let mut notes = Vec::new();
     let level = if settings.band_level.is_finite() { settings.band_level.clamp(0.01, 0.98) } else { 0.8 };
     let z = normal_quantile(0.5 + level / 2.0);
-    let sigma0 = residual_sd_fallback(prior, settings);
+    let sigma0 = prior.map_or(settings.gauge_sd_mm, |p| p.residual_sd_mm).max(f64::MIN_POSITIVE);
     let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
     let energy = estimate_energy_rate(
         daily_energy_mj,

@@ -9,15 +9,18 @@
 //! # Layout
 //! - [`domain`]: vehicles, axles, components and their validity rules.
 //! - [`plausibility`]: physical limits a trip summary must respect before it is stored.
+//! - [`settings`]: the settings of the fit, the pooling and the forecast.
 //! - [`error`]: the crate's one error enum, [`ModelError`].
 //! - [`regression`]: least squares via linfa, with covariance, standard errors, prediction
 //!   intervals and Fieller inverse intervals.
 //! - [`wear_history`]: a part's dated replacements and inspections, and its wear cycles.
 //! - [`wear_fit`]: the wear rate (mm/MJ) from the vehicle's own inspections.
+//! - [`random_effects`]: between-unit variance and pooled mean (DerSimonian–Laird, Paule–Mandel).
 //! - [`pooling`]: the fleet prior per group (empirical Bayes) and its combination with a fit.
 //! - [`energy_rate`]: recency-weighted daily friction energy at a brake.
 //! - [`first_passage`]: the inverse Gaussian time to dissipate a remaining energy.
 //! - [`forecast`]: due-date distributions and thickness trajectories.
+//! - [`vehicle_forecast`]: all parts of one vehicle together, rotors borrowing from their pads.
 //! - [`visit_plan`]: workshop visits that book parts before their due dates.
 //! - [`pipeline`]: fits, fleet priors and forecasts for many parts in one call.
 //! - [`physics`]: braking energy of a speed trace, axle split, heat partition and rotor heating.
@@ -34,9 +37,12 @@ pub mod physics;
 pub mod pipeline;
 pub mod plausibility;
 pub mod pooling;
+pub mod random_effects;
 pub mod regression;
 pub mod visit_plan;
+pub mod settings;
 pub mod simulator;
+pub mod vehicle_forecast;
 pub mod wear_fit;
 pub mod wear_history;
 
@@ -44,6 +50,6 @@ pub use error::ModelError;
 pub use forecast::{
     forecast_part, DueDistribution, ForecastBasis, ForecastSettings, PartOutlook, TrajectoryPoint,
 };
-pub use pooling::{estimate_prior, WearPrior};
+pub use pooling::{estimate_prior, RatePrior, WearPrior};
 pub use wear_fit::{fit_part, WearFit};
 pub use wear_history::{PartEvent, PartEventKind, PartHistory};

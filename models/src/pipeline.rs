@@ -1,16 +1,20 @@
 //! The whole in-crate forecasting pipeline for many parts: own fits, a fleet prior per group,
 //! then a forecast per part. The service and the calibration test run these same steps.
 //!
-//! Steps: (1) [`crate::fit_part`] on every part; (2) [`crate::estimate_prior`] over the
-//! successful fits of each group (vehicle class, axle, component); (3) [`crate::forecast_part`]
-//! with the part's own fit (or its failure) and its group's prior.
+//! Steps: (1) [`crate::wear_fit::fit_part_any_sign`] on every part; (2)
+//! [`estimate_group_priors`]: [`crate::estimate_prior`] over the fits of each group (vehicle
+//! class, axle, component), then each rotor group's coupling to its pads; (3)
+//! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
+//! prior it is shrunk toward.
 
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
 
 use crate::domain::Component;
-use crate::forecast::{forecast_part, vehicle_seed, ForecastSettings, PartOutlook};
-use crate::pooling::{estimate_prior, WearPrior};
-use crate::wear_fit::{fit_part, WearFit};
+use crate::forecast::{vehicle_seed, PartOutlook};
+use crate::pooling::{estimate_pad_coupling, estimate_prior, vehicle_key, PadCoupling, WearPrior};
+use crate::settings::ForecastSettings;
+use crate::vehicle_forecast::{forecast_vehicle, PartData};
+use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
 
 /// The pooling group of a part: vehicle class, axle, component.
@@ -49,39 +53,73 @@ pub struct PartResult {
     pub outlook: PartOutlook,
 }
 
-/// Fits every part and estimates one prior per group.
-pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, HashMap<GroupKey, WearPrior>) {
-    let fits: Vec<Option<WearFit>> = inputs.iter().map(|p| fit_part(&p.history, settings).ok()).collect();
-    let mut groups: HashMap<GroupKey, Vec<WearFit>> = HashMap::new();
-    for (input, fit) in inputs.iter().zip(&fits) {
-        if let Some(f) = fit {
-            groups.entry(input.group.clone()).or_default().push(f.clone());
+/// Estimates every group's prior from `(group, vehicle key, own fit)` triples, then the pad
+/// coupling of each rotor (drum) group from the pad (lining) group of the same class and axle.
+pub fn estimate_group_priors(
+    fits: impl IntoIterator<Item = (GroupKey, u64, WearFit)>,
+    settings: &ForecastSettings,
+) -> HashMap<GroupKey, WearPrior> {
+    let mut groups: HashMap<GroupKey, Vec<(u64, WearFit)>> = HashMap::new();
+    for (group, key, fit) in fits {
+        groups.entry(group).or_default().push((key, fit));
+    }
+    let mut priors: HashMap<GroupKey, WearPrior> =
+        groups.into_iter().filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k, p))).collect();
+    let couplings: Vec<(GroupKey, PadCoupling)> = priors
+        .iter()
+        .filter(|(k, _)| k.component == Component::Disc)
+        .filter_map(|(k, rotor)| {
+            let pad_key = GroupKey { component: Component::Friction, ..k.clone() };
+            let pad = priors.get(&pad_key)?;
+            estimate_pad_coupling(pad, rotor, settings).map(|c| (k.clone(), c))
+        })
+        .collect();
+    for (k, c) in couplings {
+        if let Some(p) = priors.get_mut(&k) {
+            p.pad_coupling = Some(c);
         }
     }
-    let priors = groups.into_iter().filter_map(|(k, fits)| estimate_prior(&fits).map(|p| (k, p))).collect();
+    priors
+}
+
+/// Fits every part (of any sign) and estimates one prior per group.
+pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, HashMap<GroupKey, WearPrior>) {
+    let fits: Vec<Option<WearFit>> = inputs.iter().map(|p| fit_part_any_sign(&p.history, settings).ok()).collect();
+    let triples = inputs
+        .iter()
+        .zip(&fits)
+        .filter_map(|(input, fit)| fit.clone().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
+    let priors = estimate_group_priors(triples, settings);
     (fits, priors)
 }
 
-/// Runs the pipeline over `inputs` for `today_day` (days since epoch).
+/// Runs the pipeline over `inputs` for `today_day` (days since epoch); results in input order.
 pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastSettings) -> Vec<PartResult> {
-    let (fits, priors) = fit_and_pool(inputs, settings);
-    inputs
-        .iter()
-        .zip(fits)
-        .enumerate()
-        .map(|(index, (input, own_fit))| {
-            // One random stream per input, as the service has one per vehicle.
-            let part_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[&index.to_string()]), ..settings.clone() };
-            let outlook = forecast_part(
-                &input.history,
-                own_fit.as_ref(),
-                priors.get(&input.group),
-                &input.daily_energy_mj,
-                today_day,
-                input.current_cumulative_energy_mj,
-                &part_settings,
-            );
-            PartResult { own_fit, outlook }
-        })
-        .collect()
+    let (_, priors) = fit_and_pool(inputs, settings);
+    let mut by_vehicle: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
+    for (i, input) in inputs.iter().enumerate() {
+        by_vehicle.entry(input.vehicle_id.as_str()).or_default().push(i);
+    }
+    let mut out: Vec<Option<PartResult>> = vec![None; inputs.len()];
+    for (vehicle_id, indices) in by_vehicle {
+        // One random stream per vehicle, as in the service.
+        let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
+        let parts: Vec<PartData<'_>> = indices
+            .iter()
+            .map(|&i| PartData {
+                history: &inputs[i].history,
+                daily_energy_mj: &inputs[i].daily_energy_mj,
+                current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
+            })
+            .collect();
+        let class = &inputs[indices[0]].group.vehicle_class;
+        let prior_of = |axle_index: u32, component: Component| {
+            priors.get(&GroupKey { vehicle_class: class.clone(), axle_index, component })
+        };
+        let results = forecast_vehicle(vehicle_key(&[vehicle_id]), &parts, prior_of, today_day, &vehicle_settings);
+        for (&i, r) in indices.iter().zip(results) {
+            out[i] = Some(PartResult { own_fit: r.own_fit, outlook: r.outlook });
+        }
+    }
+    out.into_iter().flatten().collect()
 }

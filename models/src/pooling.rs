@@ -1,94 +1,319 @@
 //! Fleet pooling: the population distribution of wear rates within a group (vehicle class,
-//! axle, component), and its combination with one vehicle's own estimate.
+//! axle, component), the prior it gives one vehicle, and a rotor's borrowing from its own pad.
 //!
 //! # Model
-//! Random-coefficient degradation (Lu & Meeker 1993, Technometrics 35:161): each vehicle `i`
-//! has its own rate `kᵢ ~ N(μ, τ²)`, and its fit reports `k̂ᵢ ~ N(kᵢ, sᵢ²)`. The prior
-//! `N(μ, τ²)` is estimated from the group by the method of moments of DerSimonian & Laird
-//! (1986, Controlled Clinical Trials 7:177):
+//! Random-coefficient degradation (Lu & Meeker 1993, Technometrics 35:161): vehicle `i` has
+//! its own rate `kᵢ ~ N(μ, τ²)` and its own fit reports `k̂ᵢ ~ N(kᵢ, sᵢ²)`.
 //!
+//! **The variance of a vehicle's estimate, `sᵢ²`**, is the one the forecast uses, never the raw
+//! OLS value from one or two degrees of freedom:
 //! ```text
-//! wᵢ = 1/sᵢ²,   k̄ = Σwᵢk̂ᵢ/Σwᵢ,   Q = Σwᵢ(k̂ᵢ − k̄)²
-//! τ² = max(0, (Q − (n−1)) / (Σwᵢ − Σwᵢ²/Σwᵢ))
-//! μ  = Σwᵢ*k̂ᵢ/Σwᵢ*  with  wᵢ* = 1/(sᵢ² + τ²)
+//! σᵢ² = (νᵢ·rᵢ² + ν₀·σ₀²)/(νᵢ + ν₀)      residual variance shrunk toward the group's σ₀²
+//! sᵢ² = gᵢ·σᵢ² · ν/(ν − 2) · (1 + ρ)/(1 − ρ),   ν = νᵢ + ν₀
 //! ```
-//! The pooled residual standard deviation `√(Σνᵢsᵢ²/Σνᵢ)` of the group is kept as well: it
-//! stands in for a vehicle's own when that has few degrees of freedom.
+//! `gᵢ = gᵀ(XᵀX)⁻¹g` from the fit, `ν/(ν−2)` the variance of a Student-t with the shrunk
+//! degrees of freedom (a t-type spread for few inspections), and `(1+ρ)/(1−ρ)` the variance
+//! inflation of a least-squares slope under AR(1) residuals of lag-1 autocorrelation ρ
+//! (Box, Jenkins & Reinsel, *Time Series Analysis*, the variance of a mean under AR(1);
+//! recalled from memory). ρ is pooled over the group's fits, `Σ eⱼeⱼ₋₁ / Σ eⱼ²`, clamped to
+//! `[0, ρ_max]`: real wear per MJ wanders with temperature and duty, so residuals within a cycle
+//! run in streaks and the OLS standard error alone is too small.
 //!
-//! A vehicle's estimate is combined with the prior by precision weighting (the conjugate
+//! **τ² and μ** come from Paule–Mandel ([`crate::random_effects`]); τ is floored at a fraction
+//! of μ ([`crate::settings::ForecastSettings::between_sd_floor_fraction`]) so that a group
+//! that happens to look homogeneous never makes a rate exactly known.
+//!
+//! **Leave-one-out.** The prior a vehicle is shrunk toward never contains that vehicle's own
+//! fit: with `wⱼ = 1/(sⱼ² + τ²)`, `W₋ᵢ = Σⱼ≠ᵢ wⱼ`,
+//! ```text
+//! μ₋ᵢ = Σⱼ≠ᵢ wⱼk̂ⱼ / W₋ᵢ,     predictive variance  τ² + 1/W₋ᵢ
+//! ```
+//! (between-vehicle variance plus the uncertainty of the pooled mean). τ² itself is kept from
+//! the whole group.
+//!
+//! **A rotor borrows from its own pad.** Pad and rotor of one brake share the vehicle's duty,
+//! so within a class and axle their rates are modelled as bivariate normal with correlation
+//! `ρ_pr = Cov(k̂_pad, k̂_rotor)/(τ_pad·τ_rotor)` (the estimates' errors are independent, so the
+//! sample covariance of the estimates estimates the covariance of the true rates), clamped to
+//! ±0.9. Given the pad's posterior `N(m_p, v_p)` and its prior mean `μ_p`, the rotor's prior is
+//! the conditional normal:
+//! ```text
+//! β = ρ_pr·τ_rotor/τ_pad
+//! mean = μ_rotor,₋ᵢ + β·(m_p − μ_p),   variance = τ_rotor²·(1 − ρ_pr²) + β²·v_p + 1/W₋ᵢ
+//! ```
+//! so a rotor whose own change is still within gauge noise is forecast from the fleet and from
+//! its own pad's rate.
+//!
+//! A vehicle's estimate is then combined with its prior by precision weighting (the conjugate
 //! normal update; Gebraeel et al. 2005, IIE Transactions 37:543):
-//! `k_post = (k̂/s² + μ/τ²)/(1/s² + 1/τ²)`, `Var = 1/(1/s² + 1/τ²)`.
+//! `k_post = (k̂/s² + m/v)/(1/s² + 1/v)`, `Var = 1/(1/s² + 1/v)`.
 
 use serde::{Deserialize, Serialize};
 
+use crate::random_effects::paule_mandel;
+use crate::settings::ForecastSettings;
 use crate::wear_fit::WearFit;
 
 /// Fewest vehicles with an own fit for a group prior.
 pub const MIN_PRIOR_VEHICLES: usize = 3;
 
+/// Largest pad-rotor correlation used (a bound against a perfect-looking small sample).
+const MAX_PAD_ROTOR_CORRELATION: f64 = 0.9;
+
+/// One vehicle's contribution to a group prior, kept so that the vehicle can be left out of the
+/// prior it is shrunk toward.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct PriorMember {
+    /// Stable key of the vehicle ([`vehicle_key`]).
+    pub vehicle_key: u64,
+    /// The vehicle's own rate estimate k̂ᵢ, mm/MJ.
+    pub rate_mm_per_mj: f64,
+    /// Its variance sᵢ² as pooled (module docs), (mm/MJ)².
+    pub rate_variance: f64,
+}
+
+/// How the rotors (drums) of a group follow their own pads (linings).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct PadCoupling {
+    /// Correlation between a vehicle's true pad and rotor rates within the group.
+    pub correlation: f64,
+    /// β: rotor rate change per unit pad rate change, (mm/MJ)/(mm/MJ).
+    pub slope: f64,
+    /// Vehicles with both fits behind the estimate.
+    pub vehicles: u32,
+}
+
 /// Population distribution of wear rates in a group.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct WearPrior {
-    /// Mean wear rate μ, mm/MJ.
+    /// Mean wear rate μ, mm/MJ (whole group).
     pub mean_mm_per_mj: f64,
-    /// Between-vehicle standard deviation τ, mm/MJ.
+    /// Between-vehicle standard deviation τ, mm/MJ (floored, module docs).
     pub between_sd_mm_per_mj: f64,
     /// Vehicles (own fits) the prior rests on.
     pub vehicles: u32,
-    /// Pooled residual standard deviation of the group's fits, mm.
+    /// Pooled residual standard deviation σ₀ of the group's fits, mm.
     pub residual_sd_mm: f64,
     /// Degrees of freedom behind `residual_sd_mm`.
     pub residual_degrees_of_freedom: f64,
+    /// Pooled lag-1 autocorrelation ρ of the residuals within cycles, clamped (module docs).
+    pub residual_autocorrelation: f64,
+    /// Σwⱼ over the members at τ², (mm/MJ)⁻².
+    pub weight_sum: f64,
+    /// Σwⱼk̂ⱼ over the members, (mm/MJ)⁻¹.
+    pub weighted_rate_sum: f64,
+    /// The members, sorted by `vehicle_key`.
+    pub members: Vec<PriorMember>,
+    /// For a rotor or drum group: how it follows the pads on the same axle.
+    pub pad_coupling: Option<PadCoupling>,
 }
 
-/// Estimates the group prior from the own-data fits of one group (vehicle class, axle,
-/// component). `None` with fewer than [`MIN_PRIOR_VEHICLES`] usable fits.
-pub fn estimate_prior(fits: &[WearFit]) -> Option<WearPrior> {
-    let usable: Vec<&WearFit> = fits
-        .iter()
-        .filter(|f| {
-            f.rate_mm_per_mj.is_finite()
-                && f.rate_mm_per_mj > 0.0
-                && f.rate_stderr_mm_per_mj.is_finite()
-                && f.rate_stderr_mm_per_mj > 0.0
-        })
-        .collect();
-    let n = usable.len();
-    if n < MIN_PRIOR_VEHICLES {
+/// The prior for one vehicle's rate: a normal distribution with its provenance.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct RatePrior {
+    /// Prior mean, mm/MJ.
+    pub mean_mm_per_mj: f64,
+    /// Prior (predictive) variance, (mm/MJ)².
+    pub variance: f64,
+    /// Other vehicles it rests on.
+    pub vehicles: u32,
+    /// The group's pooled residual SD σ₀, mm.
+    pub residual_sd_mm: f64,
+    /// The group's residual autocorrelation ρ.
+    pub residual_autocorrelation: f64,
+    /// Whether the mean was moved by the vehicle's own pad (a rotor or drum).
+    pub from_pad: bool,
+}
+
+/// A stable key for a vehicle from its identifiers (FNV-1a, 64-bit).
+pub fn vehicle_key(identifiers: &[&str]) -> u64 {
+    crate::forecast::vehicle_seed(0, identifiers)
+}
+
+/// σᵢ²: a fit's residual variance shrunk toward the group's σ₀ with weight ν₀, mm².
+pub fn shrunk_residual_variance(fit: &WearFit, group_residual_sd_mm: f64, settings: &ForecastSettings) -> f64 {
+    let nu = fit.degrees_of_freedom.max(0.0);
+    let nu0 = settings.prior_residual_weight.max(0.0);
+    let s0 = group_residual_sd_mm * group_residual_sd_mm;
+    if nu + nu0 > 0.0 {
+        (nu * fit.residual_sd_mm.powi(2) + nu0 * s0) / (nu + nu0)
+    } else {
+        s0
+    }
+}
+
+/// The variance factor of a rate from `degrees_of_freedom` and residual autocorrelation ρ:
+/// `ν/(ν − 2) · (1 + ρ)/(1 − ρ)` (module docs); ν ≤ 3 counts as 3.
+pub fn rate_variance_inflation(degrees_of_freedom: f64, autocorrelation: f64, settings: &ForecastSettings) -> f64 {
+    let nu = degrees_of_freedom.max(3.0);
+    let rho = autocorrelation.clamp(0.0, settings.max_residual_autocorrelation.clamp(0.0, 0.99));
+    nu / (nu - 2.0) * (1.0 + rho) / (1.0 - rho)
+}
+
+/// sᵢ²: the variance of a fit's rate as the pooling and the forecast both use it, (mm/MJ)².
+pub fn own_rate_variance(fit: &WearFit, group_residual_sd_mm: f64, autocorrelation: f64, settings: &ForecastSettings) -> f64 {
+    let sigma2 = shrunk_residual_variance(fit, group_residual_sd_mm, settings);
+    let nu = fit.degrees_of_freedom.max(0.0) + settings.prior_residual_weight.max(0.0);
+    fit.rate_variance_per_residual_variance * sigma2 * rate_variance_inflation(nu, autocorrelation, settings)
+}
+
+fn usable(fit: &WearFit) -> bool {
+    fit.rate_mm_per_mj.is_finite()
+        && fit.rate_variance_per_residual_variance.is_finite()
+        && fit.rate_variance_per_residual_variance > 0.0
+        && fit.residual_sd_mm.is_finite()
+}
+
+/// Estimates the group prior from the own-data fits of one group, each with its vehicle's key
+/// (module docs). Fits of any sign count. `None` with fewer than [`MIN_PRIOR_VEHICLES`] usable
+/// fits or when the pooled mean is not positive.
+pub fn estimate_prior(fits: &[(u64, WearFit)], settings: &ForecastSettings) -> Option<WearPrior> {
+    let usable: Vec<&(u64, WearFit)> = fits.iter().filter(|(_, f)| usable(f)).collect();
+    if usable.len() < MIN_PRIOR_VEHICLES {
         return None;
     }
-    let w: Vec<f64> = usable.iter().map(|f| 1.0 / f.rate_stderr_mm_per_mj.powi(2)).collect();
-    let sw: f64 = w.iter().sum();
-    let sw2: f64 = w.iter().map(|v| v * v).sum();
-    let fixed_mean = usable.iter().zip(&w).map(|(f, w)| w * f.rate_mm_per_mj).sum::<f64>() / sw;
-    let q: f64 = usable.iter().zip(&w).map(|(f, w)| w * (f.rate_mm_per_mj - fixed_mean).powi(2)).sum();
-    let denominator = sw - sw2 / sw;
-    let tau2 = if denominator > 0.0 { ((q - (n as f64 - 1.0)) / denominator).max(0.0) } else { 0.0 };
-    let w_star: Vec<f64> = usable.iter().map(|f| 1.0 / (f.rate_stderr_mm_per_mj.powi(2) + tau2)).collect();
-    let mean = usable.iter().zip(&w_star).map(|(f, w)| w * f.rate_mm_per_mj).sum::<f64>() / w_star.iter().sum::<f64>();
-    let df: f64 = usable.iter().map(|f| f.degrees_of_freedom).sum();
-    let ss: f64 = usable.iter().map(|f| f.degrees_of_freedom * f.residual_sd_mm.powi(2)).sum();
-    let residual_sd_mm = if df > 0.0 { (ss / df).sqrt() } else { 0.0 };
+    let df: f64 = usable.iter().map(|(_, f)| f.degrees_of_freedom.max(0.0)).sum();
+    let ss: f64 = usable.iter().map(|(_, f)| f.degrees_of_freedom.max(0.0) * f.residual_sd_mm.powi(2)).sum();
+    let residual_sd_mm = if df > 0.0 && ss > 0.0 { (ss / df).sqrt() } else { settings.gauge_sd_mm };
+    let rss: f64 = usable.iter().map(|(_, f)| f.residual_sum_squares_mm2.max(0.0)).sum();
+    let lag: f64 = usable.iter().map(|(_, f)| f.residual_lag_product_sum_mm2).sum();
+    let limit = settings.max_residual_autocorrelation.clamp(0.0, 0.99);
+    let residual_autocorrelation = if rss > 0.0 { (lag / rss).clamp(0.0, limit) } else { 0.0 };
+
+    let rates: Vec<f64> = usable.iter().map(|(_, f)| f.rate_mm_per_mj).collect();
+    let variances: Vec<f64> =
+        usable.iter().map(|(_, f)| own_rate_variance(f, residual_sd_mm, residual_autocorrelation, settings)).collect();
+    let pm = paule_mandel(&rates, &variances)?;
+    if pm.mean.is_nan() || pm.mean <= 0.0 {
+        return None;
+    }
+    let floor = settings.between_sd_floor_fraction.max(0.0) * pm.mean;
+    let tau2 = pm.between_variance.max(floor * floor);
+    let mut members: Vec<PriorMember> = usable
+        .iter()
+        .zip(&variances)
+        .map(|((key, f), v)| PriorMember { vehicle_key: *key, rate_mm_per_mj: f.rate_mm_per_mj, rate_variance: *v })
+        .collect();
+    members.sort_by_key(|m| m.vehicle_key);
+    let weight_sum: f64 = members.iter().map(|m| 1.0 / (m.rate_variance + tau2)).sum();
+    let weighted_rate_sum: f64 = members.iter().map(|m| m.rate_mm_per_mj / (m.rate_variance + tau2)).sum();
+    let mean = weighted_rate_sum / weight_sum;
+    if mean.is_nan() || mean <= 0.0 {
+        return None;
+    }
     Some(WearPrior {
         mean_mm_per_mj: mean,
         between_sd_mm_per_mj: tau2.sqrt(),
-        vehicles: n as u32,
+        vehicles: members.len() as u32,
         residual_sd_mm,
         residual_degrees_of_freedom: df,
+        residual_autocorrelation,
+        weight_sum,
+        weighted_rate_sum,
+        members,
+        pad_coupling: None,
     })
 }
 
-/// Precision-weighted combination of an estimate `(mean, variance)` with the prior; returns
-/// the posterior `(mean, variance)`. A zero between-vehicle variance makes the prior decisive.
-pub fn combine(own_mean: f64, own_variance: f64, prior: &WearPrior) -> (f64, f64) {
-    let tau2 = prior.between_sd_mm_per_mj.powi(2);
-    if tau2 <= 0.0 {
+impl WearPrior {
+    /// The member entry of a vehicle, if its fit is in the prior.
+    pub fn member(&self, vehicle_key: u64) -> Option<&PriorMember> {
+        self.members.binary_search_by_key(&vehicle_key, |m| m.vehicle_key).ok().map(|i| &self.members[i])
+    }
+
+    /// The prior for vehicle `vehicle_key`: the group without that vehicle's own fit, with the
+    /// predictive variance τ² + 1/W₋ᵢ (module docs).
+    pub fn predictive_for(&self, vehicle_key: u64) -> RatePrior {
+        let tau2 = self.between_sd_mm_per_mj.powi(2);
+        let (mut w, mut wk, mut n) = (self.weight_sum, self.weighted_rate_sum, self.vehicles);
+        if let Some(m) = self.member(vehicle_key) {
+            let wi = 1.0 / (m.rate_variance + tau2);
+            // Never leave the sum empty or negative through rounding.
+            if w - wi > 1e-9 * w && n > 1 {
+                w -= wi;
+                wk -= wi * m.rate_mm_per_mj;
+                n -= 1;
+            }
+        }
+        let mean = wk / w;
+        // Leaving a vehicle out can only move the mean so far; a non-positive mean (a group of
+        // near-zero rates) falls back to the whole group's.
+        let mean = if mean > 0.0 { mean } else { self.mean_mm_per_mj };
+        RatePrior {
+            mean_mm_per_mj: mean,
+            variance: tau2 + 1.0 / w,
+            vehicles: n,
+            residual_sd_mm: self.residual_sd_mm,
+            residual_autocorrelation: self.residual_autocorrelation,
+            from_pad: false,
+        }
+    }
+
+    /// The prior of a rotor (drum) of vehicle `vehicle_key` given its own pad's posterior rate
+    /// `(mean, variance)` and the pad's prior mean, mm/MJ (module docs). Without a coupling it is
+    /// [`Self::predictive_for`].
+    pub fn predictive_given_pad(&self, vehicle_key: u64, pad_posterior: (f64, f64), pad_prior_mean: f64) -> RatePrior {
+        let base = self.predictive_for(vehicle_key);
+        let Some(c) = self.pad_coupling else { return base };
+        let (m_p, v_p) = pad_posterior;
+        if !(m_p.is_finite() && v_p.is_finite() && pad_prior_mean.is_finite()) {
+            return base;
+        }
+        let tau2 = self.between_sd_mm_per_mj.powi(2);
+        let mean_uncertainty = (base.variance - tau2).max(0.0);
+        let mean = base.mean_mm_per_mj + c.slope * (m_p - pad_prior_mean);
+        // The conditional mean cannot make a wearing part grow; keep it above a small fraction
+        // of the group mean.
+        let mean = mean.max(0.1 * base.mean_mm_per_mj);
+        RatePrior {
+            mean_mm_per_mj: mean,
+            variance: tau2 * (1.0 - c.correlation * c.correlation) + c.slope * c.slope * v_p.max(0.0) + mean_uncertainty,
+            from_pad: true,
+            ..base
+        }
+    }
+}
+
+/// Estimates how a rotor (drum) group follows the pad (lining) group of the same class and axle
+/// from the vehicles with both fits in the two priors (module docs). `None` with fewer than
+/// `settings.min_coupling_vehicles` such vehicles.
+pub fn estimate_pad_coupling(pad: &WearPrior, rotor: &WearPrior, settings: &ForecastSettings) -> Option<PadCoupling> {
+    let pairs: Vec<(f64, f64)> = rotor
+        .members
+        .iter()
+        .filter_map(|r| pad.member(r.vehicle_key).map(|p| (p.rate_mm_per_mj, r.rate_mm_per_mj)))
+        .collect();
+    let n = pairs.len();
+    if n < settings.min_coupling_vehicles.max(3) {
+        return None;
+    }
+    let nf = n as f64;
+    let mp = pairs.iter().map(|p| p.0).sum::<f64>() / nf;
+    let mr = pairs.iter().map(|p| p.1).sum::<f64>() / nf;
+    let cov = pairs.iter().map(|p| (p.0 - mp) * (p.1 - mr)).sum::<f64>() / (nf - 1.0);
+    let (tp, tr) = (pad.between_sd_mm_per_mj, rotor.between_sd_mm_per_mj);
+    if !(tp > 0.0 && tr > 0.0 && cov.is_finite()) {
+        return None;
+    }
+    let correlation = (cov / (tp * tr)).clamp(-MAX_PAD_ROTOR_CORRELATION, MAX_PAD_ROTOR_CORRELATION);
+    Some(PadCoupling { correlation, slope: correlation * tr / tp, vehicles: n as u32 })
+}
+
+/// Precision-weighted combination of an estimate `(mean, variance)` with a prior; returns the
+/// posterior `(mean, variance)`. The prior's variance is positive by construction (a floored τ²
+/// plus the pooled mean's uncertainty), so neither side is ever ignored.
+pub fn combine(own_mean: f64, own_variance: f64, prior: &RatePrior) -> (f64, f64) {
+    let v = prior.variance;
+    if v.is_nan() || v <= 0.0 {
         return (prior.mean_mm_per_mj, 0.0);
     }
-    if own_variance.is_nan() || own_variance <= 0.0 {
+    if !own_mean.is_finite() || own_variance.is_nan() || own_variance < 0.0 {
+        return (prior.mean_mm_per_mj, v);
+    }
+    if own_variance == 0.0 {
         return (own_mean, 0.0);
     }
-    let precision = 1.0 / own_variance + 1.0 / tau2;
-    let mean = (own_mean / own_variance + prior.mean_mm_per_mj / tau2) / precision;
+    let precision = 1.0 / own_variance + 1.0 / v;
+    let mean = (own_mean / own_variance + prior.mean_mm_per_mj / v) / precision;
     (mean, 1.0 / precision)
 }

@@ -24,7 +24,7 @@ use ndarray::{Array1, Array2};
 use serde::{Deserialize, Serialize};
 
 use crate::error::ModelError;
-use crate::forecast::ForecastSettings;
+use crate::settings::ForecastSettings;
 use crate::regression::fit_linear;
 use crate::wear_history::{PartHistory, WearCycle};
 
@@ -54,6 +54,13 @@ pub struct WearFit {
     pub hot_fraction: f64,
     /// Wear cycles that contributed points.
     pub cycles_used: u32,
+    /// Residual sum of squares, mm².
+    pub residual_sum_squares_mm2: f64,
+    /// Σ eⱼ·eⱼ₋₁ over consecutive residuals within each cycle (in energy order), mm²: with
+    /// [`Self::residual_sum_squares_mm2`] it gives the lag-1 autocorrelation of the residuals,
+    /// which the pooling estimates per group (wear that is not a straight line in energy leaves
+    /// runs of residuals of one sign).
+    pub residual_lag_product_sum_mm2: f64,
 }
 
 /// Sums describing the rate information in a history, for the closed-form slope used when a
@@ -120,6 +127,18 @@ fn usable(cycle: &WearCycle) -> bool {
 /// negative; [`ModelError::Singular`] when the energies carry no information (e.g. no energy
 /// between inspections).
 pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
+    let fit = fit_part_any_sign(history, settings)?;
+    if fit.rate_mm_per_mj.is_nan() || fit.rate_mm_per_mj <= 0.0 {
+        return Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: fit.rate_mm_per_mj });
+    }
+    Ok(fit)
+}
+
+/// As [`fit_part`], but a zero or negative rate is returned rather than refused. A rotor that
+/// wears a fraction of a millimetre in years often shows a slightly negative slope within gauge
+/// noise; that estimate still carries information for the fleet pooling and for a combination
+/// with the prior, which a refusal would throw away (and bias the group mean upward).
+pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
     let cycles: Vec<WearCycle> = history.cycles().into_iter().filter(usable).collect();
     let hot = settings.hot_regressor;
     let unknown: Vec<usize> = cycles.iter().enumerate().filter(|(_, c)| c.start.is_none()).map(|(i, _)| i).collect();
@@ -140,9 +159,12 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
     let mut y: Vec<f64> = Vec::new();
     let mut energy_total = 0.0;
     let mut hot_total = 0.0;
+    // Index of the first row of each cycle, to pair consecutive residuals within a cycle.
+    let mut cycle_first_row: Vec<usize> = Vec::new();
     for (ci, cycle) in cycles.iter().enumerate() {
         let Some((origin, hot_origin)) = cycle.origin_energy_mj() else { continue };
         let reference_mm = cycle.start.map_or(history.new_thickness_mm, |s| s.new_thickness_mm);
+        cycle_first_row.push(y.len());
         for point in &cycle.points {
             let mut row = vec![0.0; p];
             let x = point.energy_mj - origin;
@@ -175,7 +197,16 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
         });
     }
     let design = Array2::from_shape_vec((n, p), rows).map_err(|e| ModelError::InvalidArgument(e.to_string()))?;
-    let fit = fit_linear(design.view(), Array1::from(y).view())?;
+    let y = Array1::from(y);
+    let fit = fit_linear(design.view(), y.view())?;
+    let residuals = &y - &design.dot(&Array1::from(fit.coefficients.clone()));
+    let mut lag_products = 0.0;
+    for (c, &first) in cycle_first_row.iter().enumerate() {
+        let end = cycle_first_row.get(c + 1).copied().unwrap_or(n);
+        for j in first + 1..end {
+            lag_products += residuals[j] * residuals[j - 1];
+        }
+    }
     let hot_fraction = if hot && energy_total > 0.0 { (hot_total / energy_total).clamp(0.0, 1.0) } else { 0.0 };
     let mut gradient = vec![0.0; p];
     gradient[0] = 1.0;
@@ -192,8 +223,8 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
         }
         q
     };
-    if rate.is_nan() || rate <= 0.0 {
-        return Err(ModelError::NonPositiveWearRate { rate_mm_per_mj: rate });
+    if !rate.is_finite() {
+        return Err(ModelError::Singular(format!("the fitted wear rate is not finite ({rate})")));
     }
     Ok(WearFit {
         rate_mm_per_mj: rate,
@@ -207,5 +238,7 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
         rate_variance_per_residual_variance: quad(&fit.xtx_inverse).max(0.0),
         hot_fraction,
         cycles_used: cycles.len() as u32,
+        residual_sum_squares_mm2: fit.residual_sum_of_squares,
+        residual_lag_product_sum_mm2: lag_products,
     })
 }

@@ -106,3 +106,20 @@ fn inverse_gaussian_sampling_matches_moments() {
     let below = draws.iter().filter(|d| **d <= fp.mean_days).count() as f64 / n as f64;
     assert!((below - fp.cdf(fp.mean_days)).abs() < 0.005);
 }
+
+/// The normal truncated at zero against scipy 1.17.1:
+/// `scipy.stats.truncnorm((0 - m)/s, inf, loc=m, scale=s).mean()` and `.var()`.
+#[test]
+fn truncated_normal_matches_scipy() {
+    use brakeledger_models::forecast::truncated_at_zero;
+    let cases = [
+        (-6e-5, 3e-5, 1.1196465984685204e-05, 1.0285119037267497e-10),
+        (1.0, 1.0, 1.2875999709391783, 0.6296862857766055),
+        (-2.0, 0.5, 0.11280357224473825, 0.01166820959934961),
+    ];
+    for (m, s, mean, var) in cases {
+        let (got_mean, got_var) = truncated_at_zero((m, s * s));
+        assert!(((got_mean - mean) / mean).abs() < 1e-6, "mean of N({m}, {s}²)|>0: {got_mean} vs {mean}");
+        assert!(((got_var - var) / var).abs() < 1e-5, "variance of N({m}, {s}²)|>0: {got_var} vs {var}");
+    }
+}

@@ -5,7 +5,7 @@ use brakeledger_models::domain::Component;
 use brakeledger_models::error::ModelError;
 use brakeledger_models::regression::{fieller_inverse, fit_rows, student_t_quantile};
 use brakeledger_models::{
-    fit_part, forecast_part, ForecastBasis, ForecastSettings, PartEvent, PartEventKind, PartHistory, WearPrior,
+    fit_part, forecast_part, ForecastBasis, ForecastSettings, PartEvent, PartEventKind, PartHistory, RatePrior,
 };
 
 pub fn inspection(day: f64, energy: f64, thickness: f64) -> PartEvent {
@@ -20,8 +20,16 @@ pub fn pad(events: Vec<PartEvent>) -> PartHistory {
     PartHistory { axle_index: 1, component: Component::Friction, new_thickness_mm: 22.0, min_thickness_mm: 3.0, events }
 }
 
-pub fn prior() -> WearPrior {
-    WearPrior { mean_mm_per_mj: 5e-4, between_sd_mm_per_mj: 1e-4, vehicles: 20, residual_sd_mm: 0.3, residual_degrees_of_freedom: 100.0 }
+/// A fleet prior of 20 vehicles (invented): mean 5e-4 mm/MJ, predictive SD 1e-4 mm/MJ.
+pub fn prior() -> RatePrior {
+    RatePrior {
+        mean_mm_per_mj: 5e-4,
+        variance: 1e-8,
+        vehicles: 20,
+        residual_sd_mm: 0.3,
+        residual_autocorrelation: 0.0,
+        from_pad: false,
+    }
 }
 
 const TODAY: f64 = 20_000.0;
@@ -52,26 +60,36 @@ fn no_braking_energy_gives_no_date_with_the_reason() {
 
 #[test]
 fn a_single_inspection_combines_with_the_prior_or_stands_alone() {
-    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_900.0, 20_000.0, 12.0)]);
+    // Own slope 8 mm / 20 000 MJ = 4e-4 mm/MJ, away from the prior mean of 5e-4, so a wrong
+    // weighting cannot pass.
+    let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_900.0, 20_000.0, 14.0)]);
     assert!(matches!(fit_part(&h, &ForecastSettings::default()), Err(ModelError::TooFewPoints { .. })));
     let settings = ForecastSettings::default();
+    // The own variance: σ₀²/Σx² with the group's σ₀ = 0.3 mm, times the t-type factor
+    // ν/(ν−2) at ν = ν₀ = 4 prior degrees of freedom (no residual autocorrelation).
+    let own_variance = 0.3f64.powi(2) / 20_000f64.powi(2) * (4.0 / 2.0);
+    let prior_variance = prior().variance;
+    // Conjugate normal update (precision weighting; any Bayesian statistics text, e.g.
+    // Gelman et al., Bayesian Data Analysis, §2.5).
+    let precision = 1.0 / own_variance + 1.0 / prior_variance;
+    let expected_mean = (4e-4 / own_variance + 5e-4 / prior_variance) / precision;
     let with_prior = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 25_000.0, &settings);
     assert_eq!(with_prior.basis, ForecastBasis::Combined);
     assert_eq!(with_prior.inspections_used, 1);
-    // Own slope 10 mm / 20 000 MJ = 5e-4, the prior's mean: the posterior stays there and is
-    // tighter than the prior.
-    assert!((with_prior.wear_rate_mm_per_mj - 5e-4).abs() < 1e-9);
-    assert!(with_prior.wear_rate_stderr_mm_per_mj < prior().between_sd_mm_per_mj);
+    assert!((with_prior.wear_rate_mm_per_mj - expected_mean).abs() < 1e-12, "{}", with_prior.wear_rate_mm_per_mj);
+    assert!(with_prior.wear_rate_mm_per_mj > 4e-4 && with_prior.wear_rate_mm_per_mj < 5e-4);
+    assert!((with_prior.wear_rate_stderr_mm_per_mj - (1.0 / precision).sqrt()).abs() < 1e-15);
     assert!(with_prior.due.is_some());
     let alone = forecast_part(&h, None, None, &energy(), TODAY, 25_000.0, &settings);
     assert_eq!(alone.basis, ForecastBasis::VehicleData);
     assert!(alone.due.is_some());
-    // The stand-alone rate's SD is the assumed gauge SD over √Σx².
-    assert!((alone.wear_rate_stderr_mm_per_mj - 0.3 / 20_000.0).abs() < 1e-12);
+    assert!((alone.wear_rate_mm_per_mj - 4e-4).abs() < 1e-15);
+    // Without a group the assumed gauge SD (0.3 mm) stands in for σ₀.
+    assert!((alone.wear_rate_stderr_mm_per_mj - own_variance.sqrt()).abs() < 1e-15);
 }
 
 #[test]
-fn a_negative_fitted_rate_is_rejected_and_the_prior_used() {
+fn a_negative_fitted_rate_is_combined_with_the_prior_not_thrown_away() {
     let h = pad(vec![
         inspection(19_700.0, 0.0, 15.0),
         inspection(19_800.0, 8000.0, 15.5),
@@ -80,10 +98,15 @@ fn a_negative_fitted_rate_is_rejected_and_the_prior_used() {
     let err = fit_part(&h, &ForecastSettings::default()).expect_err("negative rate");
     assert!(matches!(err, ModelError::NonPositiveWearRate { rate_mm_per_mj } if rate_mm_per_mj < 0.0));
     let o = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 20_000.0, &ForecastSettings::default());
-    assert_eq!(o.basis, ForecastBasis::FleetPrior);
-    assert_eq!(o.wear_rate_mm_per_mj, prior().mean_mm_per_mj);
-    assert!(o.notes.iter().any(|n| n.contains("rejected")), "{:?}", o.notes);
+    // A growing thickness says this part wears slowly: the posterior lies below the prior mean.
+    assert_eq!(o.basis, ForecastBasis::Combined);
+    assert!(o.wear_rate_mm_per_mj > 0.0 && o.wear_rate_mm_per_mj < prior().mean_mm_per_mj, "{}", o.wear_rate_mm_per_mj);
+    assert!(o.notes.iter().any(|n| n.contains("no wear yet")), "{:?}", o.notes);
     assert!(o.due.is_some());
+    // With no prior there is nothing to combine with: no rate, and the reason.
+    let alone = forecast_part(&h, None, None, &energy(), TODAY, 20_000.0, &ForecastSettings::default());
+    assert!(alone.due.is_none());
+    assert!(alone.notes.iter().any(|n| n.contains("non-positive")), "{:?}", alone.notes);
 }
 
 #[test]
@@ -219,4 +242,34 @@ fn the_same_data_a_little_later_gives_the_same_draws() {
     let other = ForecastSettings { seed: brakeledger_models::forecast::vehicle_seed(settings.seed, &["fleet", "other"]), ..settings };
     let third = forecast_part(&h, None, Some(&prior()), &energy(), TODAY, 12_500.0, &other).due.expect("date");
     assert_ne!(first.quantile_days, third.quantile_days);
+}
+
+#[test]
+fn measured_at_the_minimum_is_due_now_without_a_rate_or_energy() {
+    // One reading of a part of unknown start, at the minimum: no fit, no prior, no energy.
+    let h = pad(vec![inspection(19_990.0, 30_000.0, 3.0)]);
+    let o = forecast_part(&h, None, None, &vec![0.0; 120], TODAY, 30_000.0, &ForecastSettings::default());
+    assert!(o.due_now);
+    let due = o.due.expect("a part at its minimum always has a date");
+    assert!(due.quantile_days.iter().all(|d| *d == TODAY));
+    assert_eq!(o.current_thickness_mm, 3.0);
+}
+
+#[test]
+fn estimated_below_the_minimum_is_due_now_without_recent_energy() {
+    // Worn at about 1e-3 mm/MJ; 20 000 MJ since the last reading of 12 mm puts it near -8 mm,
+    // yet the last 120 days carry no energy (parked).
+    let h = pad(vec![replacement(19_000.0, 0.0), inspection(19_300.0, 5_000.0, 17.0), inspection(19_600.0, 10_000.0, 12.0)]);
+    let o = forecast_part(&h, None, Some(&prior()), &vec![0.0; 120], TODAY, 30_000.0, &ForecastSettings::default());
+    assert!(o.due_now, "{:?}", o.notes);
+    assert!(o.due.expect("date").quantile_days.iter().all(|d| *d == TODAY));
+    assert!(o.notes.iter().any(|n| n.contains("due now")), "{:?}", o.notes);
+}
+
+#[test]
+fn a_part_with_neither_rate_nor_thickness_has_no_date_and_says_why() {
+    let h = pad(Vec::new());
+    let o = forecast_part(&h, None, None, &energy(), TODAY, 30_000.0, &ForecastSettings::default());
+    assert!(o.due.is_none() && !o.due_now);
+    assert!(!o.notes.is_empty());
 }

@@ -2,7 +2,10 @@
 
 mod calibration;
 mod distributions;
+mod event_order;
 mod forecast_behaviour;
 mod invariants;
 mod nist_least_squares;
+mod pooling_behaviour;
+mod pooling_reference;
 mod simulator_checks;

@@ -11,14 +11,17 @@
 //! the vehicles of that class are marked stale once more. Own fits do not depend on priors, so
 //! this settles after one extra pass. Stale marks are durable: after a crash the work resumes.
 
-use std::collections::{BTreeMap, BTreeSet, HashMap};
+use std::collections::{BTreeSet, HashMap};
 use std::sync::Arc;
 use std::time::Duration;
 
 use brakeledger_models::domain::Component;
 use brakeledger_models::wear_history::{history_from_daily_energy, DatedEvent};
 use brakeledger_models::forecast::vehicle_seed;
-use brakeledger_models::{estimate_prior, fit_part, forecast_part, ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
+use brakeledger_models::pipeline::{estimate_group_priors, GroupKey};
+use brakeledger_models::pooling::vehicle_key;
+use brakeledger_models::vehicle_forecast::{forecast_vehicle, PartData};
+use brakeledger_models::{ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
 use tokio::sync::watch;
 
 use crate::config::ForecastConfig;
@@ -151,32 +154,30 @@ pub struct ComputedPart {
     pub outlook: PartOutlook,
 }
 
-/// Computes every part of a vehicle at `now_ms` with the fleet's priors. The Monte Carlo seed
-/// is the vehicle's own (stable), so repeated calls agree and new data moves dates smoothly.
+/// Computes every part of a vehicle at `now_ms` with the fleet's priors (pads first, rotors
+/// borrowing from their pads; the vehicle left out of the priors it is shrunk toward). The
+/// Monte Carlo seed is the vehicle's own (stable), so repeated calls agree and new data moves
+/// dates smoothly.
 pub fn compute_vehicle(data: &VehicleData, priors: &FleetPriors, now_ms: i64, settings: &ForecastSettings) -> Vec<ComputedPart> {
     let today_day = now_ms as f64 / MS_PER_DAY as f64;
-    let settings = &ForecastSettings {
-        seed: vehicle_seed(settings.seed, &[&data.vehicle.fleet_id, &data.vehicle.vehicle_id]),
-        ..settings.clone()
-    };
-    part_inputs(data, now_ms)
-        .into_iter()
-        .map(|input| {
-            let own_fit = fit_part(&input.history, settings).ok();
-            let prior = priors
-                .find(&data.vehicle.spec.vehicle_class, input.history.axle_index, input.history.component)
-                .map(|g| &g.prior);
-            let outlook = forecast_part(
-                &input.history,
-                own_fit.as_ref(),
-                prior,
-                &input.daily_energy_mj,
-                today_day,
-                input.current_cumulative_energy_mj,
-                settings,
-            );
-            ComputedPart { input, own_fit, outlook }
+    let ids = [data.vehicle.fleet_id.as_str(), data.vehicle.vehicle_id.as_str()];
+    let settings = &ForecastSettings { seed: vehicle_seed(settings.seed, &ids), ..settings.clone() };
+    let inputs = part_inputs(data, now_ms);
+    let parts: Vec<PartData<'_>> = inputs
+        .iter()
+        .map(|i| PartData {
+            history: &i.history,
+            daily_energy_mj: &i.daily_energy_mj,
+            current_cumulative_energy_mj: i.current_cumulative_energy_mj,
         })
+        .collect();
+    let class = &data.vehicle.spec.vehicle_class;
+    let prior_of = |axle_index: u32, component: Component| priors.find(class, axle_index, component).map(|g| &g.prior);
+    let results = forecast_vehicle(vehicle_key(&ids), &parts, prior_of, today_day, settings);
+    inputs
+        .into_iter()
+        .zip(results)
+        .map(|(input, r)| ComputedPart { input, own_fit: r.own_fit, outlook: r.outlook })
         .collect()
 }
 
@@ -199,24 +200,22 @@ pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> V
     }
 }
 
-/// Pools the own fits of a fleet's stored forecasts into group priors.
-pub fn pool_priors(forecasts: &[VehicleForecasts]) -> FleetPriors {
-    let mut groups: BTreeMap<(String, u32, Component), Vec<WearFit>> = BTreeMap::new();
-    for vehicle in forecasts {
-        for part in &vehicle.parts {
-            if let Some(fit) = &part.own_fit {
-                groups.entry((vehicle.vehicle_class.clone(), part.axle_index, part.component)).or_default().push(fit.clone());
-            }
-        }
-    }
-    FleetPriors {
-        groups: groups
-            .into_iter()
-            .filter_map(|((vehicle_class, axle_index, component), fits)| {
-                estimate_prior(&fits).map(|prior| GroupPrior { vehicle_class, axle_index, component, prior })
-            })
-            .collect(),
-    }
+/// Pools the own fits of a fleet's stored forecasts into group priors (with each rotor
+/// group's coupling to its pads).
+pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) -> FleetPriors {
+    let fits = forecasts.iter().flat_map(|vehicle| {
+        let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
+        vehicle.parts.iter().filter_map(move |part| {
+            let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
+            part.own_fit.clone().map(|fit| (group, key, fit))
+        })
+    });
+    let mut groups: Vec<GroupPrior> = estimate_group_priors(fits, settings)
+        .into_iter()
+        .map(|(g, prior)| GroupPrior { vehicle_class: g.vehicle_class, axle_index: g.axle_index, component: g.component, prior })
+        .collect();
+    groups.sort_by(|a, b| (&a.vehicle_class, a.axle_index, a.component).cmp(&(&b.vehicle_class, b.axle_index, b.component)));
+    FleetPriors { groups }
 }
 
 /// Whether a group's prior moved enough to recompute the forecasts resting on it.
@@ -266,7 +265,7 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
     }
     for (fleet_id, old) in &priors_by_fleet {
         let forecasts = store.fleet_forecasts(fleet_id)?;
-        let new = pool_priors(&forecasts);
+        let new = pool_priors(&forecasts, &model_settings(config, 0.8));
         // Classes with a group whose prior moved, appeared or disappeared.
         let changed: BTreeSet<&str> = new
             .groups

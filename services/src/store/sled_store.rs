@@ -16,7 +16,9 @@ use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, 
 use super::*;
 
 /// Schema version this build writes. Opening a database with a higher version is refused.
-pub const SCHEMA_VERSION: u32 = 1;
+/// Version 2: the stored forecasts and priors carry the leave-one-out pooling and pad coupling
+/// of the wear models; version-1 directories are migrated by [`SledStore::rebuild_derived`].
+pub const SCHEMA_VERSION: u32 = 2;
 const SCHEMA_KEY: &[u8] = b"schema_version";
 
 impl From<sled::Error> for StoreError {
@@ -104,12 +106,40 @@ impl SledStore {
                 if found > SCHEMA_VERSION {
                     return Err(StoreError::NewerSchema { found, supported: SCHEMA_VERSION });
                 }
+                if found < SCHEMA_VERSION {
+                    let store = Self::with_trees(db)?;
+                    store.rebuild_derived()?;
+                    meta.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
+                    store.db.flush()?;
+                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: forecasts will be recomputed");
+                    return Ok(store);
+                }
             }
             None => {
                 meta.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
                 db.flush()?;
             }
         }
+        Self::with_trees(db)
+    }
+
+    /// Migration of derived data: stored forecasts, the due index and the priors are what the
+    /// forecast worker computes from the records, so an older layout of them is dropped and
+    /// every vehicle marked stale; the worker rebuilds them. Records (fleets, vehicles, trips,
+    /// roll-ups, inspections, replacements) are untouched.
+    fn rebuild_derived(&self) -> StoreResult<()> {
+        self.forecasts.clear()?;
+        self.due_index.clear()?;
+        self.priors.clear()?;
+        for key in self.vehicles.iter().keys() {
+            let key = key?;
+            let generation = self.db.generate_id()?;
+            self.stale.insert(key, &generation.to_be_bytes())?;
+        }
+        Ok(())
+    }
+
+    fn with_trees(db: sled::Db) -> StoreResult<Self> {
         Ok(Self {
             fleets: db.open_tree("fleets")?,
             vehicles: db.open_tree("vehicles")?,

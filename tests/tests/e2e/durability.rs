@@ -155,3 +155,32 @@ async fn sigterm_stops_the_process_cleanly_with_everything_on_disk() {
     use brakeledger::store::Store;
     assert_eq!(store.vehicle_totals("north", "truck-9").expect("totals").trips_recorded, 500);
 }
+
+#[test]
+fn a_version_1_directory_keeps_its_records_and_recomputes_its_forecasts() {
+    use brakeledger::store::{sled_store::SledStore, FleetPriors, Store, VehicleRecord};
+    let dir = tempfile::tempdir().expect("temp dir");
+    {
+        let store = SledStore::open(dir.path()).expect("create");
+        let vehicle = VehicleRecord::try_from(two_axle_vehicle("north", "bus-1")).expect("valid vehicle");
+        store.upsert_vehicle(&vehicle).expect("vehicle");
+        store.put_priors("north", &FleetPriors::default()).expect("priors");
+        for mark in store.stale_vehicles(10).expect("marks") {
+            store.clear_stale(&mark).expect("clear");
+        }
+        store.force_schema_version(1).expect("write version 1");
+    }
+    let store = SledStore::open(dir.path()).expect("a version-1 directory opens");
+    assert!(store.get_vehicle("north", "bus-1").expect("read").is_some(), "records are kept");
+    assert!(store.get_priors("north").expect("read").is_none(), "derived priors are dropped");
+    let marks = store.stale_vehicles(10).expect("marks");
+    assert_eq!(marks.len(), 1, "every vehicle is marked for recomputation");
+    assert_eq!(marks[0].vehicle_id, "bus-1");
+    store.clear_stale(&marks[0]).expect("clear");
+    store.put_priors("north", &FleetPriors::default()).expect("priors");
+    drop(store);
+    // Reopening does not migrate again: the directory now carries the current version.
+    let store = SledStore::open(dir.path()).expect("reopen");
+    assert!(store.stale_vehicles(10).expect("marks").is_empty(), "no second migration");
+    assert!(store.get_priors("north").expect("read").is_some(), "priors written after the migration stay");
+}

@@ -1,0 +1,67 @@
+//! Settings of the wear fit, the fleet pooling and the forecast, in one place so that every
+//! model module reads them without depending on another.
+
+use serde::{Deserialize, Serialize};
+
+/// Settings of the fit and the forecast.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ForecastSettings {
+    /// Two-sided level of the reported bands (0.8 = 10th to 90th percentile).
+    pub band_level: f64,
+    /// Days of daily energy used for the energy rate.
+    pub energy_window_days: usize,
+    /// Half-life of the recency weights on daily energy, days.
+    pub energy_half_life_days: f64,
+    /// Relative SD allowed for changes in daily energy the window cannot show (season, route).
+    /// 0.12 was chosen so the simulator's 80% bands cover about 80% (see `calibration`).
+    pub energy_rate_relative_sd: f64,
+    /// Monte Carlo draws per part.
+    pub monte_carlo_draws: usize,
+    /// Seed of the Monte Carlo (mixed with the axle and component). Callers set one per vehicle
+    /// (see [`crate::forecast::vehicle_seed`]) so that vehicles do not share random streams.
+    pub seed: u64,
+    /// Fit hot-stop energy as its own regressor.
+    pub hot_regressor: bool,
+    /// Fit a bedding-in intercept common to cycles that began with a recorded replacement.
+    pub bedding_intercept: bool,
+    /// Thickness gauge noise SD, mm, used when no residual SD is known (common practice, no source).
+    pub gauge_sd_mm: f64,
+    /// Weight ν₀ (degrees of freedom) of the group's residual SD when shrinking a vehicle's own.
+    pub prior_residual_weight: f64,
+    /// Floor of the between-vehicle SD of wear rates, as a fraction of the group's mean rate.
+    /// Keeps the fleet prior from ever treating a rate as exactly known when a small group
+    /// happens to look homogeneous (a modelling choice tuned on the tuning seeds; real fleets
+    /// show more spread than this, common practice, no source).
+    pub between_sd_floor_fraction: f64,
+    /// Largest lag-1 autocorrelation of wear residuals used to inflate rate variances.
+    pub max_residual_autocorrelation: f64,
+    /// Fewest vehicles with both a pad and a rotor fit before a rotor borrows from its pad.
+    pub min_coupling_vehicles: usize,
+    /// Longest trajectory, days.
+    pub trajectory_cap_days: f64,
+    /// Most trajectory points (the step grows beyond daily to respect it).
+    pub trajectory_max_points: usize,
+}
+
+impl Default for ForecastSettings {
+    fn default() -> Self {
+        Self {
+            band_level: 0.8,
+            energy_window_days: 120,
+            energy_half_life_days: 60.0,
+            energy_rate_relative_sd: 0.12,
+            monte_carlo_draws: 1000,
+            seed: 0x5eed_b4a7,
+            hot_regressor: false,
+            bedding_intercept: false,
+            gauge_sd_mm: 0.3,
+            prior_residual_weight: 4.0,
+            between_sd_floor_fraction: 0.10,
+            max_residual_autocorrelation: 0.9,
+            min_coupling_vehicles: 5,
+            trajectory_cap_days: 3.0 * 365.0,
+            trajectory_max_points: 200,
+        }
+    }
+}
+

@@ -1,0 +1,82 @@
+//! All parts of one vehicle forecast together: pads (linings) first, then rotors (drums), each
+//! borrowing from its own axle's pad rate through the group's pad coupling
+//! ([`crate::pooling`]). The service and the in-crate pipeline both forecast through here, so
+//! one vehicle gets the same answer from either.
+
+use crate::domain::Component;
+use crate::forecast::{forecast_part, PartOutlook};
+use crate::pooling::WearPrior;
+use crate::settings::ForecastSettings;
+use crate::wear_fit::{fit_part_any_sign, WearFit};
+use crate::wear_history::PartHistory;
+
+/// What one part's forecast reads.
+#[derive(Debug, Clone, Copy)]
+pub struct PartData<'a> {
+    /// The part's history with cumulative energies.
+    pub history: &'a PartHistory,
+    /// Friction energy per day at this brake, MJ, oldest first, ending the day before today.
+    pub daily_energy_mj: &'a [f64],
+    /// Cumulative energy at this brake up to today, MJ.
+    pub current_cumulative_energy_mj: f64,
+}
+
+/// One part's own fit (of any sign, as pooled) and its outlook.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PartForecast {
+    /// The vehicle's own fit, when the inspections allow one.
+    pub own_fit: Option<WearFit>,
+    /// The forecast.
+    pub outlook: PartOutlook,
+}
+
+/// Forecasts every part of vehicle `vehicle_key` ([`crate::pooling::vehicle_key`]); results
+/// come in the order of `parts`. `prior_of(axle_index, component)` gives the group prior.
+/// `settings.seed` should already be the vehicle's own ([`crate::forecast::vehicle_seed`]).
+pub fn forecast_vehicle<'p>(
+    vehicle_key: u64,
+    parts: &[PartData<'_>],
+    prior_of: impl Fn(u32, Component) -> Option<&'p WearPrior>,
+    today_day: f64,
+    settings: &ForecastSettings,
+) -> Vec<PartForecast> {
+    let mut out: Vec<Option<PartForecast>> = vec![None; parts.len()];
+    // (axle, posterior mean, posterior variance, prior mean) of each forecast pad.
+    let mut pads: Vec<(u32, f64, f64, f64)> = Vec::new();
+    let order = parts
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| p.history.component == Component::Friction)
+        .chain(parts.iter().enumerate().filter(|(_, p)| p.history.component == Component::Disc));
+    for (index, part) in order {
+        let axle = part.history.axle_index;
+        let group = prior_of(axle, part.history.component);
+        let prior = group.map(|g| match part.history.component {
+            Component::Friction => g.predictive_for(vehicle_key),
+            Component::Disc => match pads.iter().find(|p| p.0 == axle) {
+                Some(&(_, mean, variance, prior_mean)) => g.predictive_given_pad(vehicle_key, (mean, variance), prior_mean),
+                None => g.predictive_for(vehicle_key),
+            },
+        });
+        let own_fit = fit_part_any_sign(part.history, settings).ok();
+        let outlook = forecast_part(
+            part.history,
+            own_fit.as_ref(),
+            prior.as_ref(),
+            part.daily_energy_mj,
+            today_day,
+            part.current_cumulative_energy_mj,
+            settings,
+        );
+        if part.history.component == Component::Friction {
+            if let Some(p) = &prior {
+                let (mean, sd) = (outlook.wear_rate_mm_per_mj, outlook.wear_rate_stderr_mm_per_mj);
+                if mean.is_finite() && sd.is_finite() {
+                    pads.push((axle, mean, sd * sd, p.mean_mm_per_mj));
+                }
+            }
+        }
+        out[index] = Some(PartForecast { own_fit, outlook });
+    }
+    out.into_iter().flatten().collect()
+}

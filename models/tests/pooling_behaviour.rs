@@ -1,0 +1,142 @@
+//! Issue 7, defects 3-6: the fleet pooling never treats a rate as exactly known, never counts a
+//! vehicle twice, lets a rotor borrow from its own pad, and widens rates whose residuals run in
+//! streaks. The fleets here are invented test data (not reference values); each test checks a
+//! property a wrong implementation breaks.
+
+use brakeledger_models::pooling::{
+    combine, estimate_pad_coupling, estimate_prior, own_rate_variance, rate_variance_inflation, vehicle_key, RatePrior,
+};
+use brakeledger_models::{fit_part, ForecastSettings, WearFit};
+
+use crate::forecast_behaviour::{inspection, pad, replacement};
+
+/// A pad history with known start whose thickness falls at `rate` mm/MJ, with a fixed
+/// zig-zag "gauge noise" of ±`noise` mm, at five inspections 5 000 MJ apart.
+fn fit_with(rate: f64, noise: f64) -> WearFit {
+    let mut events = vec![replacement(19_000.0, 0.0)];
+    for i in 1..=5 {
+        let e = 5_000.0 * i as f64;
+        let zig = if i % 2 == 0 { noise } else { -noise };
+        events.push(inspection(19_000.0 + 30.0 * i as f64, e, 22.0 - rate * e + zig));
+    }
+    fit_part(&pad(events), &ForecastSettings::default()).expect("fit")
+}
+
+fn keyed(fits: Vec<WearFit>) -> Vec<(u64, WearFit)> {
+    fits.into_iter().enumerate().map(|(i, f)| (vehicle_key(&["test", &format!("v{i}")]), f)).collect()
+}
+
+#[test]
+fn a_homogeneous_group_still_leaves_room_for_the_vehicle_own_data() {
+    // Four vehicles with the same rate: the between-vehicle variance estimate is zero.
+    let settings = ForecastSettings::default();
+    let fits = keyed((0..4).map(|_| fit_with(4e-4, 0.2)).collect());
+    let prior = estimate_prior(&fits, &settings).expect("prior");
+    assert!(prior.between_sd_mm_per_mj >= 0.1 * prior.mean_mm_per_mj * (1.0 - 1e-12), "floored τ: {}", prior.between_sd_mm_per_mj);
+    // A new vehicle whose own data say 6e-4 moves the posterior away from the prior mean.
+    let newcomer = prior.predictive_for(vehicle_key(&["test", "new"]));
+    assert!(newcomer.variance > prior.between_sd_mm_per_mj.powi(2), "predictive variance adds the mean's uncertainty");
+    let own = fit_with(6e-4, 0.2);
+    let own_var = own_rate_variance(&own, prior.residual_sd_mm, prior.residual_autocorrelation, &settings);
+    let (posterior, variance) = combine(own.rate_mm_per_mj, own_var, &newcomer);
+    assert!(posterior > 4.4e-4, "the vehicle's own data count: posterior {posterior}");
+    assert!(variance > 0.0);
+}
+
+#[test]
+fn the_prior_a_vehicle_is_shrunk_toward_leaves_that_vehicle_out() {
+    let settings = ForecastSettings::default();
+    let rates = [3e-4, 3.5e-4, 4e-4, 4.5e-4, 9e-4];
+    let fits = keyed(rates.iter().map(|r| fit_with(*r, 0.15)).collect());
+    let prior = estimate_prior(&fits, &settings).expect("prior");
+    let outlier_key = fits[4].0;
+    let loo = prior.predictive_for(outlier_key);
+    // The others' precision-weighted mean at the group's τ² (computed independently here).
+    let tau2 = prior.between_sd_mm_per_mj.powi(2);
+    let (mut sw, mut swk) = (0.0, 0.0);
+    for (key, fit) in &fits[..4] {
+        let member = prior.member(*key).expect("member");
+        let w = 1.0 / (member.rate_variance + tau2);
+        sw += w;
+        swk += w * fit.rate_mm_per_mj;
+    }
+    assert!((loo.mean_mm_per_mj - swk / sw).abs() < 1e-12 * loo.mean_mm_per_mj, "{} vs {}", loo.mean_mm_per_mj, swk / sw);
+    assert!(loo.mean_mm_per_mj < prior.mean_mm_per_mj, "without the outlier the prior mean falls");
+    assert_eq!(loo.vehicles, 4);
+    assert!((loo.variance - (tau2 + 1.0 / sw)).abs() < 1e-9 * loo.variance);
+    // A vehicle outside the group sees the whole group.
+    let outsider = prior.predictive_for(vehicle_key(&["test", "elsewhere"]));
+    assert!((outsider.mean_mm_per_mj - prior.mean_mm_per_mj).abs() < 1e-15);
+    assert_eq!(outsider.vehicles, 5);
+}
+
+#[test]
+fn pooled_weights_use_the_shrunk_residual_sd_of_the_forecast() {
+    let settings = ForecastSettings::default();
+    // One vehicle with a near-perfect line (raw residual SD ≈ 0) must not get a near-infinite weight.
+    let mut fits: Vec<WearFit> = (0..4).map(|i| fit_with(4e-4 + 2e-5 * i as f64, 0.3)).collect();
+    fits.push(fit_with(8e-4, 1e-6));
+    let fits = keyed(fits);
+    let prior = estimate_prior(&fits, &settings).expect("prior");
+    for (key, fit) in &fits {
+        let member = prior.member(*key).expect("member");
+        let expected = own_rate_variance(fit, prior.residual_sd_mm, prior.residual_autocorrelation, &settings);
+        assert_eq!(member.rate_variance, expected, "the pooled variance is the forecast's");
+    }
+    let exact = prior.member(fits[4].0).expect("member");
+    let raw = fits[4].1.rate_stderr_mm_per_mj.powi(2);
+    assert!(exact.rate_variance > 1e6 * raw, "shrunk {} vs raw {}", exact.rate_variance, raw);
+    assert!(prior.mean_mm_per_mj < 6e-4, "the near-perfect vehicle does not dominate: {}", prior.mean_mm_per_mj);
+}
+
+#[test]
+fn a_rotor_borrows_from_its_own_pad() {
+    let settings = ForecastSettings::default();
+    // Ten vehicles whose rotor rate is 10 % of their pad rate (invented), pads spread widely.
+    let pad_rates: Vec<f64> = (0..10).map(|i| 2e-4 + 6e-5 * i as f64).collect();
+    let keys: Vec<u64> = (0..10).map(|i| vehicle_key(&["test", &format!("v{i}")])).collect();
+    let pads: Vec<(u64, WearFit)> = keys.iter().zip(&pad_rates).map(|(k, r)| (*k, fit_with(*r, 0.05))).collect();
+    let rotors: Vec<(u64, WearFit)> = keys.iter().zip(&pad_rates).map(|(k, r)| (*k, fit_with(0.1 * r, 0.05))).collect();
+    let pad_prior = estimate_prior(&pads, &settings).expect("pad prior");
+    let mut rotor_prior = estimate_prior(&rotors, &settings).expect("rotor prior");
+    let coupling = estimate_pad_coupling(&pad_prior, &rotor_prior, &settings).expect("coupling");
+    assert!(coupling.correlation > 0.5, "ρ = {}", coupling.correlation);
+    rotor_prior.pad_coupling = Some(coupling);
+    // A new vehicle with a fast pad: its rotor prior moves up, and narrows.
+    let key = vehicle_key(&["test", "new"]);
+    let plain = rotor_prior.predictive_for(key);
+    let fast_pad = (pad_prior.mean_mm_per_mj * 1.5, (0.05 * pad_prior.mean_mm_per_mj).powi(2));
+    let given: RatePrior = rotor_prior.predictive_given_pad(key, fast_pad, pad_prior.mean_mm_per_mj);
+    assert!(given.from_pad);
+    assert!(given.mean_mm_per_mj > plain.mean_mm_per_mj * 1.2, "{} vs {}", given.mean_mm_per_mj, plain.mean_mm_per_mj);
+    assert!(given.variance < plain.variance);
+    // A pad exactly at its prior mean moves nothing.
+    let average = rotor_prior.predictive_given_pad(key, (pad_prior.mean_mm_per_mj, 0.0), pad_prior.mean_mm_per_mj);
+    assert!((average.mean_mm_per_mj - plain.mean_mm_per_mj).abs() < 1e-15);
+}
+
+#[test]
+fn residuals_in_streaks_widen_the_rate() {
+    let settings = ForecastSettings::default();
+    // Wear per MJ that rises with use (a curve, not a line): residuals of a straight fit run in
+    // streaks of one sign, so their lag-1 products are positive.
+    let curved = |scale: f64| {
+        let mut events = vec![replacement(19_000.0, 0.0)];
+        for i in 1..=8 {
+            let e = 4_000.0 * i as f64;
+            events.push(inspection(19_000.0 + 30.0 * i as f64, e, 22.0 - scale * (3e-4 * e + 6e-9 * e * e)));
+        }
+        fit_part(&pad(events), &settings).expect("fit")
+    };
+    let fits = keyed(vec![curved(1.0), curved(1.1), curved(0.9), curved(1.05)]);
+    let prior = estimate_prior(&fits, &settings).expect("prior");
+    assert!(prior.residual_autocorrelation > 0.2, "ρ = {}", prior.residual_autocorrelation);
+    let fit = &fits[0].1;
+    let streaky = own_rate_variance(fit, prior.residual_sd_mm, prior.residual_autocorrelation, &settings);
+    let independent = own_rate_variance(fit, prior.residual_sd_mm, 0.0, &settings);
+    let rho = prior.residual_autocorrelation;
+    assert!((streaky / independent - (1.0 + rho) / (1.0 - rho)).abs() < 1e-9);
+    // The t-type spread: few degrees of freedom widen more than many.
+    assert!(rate_variance_inflation(3.0, 0.0, &settings) > rate_variance_inflation(30.0, 0.0, &settings));
+    assert!((rate_variance_inflation(30.0, 0.0, &settings) - 30.0 / 28.0).abs() < 1e-12);
+}
