@@ -346,15 +346,16 @@ pub fn oracle_band(
     let defaults = ForecastSettings::default();
     let energy = estimate_energy_rate(daily_energy_mj, window_days, defaults.energy_half_life_days, defaults.energy_rate_relative_sd)?;
     let remaining_mj = left_mm / rate;
-    if !(energy.mean_mj_per_day > 0.0) {
+    let (mean, variance) = (energy.mean_mj_per_day, energy.variance_mj2_per_day);
+    if mean.is_nan() || variance.is_nan() || mean <= 0.0 {
         return None;
     }
-    if !(energy.variance_mj2_per_day > 0.0) {
+    if variance <= 0.0 {
         // Perfectly steady energy: the passage time is certain.
-        let day = cut_day + remaining_mj / energy.mean_mj_per_day;
+        let day = cut_day + remaining_mj / mean;
         return Some((day, day, day));
     }
-    let passage = FirstPassage::new(remaining_mj, energy.mean_mj_per_day, energy.variance_mj2_per_day).ok()?;
+    let passage = FirstPassage::new(remaining_mj, mean, variance).ok()?;
     let half = band_level.clamp(0.0, 0.98) / 2.0;
     Some((
         cut_day + passage.quantile(0.5 - half),
@@ -524,5 +525,124 @@ pub fn accuracy_report(
         overall: overall.line(),
         friction: friction.line(),
         disc: disc.line(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    //! The scoring rules on a fleet small enough to score by hand (invented data).
+    use super::*;
+    use crate::domain::{AxleBrake, BrakeType, VehicleSpec};
+    use crate::simulator::{SimReplacement, SimTrip, TrueCrossing};
+
+    const START: i64 = 20_000;
+    const HISTORY: i64 = 200;
+    const CUT: f64 = (START + HISTORY) as f64;
+    const HORIZON: f64 = CUT + 1000.0;
+
+    /// One disc axle (pad 20 → 3 mm, rotor 45 → 40 mm), 10 MJ every day at 08:00, both parts
+    /// fitted on the first morning.
+    fn vehicle(id: &str, truth: Vec<TrueCrossing>) -> SimVehicle {
+        let axle = AxleBrake { axle_index: 1, brake_type: BrakeType::Disc, energy_share: 1.0, friction_new_mm: 20.0, friction_min_mm: 3.0, disc_new_mm: 45.0, disc_min_mm: 40.0 };
+        let trips = (0..HISTORY)
+            .map(|d| {
+                let start = (START + d) as f64 * SECONDS_PER_DAY + 8.0 * 3600.0;
+                SimTrip { trip_id: format!("{id}-t{d}"), start_unix_s: start, end_unix_s: start + 3600.0, distance_m: 50_000.0, friction_energy_j: 1e7, axle_energy_j: vec![1e7], brake_applications: 40, hot_energy_j: 0.0 }
+            })
+            .collect();
+        let fitted = START as f64 * SECONDS_PER_DAY + 6.0 * 3600.0;
+        let replacements = [(Component::Friction, 20.0), (Component::Disc, 45.0)]
+            .into_iter()
+            .map(|(component, mm)| SimReplacement { replacement_id: format!("{id}-{component:?}"), unix_s: fitted, axle_index: 1, component, new_thickness_mm: mm })
+            .collect();
+        SimVehicle {
+            vehicle_id: id.into(),
+            vin: None,
+            spec: VehicleSpec { vehicle_class: "test".into(), mass_kg: 10_000.0, axles: vec![axle] },
+            trips,
+            inspections: Vec::new(),
+            replacements,
+            truth,
+            reassigned_day: None,
+        }
+    }
+
+    fn truth(component: Component, crossing_day: Option<f64>, rate: f64, thickness_at_cut_mm: f64) -> TrueCrossing {
+        TrueCrossing { axle_index: 1, component, crossing_day, true_rate_mm_per_mj: rate, thickness_at_cut_mm }
+    }
+
+    fn key(id: &str, component: Component) -> PartKey {
+        PartKey { vehicle_id: id.into(), axle_index: 1, component }
+    }
+
+    /// 99 quantiles in a straight line from `first` (1st percentile) to `last` (99th), days
+    /// after the cut.
+    fn spread(first: f64, last: f64) -> DueDistribution {
+        DueDistribution { quantile_days: (0..99).map(|i| CUT + first + (last - first) * f64::from(i) / 98.0).collect() }
+    }
+
+    #[test]
+    fn every_part_is_scored_by_the_documented_rules() {
+        let fleet = SimulatedFleet {
+            vehicles: vec![
+                // Pad: 10 mm above its minimum at 0.01 mm/MJ and 10 MJ/day: due in 100 days.
+                // Rotor: not worn out within the horizon.
+                vehicle("a", vec![truth(Component::Friction, Some(CUT + 100.0), 0.01, 13.0), truth(Component::Disc, None, 1e-4, 44.0)]),
+                // Pad worn out 5 days before the cut; rotor again beyond the horizon.
+                vehicle("b", vec![truth(Component::Friction, Some(CUT - 5.0), 0.01, 2.5), truth(Component::Disc, None, 1e-4, 44.0)]),
+            ],
+            start_day: START,
+            cut_day: START + HISTORY,
+            horizon_end_day: HORIZON as i64,
+        };
+        let mut forecasts = HashMap::new();
+        forecasts.insert(key("a", Component::Friction), spread(90.0, 90.0)); // 10 days early, band misses
+        // key("a", Disc) is left undated.
+        forecasts.insert(key("b", Component::Friction), spread(30.0, 30.0)); // 30 days late for a part due now
+        forecasts.insert(key("b", Component::Disc), spread(500.0, 1100.0)); // median 800, 90th beyond the horizon
+        let report = accuracy_report(&fleet, &forecasts, 0.8, 120);
+        assert_eq!(report.horizon_days, 1000.0);
+
+        let pads = report.friction;
+        assert_eq!((pads.parts, pads.undated, pads.beyond_horizon, pads.past_minimum), (2, 0, 0, 1));
+        assert_eq!(pads.band_coverage, 0.0);
+        assert!((pads.median_mae_days - 20.0).abs() < 1e-6, "{pads:?}"); // (10 + 30) / 2
+        // The oracle knows 1000 MJ remain at 10 MJ/day (100 days) and that the worn pad is due now.
+        assert!(pads.oracle_mae_days < 0.01, "{pads:?}");
+        // No inspections: the mileage interval is endless, censored at the horizon: (900 + 1000) / 2.
+        assert!((pads.mileage_baseline_mae_days - 950.0).abs() < 1e-6, "{pads:?}");
+
+        let rotors = report.disc;
+        assert_eq!((rotors.parts, rotors.undated, rotors.beyond_horizon, rotors.past_minimum), (2, 1, 2, 0));
+        assert_eq!(rotors.band_coverage, 0.5, "the undated rotor is not covered, the wide band is");
+        // Undated counts as a median at the horizon (error 0 for a censored truth); the other
+        // is 200 days short of the horizon.
+        assert!((rotors.median_mae_days - 100.0).abs() < 1e-6, "{rotors:?}");
+        assert!(rotors.oracle_mae_days.abs() < 1e-9, "40000 MJ at 10 MJ/day lies beyond the horizon");
+
+        let all = report.overall;
+        assert_eq!((all.parts, all.undated, all.beyond_horizon, all.past_minimum), (4, 1, 2, 1));
+        assert!((all.band_coverage - 0.25).abs() < 1e-12 && (all.median_mae_days - 60.0).abs() < 1e-6, "{all:?}");
+        assert!(pads.oracle_ratio() > 1e3, "the oracle is all but exact here: {}", pads.oracle_ratio());
+        let table = report.to_string();
+        assert!(table.contains("pads/linings") && table.contains("rotors/drums") && table.contains("oracle MAE"), "{table}");
+    }
+
+    #[test]
+    fn medians_are_censored_at_the_horizon_like_the_truth() {
+        let (cut, horizon) = (100.0, 1100.0);
+        let crossing = TrueDue::Crossing(400.0);
+        assert_eq!(crossing.error_days(350.0, cut, horizon), 50.0);
+        assert_eq!(crossing.error_days(1e18, cut, horizon), 700.0, "a median beyond the horizon counts as the horizon");
+        assert_eq!(crossing.error_days(f64::NAN, cut, horizon), 700.0);
+        assert!(crossing.covered(399.0, 401.0, cut, horizon) && !crossing.covered(401.0, 500.0, cut, horizon));
+        assert_eq!(TrueDue::BeyondHorizon.error_days(900.0, cut, horizon), 200.0);
+        assert_eq!(TrueDue::BeyondHorizon.error_days(1500.0, cut, horizon), 0.0);
+        assert!(TrueDue::BeyondHorizon.covered(900.0, 1100.0, cut, horizon) && !TrueDue::BeyondHorizon.covered(900.0, 1099.0, cut, horizon));
+        assert_eq!(TrueDue::PastMinimum.error_days(130.0, cut, horizon), 30.0);
+        assert!(TrueDue::PastMinimum.covered(101.0, 150.0, cut, horizon) && !TrueDue::PastMinimum.covered(101.5, 150.0, cut, horizon));
+        assert_eq!(TrueDue::from_crossing(Some(100.0), cut), TrueDue::PastMinimum);
+        assert_eq!(TrueDue::from_crossing(Some(100.5), cut), TrueDue::Crossing(100.5));
+        assert_eq!(TrueDue::from_crossing(None, cut), TrueDue::BeyondHorizon);
     }
 }

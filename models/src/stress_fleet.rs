@@ -693,7 +693,7 @@ impl<'a> VehicleRun<'a> {
     fn workshop_visit(&mut self, visit: &Visit, may_replace: bool) {
         let shop = WORKSHOPS[self.workshop];
         let mut readings = vec![None; self.parts.len()];
-        for i in 0..self.parts.len() {
+        for (i, reading) in readings.iter_mut().enumerate() {
             let (axle, component) = (self.parts[i].axle, self.parts[i].component);
             if visit.only_axle.is_some_and(|a| a != axle || component != Component::Friction) {
                 continue;
@@ -705,7 +705,7 @@ impl<'a> VehicleRun<'a> {
             };
             let thickness = self.parts[i].thickness;
             let measured = gauge_reading(&mut self.rng, thickness, sd, resolution);
-            readings[i] = Some(measured);
+            *reading = Some(measured);
             let offset_s = 60.0 * (2.0 * axle as f64 + if component == Component::Disc { 1.0 } else { 0.0 });
             self.inspections.push(SimInspection {
                 inspection_id: format!("{}-i{}", self.vehicle_id, self.inspections.len() + 1),
