@@ -25,6 +25,8 @@
 //! - [`pipeline`]: fits, fleet priors and forecasts for many parts in one call.
 //! - [`physics`]: braking energy of a speed trace, axle split, heat partition and rotor heating.
 //! - [`simulator`]: a seeded fleet simulator with hidden true crossing days (invented data).
+//! - [`stress_fleet`]: a second, independent fleet generator that breaks the model's
+//!   assumptions on purpose (invented data).
 //! - [`calibration`]: band coverage and due-date error on a simulated fleet, with baselines.
 
 pub mod calibration;
@@ -42,6 +44,7 @@ pub mod regression;
 pub mod visit_plan;
 pub mod settings;
 pub mod simulator;
+pub mod stress_fleet;
 pub mod vehicle_forecast;
 pub mod wear_fit;
 pub mod wear_history;

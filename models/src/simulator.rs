@@ -236,8 +236,11 @@ pub struct TrueCrossing {
     /// Day (since epoch, fractional) the thickness first falls to the minimum; may lie before
     /// the cut when the part was already worn out; `None` if not within `future_days`.
     pub crossing_day: Option<f64>,
-    /// The part's true wear rate, mm/MJ.
+    /// The part's true wear rate, mm/MJ (here constant over the part's life; see
+    /// [`crate::stress_fleet`] for a generator where it is not).
     pub true_rate_mm_per_mj: f64,
+    /// True thickness at the cut, mm (may lie below the minimum).
+    pub thickness_at_cut_mm: f64,
 }
 
 /// One simulated vehicle.
@@ -270,6 +273,9 @@ pub struct SimulatedFleet {
     pub start_day: i64,
     /// The cut ("today"), days since epoch.
     pub cut_day: i64,
+    /// End of the simulated future, days since epoch: a part whose `crossing_day` is `None`
+    /// crosses at or after this day (censored).
+    pub horizon_end_day: i64,
 }
 
 struct PartState {
@@ -281,6 +287,7 @@ struct PartState {
     rate: f64,
     thickness: f64,
     crossed: Option<f64>,
+    thickness_at_cut: f64,
 }
 
 fn invented_vin<R: Rng>(rng: &mut R) -> String {
@@ -307,7 +314,7 @@ pub fn simulate(config: &SimConfig) -> SimulatedFleet {
             simulate_vehicle(config, class, i, vehicle_seed)
         })
         .collect();
-    SimulatedFleet { vehicles, start_day: config.start_day, cut_day }
+    SimulatedFleet { vehicles, start_day: config.start_day, cut_day, horizon_end_day: cut_day + config.future_days as i64 }
 }
 
 fn simulate_vehicle(config: &SimConfig, class: &VehicleClass, index: usize, seed: u64) -> SimVehicle {
@@ -348,7 +355,7 @@ fn simulate_vehicle(config: &SimConfig, class: &VehicleClass, index: usize, seed
                 Component::Friction => 2.0,
                 Component::Disc => 0.8,
             };
-            parts.push(PartState { axle_index: a.axle_index, component, new_mm, min_mm, margin_mm, rate, thickness, crossed: None });
+            parts.push(PartState { axle_index: a.axle_index, component, new_mm, min_mm, margin_mm, rate, thickness, crossed: None, thickness_at_cut: f64::NAN });
         }
     }
 
@@ -376,6 +383,11 @@ fn simulate_vehicle(config: &SimConfig, class: &VehicleClass, index: usize, seed
     for d in 0..total_days {
         let day = day0 + d as i64;
         let in_history = d < config.history_days;
+        if d == config.history_days {
+            for p in parts.iter_mut() {
+                p.thickness_at_cut = p.thickness;
+            }
+        }
         // 05:00: replacements decided at yesterday's inspection, then today's inspection.
         if in_history {
             for &i in &pending {
@@ -457,7 +469,11 @@ fn simulate_vehicle(config: &SimConfig, class: &VehicleClass, index: usize, seed
     }
     let truth = parts
         .iter()
-        .map(|p| TrueCrossing { axle_index: p.axle_index, component: p.component, crossing_day: p.crossed, true_rate_mm_per_mj: p.rate })
+        .map(|p| TrueCrossing { axle_index: p.axle_index, component: p.component, crossing_day: p.crossed,
+            true_rate_mm_per_mj: p.rate,
+            // Without a future the loop ends at the cut.
+            thickness_at_cut_mm: if p.thickness_at_cut.is_nan() { p.thickness } else { p.thickness_at_cut },
+        })
         .collect();
     SimVehicle {
         vehicle_id,

@@ -2,6 +2,7 @@
 
 mod calibration;
 mod distributions;
+mod energy_rate_checks;
 mod event_order;
 mod forecast_behaviour;
 mod invariants;

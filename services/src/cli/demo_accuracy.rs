@@ -86,9 +86,10 @@ pub async fn score_fleet(
 
 /// The scorecard as text.
 pub fn render_accuracy(report: &AccuracyReport, listed: usize) -> String {
+    let all = &report.overall;
     let ratio = |baseline: f64| {
         if baseline > 0.0 {
-            format!("{:.2} times", baseline / report.median_mae_days.max(f64::MIN_POSITIVE))
+            format!("{:.2} times", baseline / all.median_mae_days.max(f64::MIN_POSITIVE))
         } else {
             "-".to_owned()
         }
@@ -98,15 +99,21 @@ pub fn render_accuracy(report: &AccuracyReport, listed: usize) -> String {
         ("mean error of the date (days)", crate::cli::table::Align::Right),
         ("error relative to brakeledger", crate::cli::table::Align::Right),
     ]);
-    table.row(vec!["brakeledger median".into(), format!("{:.1}", report.median_mae_days), "1.00 times".into()]);
-    table.row(vec!["fixed mileage interval".into(), format!("{:.1}", report.mileage_baseline_mae_days), ratio(report.mileage_baseline_mae_days)]);
-    table.row(vec!["odometer straight line".into(), format!("{:.1}", report.odometer_baseline_mae_days), ratio(report.odometer_baseline_mae_days)]);
+    table.row(vec!["brakeledger median".into(), format!("{:.1}", all.median_mae_days), "1.00 times".into()]);
+    table.row(vec!["oracle (true wear known)".into(), format!("{:.1}", all.oracle_mae_days), ratio(all.oracle_mae_days)]);
+    table.row(vec!["fixed mileage interval".into(), format!("{:.1}", all.mileage_baseline_mae_days), ratio(all.mileage_baseline_mae_days)]);
+    table.row(vec!["odometer straight line".into(), format!("{:.1}", all.odometer_baseline_mae_days), ratio(all.odometer_baseline_mae_days)]);
     format!(
-        "{listed} forecasts read over gRPC; {} parts whose true date lies ahead were scored.\n\
+        "{listed} forecasts read over gRPC; {} parts were scored ({} without a date, {} already worn\n\
+         out, {} not worn out within the simulated {:.0} days).\n\
          The true date fell inside the {:.0} % band for {:.1} % of them.\n\n{}",
-        report.parts,
+        all.parts,
+        all.undated,
+        all.past_minimum,
+        all.beyond_horizon,
+        report.horizon_days,
         report.band_level * 100.0,
-        report.band_coverage * 100.0,
+        all.band_coverage * 100.0,
         table.render()
     )
 }
