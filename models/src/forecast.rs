@@ -34,7 +34,7 @@ use statrs::distribution::{ContinuousCDF, Normal};
 pub use crate::settings::ForecastSettings;
 use crate::energy_rate::{estimate_energy_rate, EnergyRate};
 use crate::first_passage::FirstPassage;
-use crate::pooling::{combine, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, RatePrior};
+use crate::pooling::{combine, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
 use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -381,7 +381,21 @@ pub fn forecast_part(
                 ));
                 (last.thickness_mm, settings.gauge_sd_mm.powi(2), current_cumulative_energy_mj - last.energy_mj)
             } else {
-                (anchor_mm, anchor_var, d)
+                // Within reach of the line: today's thickness starts from the precision-weighted
+                // blend of the line's value at the latest inspection and the reading itself.
+                // The line's variance holds its own uncertainty plus the wear the line cannot
+                // follow (the residual variance beyond gauge noise); the reading's is the gauge.
+                let x = last.energy_mj - anchor_energy;
+                let gauge2 = settings.gauge_sd_mm.powi(2).max(1e-12);
+                let off_line2 = (sigma * sigma - gauge2).max(0.0);
+                let line_var = anchor_var + rate.variance * x * x + off_line2;
+                if line_var > 0.0 {
+                    let precision = 1.0 / line_var + 1.0 / gauge2;
+                    let blended = (on_line / line_var + last.thickness_mm / gauge2) / precision;
+                    (blended, 1.0 / precision, current_cumulative_energy_mj - last.energy_mj)
+                } else {
+                    (anchor_mm, anchor_var, d)
+                }
             }
         }
         None => (anchor_mm, anchor_var, d),
@@ -414,7 +428,11 @@ pub fn forecast_part(
     // Common random numbers: the draws depend on the seed (set per vehicle by the caller), the
     // axle and the component only, never on the data or the clock, so a forecast recomputed
     // with a little more data moves smoothly instead of jumping with Monte Carlo noise.
-    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, today_day, settings);
+    let drift_sd = match prior {
+        Some(p) => p.rate_drift_sd,
+        None => wear_drift_sd(sigma, settings),
+    };
+    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, drift_sd, today_day, settings);
     if outlook.due.is_none() {
         notes.push("the Monte Carlo produced no finite due date".into());
     }
@@ -453,6 +471,7 @@ fn monte_carlo_due(
     anchor_var: f64,
     d: f64,
     energy: &EnergyRate,
+    drift_sd: f64,
     today_day: f64,
     settings: &ForecastSettings,
 ) -> Option<DueDistribution> {
@@ -473,6 +492,7 @@ fn monte_carlo_due(
         let zk: f64 = rng.sample(StandardNormal);
         let za: f64 = rng.sample(StandardNormal);
         let zm: f64 = rng.sample(StandardNormal);
+        let zf: f64 = rng.sample(StandardNormal);
         let k = (rate.mean + k_sd * zk).max(k_floor);
         let thickness = anchor_mm + a_sd * za - k * d;
         let margin = thickness - history.min_thickness_mm;
@@ -480,7 +500,8 @@ fn monte_carlo_due(
             out.push(today_day);
             continue;
         }
-        let remaining_mj = margin / k;
+        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
+        let remaining_mj = margin / (k * (drift_sd * zf).exp());
         let mu = (energy.mean_mj_per_day + mu_sd * zm).max(mu_floor);
         let days = match FirstPassage::new(remaining_mj, mu, energy.variance_mj2_per_day) {
             Ok(fp) => fp.sample(&mut rng),

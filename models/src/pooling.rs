@@ -123,6 +123,23 @@ pub struct RatePrior {
     pub residual_autocorrelation: f64,
     /// Whether the mean was moved by the vehicle's own pad (a rotor or drum).
     pub from_pad: bool,
+    /// Log-SD of the drift of the wear rate from today on ([`wear_drift_sd`]).
+    pub rate_drift_sd: f64,
+}
+
+/// The allowance for the wear rate to drift from today on, as a log-SD:
+/// `c·√max(0, 1 − g²/σ₀²)`, with `σ₀` the group's residual SD, `g` the gauge noise and `c` =
+/// [`ForecastSettings::wear_rate_relative_sd`]. The share of the residual variance that gauge
+/// noise does not explain is wear that does not follow a straight line in energy (heat, duty,
+/// lining batch): where the past shows it, the future will too. A group whose residuals are
+/// gauge noise alone gets no allowance.
+pub fn wear_drift_sd(residual_sd_mm: f64, settings: &ForecastSettings) -> f64 {
+    let c = if settings.wear_rate_relative_sd.is_finite() { settings.wear_rate_relative_sd.max(0.0) } else { 0.0 };
+    if residual_sd_mm.is_nan() || residual_sd_mm <= 0.0 {
+        return 0.0;
+    }
+    let gauge = settings.gauge_sd_mm.max(0.0);
+    c * (1.0 - (gauge / residual_sd_mm).powi(2)).max(0.0).sqrt()
 }
 
 /// A stable key for a vehicle from its identifiers (FNV-1a, 64-bit).
@@ -223,7 +240,7 @@ impl WearPrior {
 
     /// The prior for vehicle `vehicle_key`: the group without that vehicle's own fit, with the
     /// predictive variance τ² + 1/W₋ᵢ (module docs).
-    pub fn predictive_for(&self, vehicle_key: u64) -> RatePrior {
+    pub fn predictive_for(&self, vehicle_key: u64, settings: &ForecastSettings) -> RatePrior {
         let tau2 = self.between_sd_mm_per_mj.powi(2);
         let (mut w, mut wk, mut n) = (self.weight_sum, self.weighted_rate_sum, self.vehicles);
         if let Some(m) = self.member(vehicle_key) {
@@ -246,14 +263,18 @@ impl WearPrior {
             residual_sd_mm: self.residual_sd_mm,
             residual_autocorrelation: self.residual_autocorrelation,
             from_pad: false,
+            rate_drift_sd: wear_drift_sd(self.residual_sd_mm, settings),
         }
     }
 
     /// The prior of a rotor (drum) of vehicle `vehicle_key` given its own pad's posterior rate
-    /// `(mean, variance)` and the pad's prior mean, mm/MJ (module docs). Without a coupling it is
-    /// [`Self::predictive_for`].
-    pub fn predictive_given_pad(&self, vehicle_key: u64, pad_posterior: (f64, f64), pad_prior_mean: f64) -> RatePrior {
-        let base = self.predictive_for(vehicle_key);
+    /// `(mean, variance)` and the pad's prior (module docs). Without a coupling it is
+    /// [`Self::predictive_for`]. The rotor's drift allowance is at least its pad's: both wear on
+    /// one brake at one temperature.
+    pub fn predictive_given_pad(&self, vehicle_key: u64, pad_posterior: (f64, f64), pad_prior: &RatePrior, settings: &ForecastSettings) -> RatePrior {
+        let mut base = self.predictive_for(vehicle_key, settings);
+        base.rate_drift_sd = base.rate_drift_sd.max(pad_prior.rate_drift_sd);
+        let pad_prior_mean = pad_prior.mean_mm_per_mj;
         let Some(c) = self.pad_coupling else { return base };
         let (m_p, v_p) = pad_posterior;
         if !(m_p.is_finite() && v_p.is_finite() && pad_prior_mean.is_finite()) {

@@ -15,11 +15,22 @@ pub struct ForecastSettings {
     /// Relative SD allowed for changes in daily energy the window cannot show (season, route).
     /// 0.12 was chosen so the simulator's 80% bands cover about 80% (see `calibration`).
     pub energy_rate_relative_sd: f64,
+    /// Scale `c` of the allowance for the wear rate to drift from today on (a log-SD; see
+    /// [`crate::pooling::wear_drift_sd`]): wear per MJ drifts with brake temperature, duty and
+    /// lining batch, so the past rate is not the future one even when it is known exactly.
+    /// Applied to the future wear only. 0.25 was chosen on the tuning seeds of both test-fleet
+    /// generators (see `calibration`), not measured on real fleets.
+    pub wear_rate_relative_sd: f64,
     /// Monte Carlo draws per part.
     pub monte_carlo_draws: usize,
     /// Seed of the Monte Carlo (mixed with the axle and component). Callers set one per vehicle
     /// (see [`crate::forecast::vehicle_seed`]) so that vehicles do not share random streams.
     pub seed: u64,
+    /// Half-life of the weights of older inspections in the wear fit, days (weighted least
+    /// squares, weight `2^(−age/h)` from the part's latest inspection); infinity weighs all
+    /// alike. Wear per MJ drifts with duty, so recent wear says more about the wear to come.
+    /// 365 days was chosen on the tuning seeds.
+    pub fit_half_life_days: f64,
     /// Fit hot-stop energy as its own regressor.
     pub hot_regressor: bool,
     /// Fit a bedding-in intercept common to cycles that began with a recorded replacement.
@@ -50,8 +61,10 @@ impl Default for ForecastSettings {
             energy_window_days: 120,
             energy_half_life_days: 60.0,
             energy_rate_relative_sd: 0.12,
+            wear_rate_relative_sd: 0.25,
             monte_carlo_draws: 1000,
             seed: 0x5eed_b4a7,
+            fit_half_life_days: 365.0,
             hot_regressor: false,
             bedding_intercept: false,
             gauge_sd_mm: 0.3,

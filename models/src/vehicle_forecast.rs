@@ -5,7 +5,7 @@
 
 use crate::domain::Component;
 use crate::forecast::{forecast_part, PartOutlook};
-use crate::pooling::WearPrior;
+use crate::pooling::{RatePrior, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
@@ -41,8 +41,8 @@ pub fn forecast_vehicle<'p>(
     settings: &ForecastSettings,
 ) -> Vec<PartForecast> {
     let mut out: Vec<Option<PartForecast>> = vec![None; parts.len()];
-    // (axle, posterior mean, posterior variance, prior mean) of each forecast pad.
-    let mut pads: Vec<(u32, f64, f64, f64)> = Vec::new();
+    // (axle, posterior mean, posterior variance, prior) of each forecast pad.
+    let mut pads: Vec<(u32, f64, f64, RatePrior)> = Vec::new();
     let order = parts
         .iter()
         .enumerate()
@@ -52,10 +52,10 @@ pub fn forecast_vehicle<'p>(
         let axle = part.history.axle_index;
         let group = prior_of(axle, part.history.component);
         let prior = group.map(|g| match part.history.component {
-            Component::Friction => g.predictive_for(vehicle_key),
+            Component::Friction => g.predictive_for(vehicle_key, settings),
             Component::Disc => match pads.iter().find(|p| p.0 == axle) {
-                Some(&(_, mean, variance, prior_mean)) => g.predictive_given_pad(vehicle_key, (mean, variance), prior_mean),
-                None => g.predictive_for(vehicle_key),
+                Some((_, mean, variance, pad_prior)) => g.predictive_given_pad(vehicle_key, (*mean, *variance), pad_prior, settings),
+                None => g.predictive_for(vehicle_key, settings),
             },
         });
         let own_fit = fit_part_any_sign(part.history, settings).ok();
@@ -72,7 +72,7 @@ pub fn forecast_vehicle<'p>(
             if let Some(p) = &prior {
                 let (mean, sd) = (outlook.wear_rate_mm_per_mj, outlook.wear_rate_stderr_mm_per_mj);
                 if mean.is_finite() && sd.is_finite() {
-                    pads.push((axle, mean, sd * sd, p.mean_mm_per_mj));
+                    pads.push((axle, mean, sd * sd, *p));
                 }
             }
         }

@@ -113,6 +113,16 @@ pub fn rate_sums(history: &PartHistory) -> RateSums {
     sums
 }
 
+/// Weight of an inspection `age_days` older than the part's latest: `2^(−age/h)`, 1 when the
+/// half-life `h` is not a positive finite number.
+fn recency_weight(age_days: f64, half_life_days: f64) -> f64 {
+    if half_life_days.is_finite() && half_life_days > 0.0 && age_days.is_finite() {
+        (-age_days.max(0.0) / half_life_days * std::f64::consts::LN_2).exp()
+    } else {
+        1.0
+    }
+}
+
 fn usable(cycle: &WearCycle) -> bool {
     match cycle.start {
         Some(_) => !cycle.points.is_empty(),
@@ -159,6 +169,7 @@ pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> 
     let mut y: Vec<f64> = Vec::new();
     let mut energy_total = 0.0;
     let mut hot_total = 0.0;
+    let latest_day = cycles.iter().flat_map(|c| c.points.iter().map(|p| p.day)).fold(f64::NEG_INFINITY, f64::max);
     // Index of the first row of each cycle, to pair consecutive residuals within a cycle.
     let mut cycle_first_row: Vec<usize> = Vec::new();
     for (ci, cycle) in cycles.iter().enumerate() {
@@ -180,8 +191,9 @@ pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> 
             } else if bedding {
                 row[p - 1] = 1.0;
             }
-            rows.extend_from_slice(&row);
-            y.push(reference_mm - point.thickness_mm);
+            let weight = recency_weight(latest_day - point.day, settings.fit_half_life_days).sqrt();
+            rows.extend(row.iter().map(|v| v * weight));
+            y.push((reference_mm - point.thickness_mm) * weight);
         }
         if let Some(last) = cycle.points.last() {
             energy_total += (last.energy_mj - origin).max(0.0);

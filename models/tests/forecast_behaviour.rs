@@ -29,6 +29,7 @@ pub fn prior() -> RatePrior {
         residual_sd_mm: 0.3,
         residual_autocorrelation: 0.0,
         from_pad: false,
+        rate_drift_sd: 0.0,
     }
 }
 

@@ -34,7 +34,7 @@ fn a_homogeneous_group_still_leaves_room_for_the_vehicle_own_data() {
     let prior = estimate_prior(&fits, &settings).expect("prior");
     assert!(prior.between_sd_mm_per_mj >= 0.1 * prior.mean_mm_per_mj * (1.0 - 1e-12), "floored τ: {}", prior.between_sd_mm_per_mj);
     // A new vehicle whose own data say 6e-4 moves the posterior away from the prior mean.
-    let newcomer = prior.predictive_for(vehicle_key(&["test", "new"]));
+    let newcomer = prior.predictive_for(vehicle_key(&["test", "new"]), &settings);
     assert!(newcomer.variance > prior.between_sd_mm_per_mj.powi(2), "predictive variance adds the mean's uncertainty");
     let own = fit_with(6e-4, 0.2);
     let own_var = own_rate_variance(&own, prior.residual_sd_mm, prior.residual_autocorrelation, &settings);
@@ -50,7 +50,7 @@ fn the_prior_a_vehicle_is_shrunk_toward_leaves_that_vehicle_out() {
     let fits = keyed(rates.iter().map(|r| fit_with(*r, 0.15)).collect());
     let prior = estimate_prior(&fits, &settings).expect("prior");
     let outlier_key = fits[4].0;
-    let loo = prior.predictive_for(outlier_key);
+    let loo = prior.predictive_for(outlier_key, &settings);
     // The others' precision-weighted mean at the group's τ² (computed independently here).
     let tau2 = prior.between_sd_mm_per_mj.powi(2);
     let (mut sw, mut swk) = (0.0, 0.0);
@@ -65,7 +65,7 @@ fn the_prior_a_vehicle_is_shrunk_toward_leaves_that_vehicle_out() {
     assert_eq!(loo.vehicles, 4);
     assert!((loo.variance - (tau2 + 1.0 / sw)).abs() < 1e-9 * loo.variance);
     // A vehicle outside the group sees the whole group.
-    let outsider = prior.predictive_for(vehicle_key(&["test", "elsewhere"]));
+    let outsider = prior.predictive_for(vehicle_key(&["test", "elsewhere"]), &settings);
     assert!((outsider.mean_mm_per_mj - prior.mean_mm_per_mj).abs() < 1e-15);
     assert_eq!(outsider.vehicles, 5);
 }
@@ -104,14 +104,14 @@ fn a_rotor_borrows_from_its_own_pad() {
     rotor_prior.pad_coupling = Some(coupling);
     // A new vehicle with a fast pad: its rotor prior moves up, and narrows.
     let key = vehicle_key(&["test", "new"]);
-    let plain = rotor_prior.predictive_for(key);
+    let plain = rotor_prior.predictive_for(key, &settings);
     let fast_pad = (pad_prior.mean_mm_per_mj * 1.5, (0.05 * pad_prior.mean_mm_per_mj).powi(2));
-    let given: RatePrior = rotor_prior.predictive_given_pad(key, fast_pad, pad_prior.mean_mm_per_mj);
+    let given: RatePrior = rotor_prior.predictive_given_pad(key, fast_pad, &pad_prior.predictive_for(key, &settings), &settings);
     assert!(given.from_pad);
     assert!(given.mean_mm_per_mj > plain.mean_mm_per_mj * 1.2, "{} vs {}", given.mean_mm_per_mj, plain.mean_mm_per_mj);
     assert!(given.variance < plain.variance);
     // A pad exactly at its prior mean moves nothing.
-    let average = rotor_prior.predictive_given_pad(key, (pad_prior.mean_mm_per_mj, 0.0), pad_prior.mean_mm_per_mj);
+    let average = rotor_prior.predictive_given_pad(key, (pad_prior.mean_mm_per_mj, 0.0), &pad_prior.predictive_for(key, &settings), &settings);
     assert!((average.mean_mm_per_mj - plain.mean_mm_per_mj).abs() < 1e-15);
 }
 
