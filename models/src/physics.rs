@@ -10,15 +10,24 @@
 //! ```
 //! with `f` the rotating-mass factor, `c_rr` the rolling-resistance coefficient, `ρ·CdA` the
 //! air density times drag area (small-grade approximation cos θ ≈ 1). When `E > 0` the
-//! vehicle is braking: regeneration takes up to `P_regen·Δt`, the friction brakes the rest.
-//! A brake application is a run of consecutive braking intervals.
+//! vehicle is braking. The braking energy goes first to regeneration (up to `P_regen·Δt`),
+//! then to a retarder or engine brake (up to `P_retarder·Δt`), and the friction brakes take
+//! the rest: friction = braking − regeneration − retarder. (Regeneration before the retarder
+//! is how blended brake controllers usually rank them: common practice, no source.) A brake
+//! application is a run of consecutive intervals in which the friction brakes work.
 //!
-//! # Axle split
-//! Static split: the configured energy shares. Dynamic split under deceleration `a` (weight
-//! transfer with ideal force distribution): the front axle's share rises by `a·h/(g·L)` (`h` the
-//! centre-of-gravity height, `L` the wheelbase) and the other axles give it up in proportion
-//! to their static shares (axle loads `static ± m·a·h/L`; Gillespie, *Fundamentals of Vehicle
-//! Dynamics*, SAE 1992, ch. 3).
+//! # Axle split: weight transfer
+//! The configured shares are the split at zero deceleration. Under a braking deceleration the
+//! load moves to the front axle: with `h` the centre-of-gravity height and `L` the wheelbase,
+//! the dynamic axle loads are `W_front = W_front,static + m·D·h/L` and
+//! `W_rear = W_rear,static − m·D·h/L` (Gillespie, *Fundamentals of Vehicle Dynamics*, SAE 1992,
+//! ch. 3; the same relation gives the dynamic axle loads of UN ECE Regulation No. 13, Annex 10).
+//! On a grade the component of gravity along the road adds to the inertial force, so the
+//! deceleration that loads the front axle is `D = (v₀ − v₁)/Δt − g·Δh/Δs` (a steady descent
+//! loads the front axle too). With an ideal force distribution each axle brakes in proportion
+//! to its load, so the front share rises by `D·h/(g·L)` and the other axles give it up in
+//! proportion to their static shares ([`dynamic_axle_shares`]); each interval's friction energy
+//! is split with the shares of its own deceleration. `h = 0` keeps the static split.
 //!
 //! # Heat
 //! The fraction of friction heat entering the rotor is the thermal-effusivity ratio
@@ -54,8 +63,15 @@ pub struct BrakingVehicle {
     pub air_density_kg_per_m3: f64,
     /// Largest regenerative braking power, W (0 without regeneration).
     pub regen_max_power_w: f64,
-    /// Share of friction energy per axle, front first (sums to 1).
+    /// Largest power of a retarder or engine brake, W (0 without one). Used after
+    /// regeneration and before the friction brakes on every braking interval.
+    pub retarder_max_power_w: f64,
+    /// Share of friction energy per axle at zero deceleration, front first (sums to 1).
     pub axle_shares: Vec<f64>,
+    /// Height of the centre of gravity above the road, m (0: no weight transfer).
+    pub cg_height_m: f64,
+    /// Wheelbase, m: front axle to the rear axle (or the centre of the rear axle group).
+    pub wheelbase_m: f64,
     /// Mass of one rotor (or drum) per axle, kg; two per axle.
     pub rotor_mass_kg: Vec<f64>,
     /// Specific heat of the rotor material, J/(kg·K).
@@ -77,6 +93,8 @@ pub struct TripEnergy {
     pub axle_energy_j: Vec<f64>,
     /// Regenerated energy, J.
     pub regen_energy_j: f64,
+    /// Energy taken by the retarder or engine brake, J (not part of `friction_energy_j`).
+    pub retarder_energy_j: f64,
     /// Brake applications.
     pub brake_applications: u32,
     /// Friction energy of hot stops, J.
@@ -127,7 +145,7 @@ pub fn dynamic_axle_shares(static_shares: &[f64], deceleration_m_per_s2: f64, cg
     out[0] += transfer;
     if rear_total > 0.0 {
         for share in &mut out[1..] {
-            *share -= transfer * *share / rear_total;
+            *share = (*share - transfer * *share / rear_total).max(0.0);
         }
     }
     let total: f64 = out.iter().sum();
@@ -135,6 +153,17 @@ pub fn dynamic_axle_shares(static_shares: &[f64], deceleration_m_per_s2: f64, cg
         out.iter_mut().for_each(|s| *s /= total);
     }
     out
+}
+
+/// The deceleration that transfers load to the front axle over one interval, m/s²: the
+/// speed lost per second plus the component of gravity along a descent (see the module docs),
+/// never negative.
+pub fn loading_deceleration_m_per_s2(v0_m_per_s: f64, v1_m_per_s: f64, dt_s: f64, dh_m: f64, ds_m: f64) -> f64 {
+    if !(dt_s > 0.0) {
+        return 0.0;
+    }
+    let grade = if ds_m > 0.0 { -dh_m / ds_m } else { 0.0 };
+    ((v0_m_per_s - v1_m_per_s) / dt_s + STANDARD_GRAVITY_M_PER_S2 * grade).max(0.0)
 }
 
 /// Integrates a speed trace into a [`TripEnergy`] (see the module docs). Intervals with
@@ -148,20 +177,22 @@ pub fn summarise_trace(trace: &[TracePoint], vehicle: &BrakingVehicle) -> TripEn
         friction_energy_j: 0.0,
         axle_energy_j: vec![0.0; axles],
         regen_energy_j: 0.0,
+        retarder_energy_j: 0.0,
         brake_applications: 0,
         hot_energy_j: 0.0,
     };
     let mut in_application = false;
-    let mut application_j = 0.0;
-    let close_application = |energy_j: f64, out: &mut TripEnergy| {
-        let hot = vehicle.axle_shares.iter().enumerate().any(|(i, share)| {
+    // Friction energy of the current application per axle, J.
+    let mut application_j = vec![0.0; axles];
+    let close_application = |axle_j: &[f64], out: &mut TripEnergy| {
+        let hot = axle_j.iter().enumerate().any(|(i, energy_j)| {
             let rotor = vehicle.rotor_mass_kg.get(i).copied().unwrap_or(0.0);
             // Two rotors (or drums) per axle share the axle's energy.
-            bulk_temperature_rise_k(vehicle.rotor_heat_share, share * energy_j / 2.0, rotor, vehicle.rotor_specific_heat_j_per_kg_k)
+            bulk_temperature_rise_k(vehicle.rotor_heat_share, energy_j / 2.0, rotor, vehicle.rotor_specific_heat_j_per_kg_k)
                 > vehicle.hot_rise_threshold_k
         });
         if hot {
-            out.hot_energy_j += energy_j;
+            out.hot_energy_j += axle_j.iter().sum::<f64>();
         }
     };
     for pair in trace.windows(2) {
@@ -184,29 +215,33 @@ pub fn summarise_trace(trace: &[TracePoint], vehicle: &BrakingVehicle) -> TripEn
             - 0.5 * vehicle.air_density_kg_per_m3 * vehicle.drag_area_m2 * v2 * ds;
         if absorbed > 0.0 {
             let regen = absorbed.min(vehicle.regen_max_power_w.max(0.0) * dt);
-            let friction = absorbed - regen;
+            let retarder = (absorbed - regen).min(vehicle.retarder_max_power_w.max(0.0) * dt);
+            let friction = absorbed - regen - retarder;
             out.regen_energy_j += regen;
+            out.retarder_energy_j += retarder;
             out.friction_energy_j += friction;
-            for (e, share) in out.axle_energy_j.iter_mut().zip(&vehicle.axle_shares) {
-                *e += share * friction;
-            }
+            let deceleration = loading_deceleration_m_per_s2(v0, v1, dt, dh, ds);
+            let shares = dynamic_axle_shares(&vehicle.axle_shares, deceleration, vehicle.cg_height_m, vehicle.wheelbase_m);
             if friction > 0.0 {
                 if !in_application {
                     in_application = true;
                     out.brake_applications += 1;
-                    application_j = 0.0;
+                    application_j.iter_mut().for_each(|e| *e = 0.0);
                 }
-                application_j += friction;
+                for ((total, current), share) in out.axle_energy_j.iter_mut().zip(application_j.iter_mut()).zip(&shares) {
+                    *total += share * friction;
+                    *current += share * friction;
+                }
                 continue;
             }
         }
         if in_application {
-            close_application(application_j, &mut out);
+            close_application(&application_j, &mut out);
             in_application = false;
         }
     }
     if in_application {
-        close_application(application_j, &mut out);
+        close_application(&application_j, &mut out);
     }
     out
 }
@@ -223,7 +258,10 @@ mod tests {
             drag_area_m2: 0.0,
             air_density_kg_per_m3: 1.2,
             regen_max_power_w: 0.0,
+            retarder_max_power_w: 0.0,
             axle_shares: vec![0.7, 0.3],
+            cg_height_m: 0.0,
+            wheelbase_m: 2.7,
             rotor_mass_kg: vec![7.0, 5.0],
             rotor_specific_heat_j_per_kg_k: 490.0,
             rotor_heat_share: 0.9,
@@ -309,7 +347,10 @@ mod tests {
             drag_area_m2: 6.0,
             air_density_kg_per_m3: 1.2,
             regen_max_power_w: 0.0,
+            retarder_max_power_w: 0.0,
             axle_shares: vec![0.4, 0.3, 0.3],
+            cg_height_m: 1.5,
+            wheelbase_m: 5.0,
             rotor_mass_kg: vec![35.0, 35.0, 35.0],
             rotor_specific_heat_j_per_kg_k: 490.0,
             rotor_heat_share: 0.9,
@@ -326,6 +367,12 @@ mod tests {
         assert_eq!(trip.brake_applications, 1, "one continuous application");
         // The whole descent is one long application, far above the threshold: all hot.
         assert!((trip.hot_energy_j - trip.friction_energy_j).abs() < 1.0);
+        // A steady descent loads the front axle as braking does: the grade's share of gravity,
+        // g·Δh/Δs, is the loading deceleration, so the front share rises by (Δh/Δs)·h/L =
+        // (500/8000)·1.5/5 = 0.01875 (g cancels), and the two rear axles give it up equally.
+        let front = trip.axle_energy_j[0] / trip.friction_energy_j;
+        assert!((front - 0.41875).abs() < 1e-9, "{front}");
+        assert!((trip.axle_energy_j[1] - trip.axle_energy_j[2]).abs() < 1e-6 * trip.friction_energy_j);
     }
 
     #[test]
@@ -350,7 +397,7 @@ mod tests {
     }
 
     /// Weight transfer: front share rises by a·h/(g·L). Braking at 0.5 g with h/L = 0.2 moves
-    /// 0.1 of the load to the front (Gillespie ch. 3 load-transfer formula).
+    /// 0.1 of the load to the front (Gillespie ch. 3 load-transfer formula, evaluated by hand).
     #[test]
     fn dynamic_split_moves_share_to_the_front() {
         let shares = dynamic_axle_shares(&[0.6, 0.4], 0.5 * 9.806_65, 0.6, 3.0);
@@ -360,5 +407,80 @@ mod tests {
         assert!((three[1] - three[2]).abs() < 1e-12);
         assert!((three.iter().sum::<f64>() - 1.0).abs() < 1e-12);
         assert_eq!(dynamic_axle_shares(&[0.6, 0.4], 0.0, 0.6, 3.0), vec![0.6, 0.4]);
+    }
+
+    /// Dynamic axle loads under braking, from the handbook relation W_f = W_f,static + m·D·h/L
+    /// (Gillespie, Fundamentals of Vehicle Dynamics, SAE 1992, ch. 3; recalled from memory, as
+    /// is its use for the dynamic axle loads of UN ECE Regulation No. 13, Annex 10). No
+    /// published numeric example was at hand, so the figures are evaluated by hand here: a
+    /// 1500 kg car, wheelbase 2.7 m, centre of gravity 0.55 m high, 60 % of its weight on the
+    /// front axle at rest, braking at 0.8 g. Static front load 0.6·1500·9.80665 = 8 826.0 N;
+    /// transfer 1500·0.8·9.80665·0.55/2.7 = 2 397.2 N; front 11 223.2 N of 14 710.0 N = 76.30 %.
+    /// The rear axle is unloaded (share 0) at D = g·0.4·L/h = 1.964 g: the tipping limit.
+    #[test]
+    fn dynamic_axle_loads_of_a_braking_car() {
+        let g = 9.806_65;
+        let shares = dynamic_axle_shares(&[0.6, 0.4], 0.8 * g, 0.55, 2.7);
+        let weight_n = 1500.0 * g;
+        assert!((shares[0] * weight_n - 11_223.2).abs() < 0.1, "{}", shares[0] * weight_n);
+        assert!((shares[1] * weight_n - (14_710.0 - 11_223.2)).abs() < 0.1);
+        let tipping = dynamic_axle_shares(&[0.6, 0.4], 0.4 * 2.7 / 0.55 * g, 0.55, 2.7);
+        assert!(tipping[1].abs() < 1e-12 && (tipping[0] - 1.0).abs() < 1e-12, "{tipping:?}");
+        // Beyond the tipping limit the rear share stays at 0, never negative.
+        let beyond = dynamic_axle_shares(&[0.6, 0.4], 3.0 * g, 0.55, 2.7);
+        assert!(beyond[1] >= 0.0 && (beyond[0] - 1.0).abs() < 1e-12);
+    }
+
+    /// The split of a trace follows each interval's own deceleration, not the stop's average:
+    /// a 10 t vehicle (f = 1, no road losses) stops from 20 m/s, 4 s at 3 m/s² (to 8 m/s) then
+    /// 8 s at 1 m/s². Kinetic energy ½·m·v² (Halliday, Resnick & Walker, Fundamentals of
+    /// Physics, ch. 7): phase one ½·10 000·(20² − 8²) = 1.68 MJ, phase two ½·10 000·8² =
+    /// 0.32 MJ. With h = 1 m, L = 4 m and a static front share of 0.6 the front shares are
+    /// 0.6 + 3/(4g) = 0.676479 and 0.6 + 1/(4g) = 0.625493, so the front axle takes
+    /// 1.68·0.676479 + 0.32·0.625493 = 1.336642 MJ (the stop's mean deceleration, 1.667 m/s²,
+    /// would give 1.284954 MJ; static shares 1.2 MJ).
+    #[test]
+    fn each_interval_is_split_with_its_own_weight_transfer() {
+        let mut trace = Vec::new();
+        for i in 0..=4 {
+            trace.push(TracePoint { time_s: i as f64, speed_m_per_s: 20.0 - 3.0 * i as f64, elevation_m: None });
+        }
+        for i in 1..=8 {
+            trace.push(TracePoint { time_s: 4.0 + i as f64, speed_m_per_s: 8.0 - i as f64, elevation_m: None });
+        }
+        let vehicle = BrakingVehicle { mass_kg: 10_000.0, axle_shares: vec![0.6, 0.4], cg_height_m: 1.0, wheelbase_m: 4.0, ..car() };
+        let trip = summarise_trace(&trace, &vehicle);
+        assert!((trip.friction_energy_j - 2.0e6).abs() < 1e-3, "{}", trip.friction_energy_j);
+        assert!((trip.axle_energy_j[0] - 1_336_642.0).abs() < 5.0, "{}", trip.axle_energy_j[0]);
+        assert!((trip.axle_energy_j[0] + trip.axle_energy_j[1] - trip.friction_energy_j).abs() < 1e-6);
+        assert_eq!(trip.brake_applications, 1);
+    }
+
+    /// Retarder energy is subtracted before the friction brakes see any. A 15 t truck (f = 1,
+    /// no road losses) stops from 25 m/s at 2.5 m/s² in 10 s, sampled each second: kinetic
+    /// energy ½·m·v² = ½·15 000·25² = 4 687 500 J (Halliday, Resnick & Walker, Fundamentals of
+    /// Physics, ch. 7). The smallest one-second share is the last, ½·15 000·2.5² = 46 875 J, so
+    /// a 40 kW retarder takes its full 40 kJ in each of the 10 seconds: 400 000 J, leaving
+    /// 4 287 500 J to the friction brakes. With 20 kW of regeneration as well (taken first):
+    /// 200 000 J regenerated; in the last second only 46 875 − 20 000 = 26 875 J remain for the
+    /// retarder, so it takes 9·40 000 + 26 875 = 386 875 J and the friction brakes 4 100 625 J.
+    #[test]
+    fn retarder_energy_is_subtracted_from_friction_energy() {
+        let truck = BrakingVehicle { mass_kg: 15_000.0, axle_shares: vec![0.6, 0.4], retarder_max_power_w: 40_000.0, rotor_mass_kg: vec![35.0, 35.0], ..car() };
+        let trace = stop(25.0, 10);
+        let trip = summarise_trace(&trace, &truck);
+        assert!((trip.retarder_energy_j - 400_000.0).abs() < 1e-6, "{}", trip.retarder_energy_j);
+        assert!((trip.friction_energy_j - 4_287_500.0).abs() < 1e-6, "{}", trip.friction_energy_j);
+        assert_eq!(trip.regen_energy_j, 0.0);
+        let hybrid = BrakingVehicle { regen_max_power_w: 20_000.0, ..truck };
+        let trip = summarise_trace(&trace, &hybrid);
+        assert!((trip.regen_energy_j - 200_000.0).abs() < 1e-6);
+        assert!((trip.retarder_energy_j - 386_875.0).abs() < 1e-6, "{}", trip.retarder_energy_j);
+        assert!((trip.friction_energy_j - 4_100_625.0).abs() < 1e-6, "{}", trip.friction_energy_j);
+        // A retarder strong enough for the whole stop leaves the friction brakes nothing: no
+        // brake application is counted.
+        let strong = BrakingVehicle { retarder_max_power_w: 2.0e6, ..car() };
+        let trip = summarise_trace(&trace, &strong);
+        assert_eq!((trip.friction_energy_j, trip.brake_applications), (0.0, 0));
     }
 }

@@ -5,7 +5,11 @@
 //! Earliest-deadline-first with bundling, a greedy list schedule:
 //! 1. Parts whose due date (`due_day`, the calendar day of the lower end of the due band) falls
 //!    on or before the plan's last day must be booked. A part can be booked on a day `d` with
-//!    `from_day ≤ d < due_day`: strictly before the day it may first reach its minimum.
+//!    `from_day ≤ d < due_day`: strictly before the day it may first reach its minimum. A part
+//!    already due when the plan starts (`due_day ≤ from_day`: due now, or overdue) can be
+//!    booked on any day of the plan; being earliest-due, it is booked first, on the first day
+//!    with enough free hours. None is ever dropped: what cannot be booked is listed with the
+//!    reason.
 //! 2. Take the unbooked mandatory part with the earliest due day (ties: vehicle, axle,
 //!    component). Its visit bundles every other unbooked part of the same vehicle due within
 //!    `bundle_within_days` of it (including parts due after the plan ends: booking them now
@@ -71,8 +75,8 @@ impl PlannedVisit {
 /// Why a mandatory part could not be booked.
 #[derive(Debug, Clone, PartialEq)]
 pub enum UnplannedReason {
-    /// Its due day is on or before the plan's first day.
-    AlreadyDue,
+    /// It was already due when the plan starts and no day of the plan has the hours free.
+    AlreadyDueNoCapacity,
     /// The job alone takes more hours than a day has.
     LongerThanADay,
     /// Every day before its due day is full.
@@ -83,7 +87,7 @@ impl UnplannedReason {
     /// Plain-words reason.
     pub fn describe(&self) -> &'static str {
         match self {
-            UnplannedReason::AlreadyDue => "due on or before the plan's first day: book it at once",
+            UnplannedReason::AlreadyDueNoCapacity => "already due, and every workshop day of the plan is full: book it at once elsewhere",
             UnplannedReason::LongerThanADay => "the job takes more hours than the workshop has in a day",
             UnplannedReason::NoCapacity => "every workshop day before its due date is full",
         }
@@ -130,10 +134,7 @@ pub fn plan_visits(parts: &[PlanPart], limits: &PlanLimits) -> VisitPlan {
             continue;
         }
         settled[anchor] = true;
-        if anchor_part.due_day <= limits.from_day {
-            plan.unplanned.push((anchor, UnplannedReason::AlreadyDue));
-            continue;
-        }
+        let already_due = |p: &PlanPart| p.due_day <= limits.from_day;
         if anchor_part.hours > limits.capacity_hours_per_day {
             plan.unplanned.push((anchor, UnplannedReason::LongerThanADay));
             continue;
@@ -145,10 +146,10 @@ pub fn plan_visits(parts: &[PlanPart], limits: &PlanLimits) -> VisitPlan {
                 && !settled[j]
                 && parts[j].vehicle_id == anchor_part.vehicle_id
                 && parts[j].due_day <= anchor_part.due_day + limits.bundle_within_days
-                && parts[j].due_day > limits.from_day
         }));
-        let last_day = (anchor_part.due_day - 1).min(limits.to_day);
         let booked = loop {
+            // The latest day that is before the due day of every part of the bundle not yet due.
+            let last_day = bundle.iter().filter(|&&i| !already_due(&parts[i])).map(|&i| parts[i].due_day - 1).fold(limits.to_day, i64::min);
             let jobs: Vec<(usize, f64)> = bundle.iter().map(|&i| (i, charged_hours(parts, i, &bundle))).collect();
             let need: f64 = jobs.iter().map(|(_, h)| h).sum();
             let day = (limits.from_day..=last_day).find(|d| free_hours[(d - limits.from_day) as usize] + 1e-9 >= need);
@@ -168,6 +169,7 @@ pub fn plan_visits(parts: &[PlanPart], limits: &PlanLimits) -> VisitPlan {
                 }
                 plan.visits.push(PlannedVisit { vehicle_id: anchor_part.vehicle_id.clone(), day, jobs });
             }
+            None if already_due(anchor_part) => plan.unplanned.push((anchor, UnplannedReason::AlreadyDueNoCapacity)),
             None => plan.unplanned.push((anchor, UnplannedReason::NoCapacity)),
         }
     }
@@ -211,8 +213,30 @@ mod tests {
         // Days 100 and 101 are before the due day 102: room for two 3-hour jobs in all.
         assert_eq!(plan.visits.len(), 2);
         assert_eq!(plan.unplanned, vec![(2, UnplannedReason::NoCapacity)]);
-        let overdue = plan_visits(&[part("d", 1, Component::Friction, 99, 1.0)], &limits(4.0));
-        assert_eq!(overdue.unplanned, vec![(0, UnplannedReason::AlreadyDue)]);
+    }
+
+    #[test]
+    fn parts_already_due_are_booked_first_on_the_first_day_with_room() {
+        // Day 100 is full with two 3-hour rotor jobs due on day 101; the overdue pad (due day
+        // 99) and the pad due now (day 100) still come first, so they take day 100.
+        let parts = vec![
+            part("a", 1, Component::Disc, 101, 3.0),
+            part("b", 1, Component::Friction, 99, 1.0),
+            part("c", 2, Component::Friction, 100, 1.5),
+        ];
+        let plan = plan_visits(&parts, &limits(4.0));
+        let day_of = |i: usize| plan.visits.iter().find(|v| v.jobs.iter().any(|(j, _)| *j == i)).map(|v| v.day);
+        assert_eq!((day_of(1), day_of(2)), (Some(100), Some(100)), "{plan:?}");
+        assert_eq!(plan.unplanned, vec![(0, UnplannedReason::NoCapacity)], "the rotor job no longer fits before day 101");
+        // With no room anywhere in the plan, an already-due part is listed with its own reason.
+        let full = PlanLimits { to_day: 100, ..limits(1.0) };
+        let plan = plan_visits(&[part("b", 1, Component::Friction, 99, 1.0), part("c", 1, Component::Friction, 100, 1.0)], &full);
+        assert_eq!(plan.visits.len(), 1);
+        assert_eq!(plan.unplanned, vec![(1, UnplannedReason::AlreadyDueNoCapacity)]);
+        // Already-due parts of one vehicle share a visit.
+        let plan = plan_visits(&[part("d", 1, Component::Friction, 98, 1.0), part("d", 2, Component::Friction, 100, 1.0)], &limits(4.0));
+        assert_eq!(plan.visits.len(), 1);
+        assert_eq!(plan.visits[0].jobs.len(), 2);
     }
 
     fn arb_parts() -> impl Strategy<Value = Vec<PlanPart>> {
@@ -243,7 +267,8 @@ mod tests {
                 prop_assert!(visit.day >= limits.from_day && visit.day <= limits.to_day);
                 *per_day.entry(visit.day).or_insert(0.0) += visit.hours();
                 for (i, _) in &visit.jobs {
-                    prop_assert!(visit.day < parts[*i].due_day, "booked on or after its due day");
+                    let already_due = parts[*i].due_day <= limits.from_day;
+                    prop_assert!(already_due || visit.day < parts[*i].due_day, "booked on or after its due day");
                     prop_assert_eq!(&parts[*i].vehicle_id, &visit.vehicle_id);
                     seen[*i] += 1;
                 }
@@ -251,8 +276,15 @@ mod tests {
             for hours in per_day.values() {
                 prop_assert!(*hours <= capacity + 1e-9);
             }
-            for (i, _) in &plan.unplanned {
+            for (i, reason) in &plan.unplanned {
                 seen[*i] += 1;
+                // No part already due is left unbooked while a day of the plan has its hours free.
+                if parts[*i].due_day <= limits.from_day && *reason != UnplannedReason::LongerThanADay {
+                    for day in limits.from_day..=limits.to_day {
+                        let used = per_day.get(&day).copied().unwrap_or(0.0);
+                        prop_assert!(capacity - used + 1e-9 < parts[*i].hours, "part {} unbooked while day {} has {} h free", i, day, capacity - used);
+                    }
+                }
             }
             for (i, p) in parts.iter().enumerate() {
                 if p.due_day <= limits.to_day {

@@ -228,6 +228,12 @@ pub fn trip_record(trip: pb::TripSummary, vehicle: &VehicleRecord, now_ms: i64) 
     if let Err(mut more) = check_trip(&vehicle.spec, &facts, now_ms as f64 / 1000.0) {
         violations.append(&mut more);
     }
+    // Retarder energy is not part of friction_energy_j: only its form is checked here.
+    if let Some(retarder) = trip.retarder_energy_j {
+        if !(retarder.is_finite() && retarder >= 0.0) {
+            violations.push(FieldViolation::new("retarder_energy_j", "must be a finite number of J, 0 or more"));
+        }
+    }
     if !violations.is_empty() {
         return Err(violations);
     }

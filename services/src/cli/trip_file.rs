@@ -28,6 +28,8 @@ Columns (CSV header names; the same keys in JSON Lines):
   brake_applications  number of brake applications (optional, default 0)
   regen_energy_j      energy recovered by regenerative braking, J (optional)
   hot_energy_j        friction energy of hot stops, J (optional; see `brakeledger summarise`)
+  retarder_energy_j   energy taken by a retarder or engine brake, J, NOT part of
+                      friction_energy_j (optional)
 Empty CSV cells of optional columns mean \"not given\". Blank lines are skipped.";
 
 /// File formats of trip files.
@@ -83,6 +85,9 @@ pub struct TripJson {
     /// Friction energy of hot stops, J.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub hot_energy_j: Option<f64>,
+    /// Energy taken by a retarder or engine brake, J (not part of `friction_energy_j`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub retarder_energy_j: Option<f64>,
 }
 
 /// A trip read from a file, with the line it came from.
@@ -134,7 +139,7 @@ pub fn read_trips(reader: impl Read, format: TripFormat, default_fleet: Option<&
 /// Columns a CSV trip file must have (besides `fleet_id` when `--fleet` is not given).
 const REQUIRED_COLUMNS: [&str; 6] = ["vehicle_id", "trip_id", "start_time", "end_time", "distance_m", "friction_energy_j"];
 /// Columns a CSV trip file may have.
-const OPTIONAL_COLUMNS: [&str; 5] = ["fleet_id", "axle_energy_j", "brake_applications", "regen_energy_j", "hot_energy_j"];
+const OPTIONAL_COLUMNS: [&str; 6] = ["fleet_id", "axle_energy_j", "brake_applications", "regen_energy_j", "hot_energy_j", "retarder_energy_j"];
 
 /// Line numbers of byte offsets in a text (the csv reader's own line count skips blank lines,
 /// so lines are counted here from the bytes).
@@ -243,6 +248,7 @@ fn read_csv(mut reader: impl Read, default_fleet: Option<&str>) -> Result<Vec<Tr
             },
             regen_energy_j: cell("regen_energy_j").and_then(|t| fields.number("regen_energy_j", t)),
             hot_energy_j: cell("hot_energy_j").and_then(|t| fields.number("hot_energy_j", t)),
+            retarder_energy_j: cell("retarder_energy_j").and_then(|t| fields.number("retarder_energy_j", t)),
         };
         let parse_errors = fields.errors;
         match raw.into_trip(line, default_fleet) {
@@ -296,6 +302,7 @@ fn read_jsonl(mut reader: impl Read, default_fleet: Option<&str>) -> Result<Vec<
             brake_applications: record.brake_applications,
             regen_energy_j: record.regen_energy_j,
             hot_energy_j: record.hot_energy_j,
+            retarder_energy_j: record.retarder_energy_j,
         };
         match raw.into_trip(line, default_fleet) {
             Ok(trip) => trips.push(TripLine { line, trip }),
@@ -355,6 +362,7 @@ struct RawTrip {
     brake_applications: u32,
     regen_energy_j: Option<f64>,
     hot_energy_j: Option<f64>,
+    retarder_energy_j: Option<f64>,
 }
 
 impl RawTrip {
@@ -402,6 +410,7 @@ impl RawTrip {
             brake_applications: self.brake_applications,
             regen_energy_j: self.regen_energy_j,
             hot_energy_j: self.hot_energy_j,
+            retarder_energy_j: self.retarder_energy_j,
         })
     }
 }

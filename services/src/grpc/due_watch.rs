@@ -14,7 +14,7 @@ use tokio_stream::wrappers::ReceiverStream;
 use tonic::Status;
 
 use crate::error::ServiceResult;
-use crate::grpc::forecast_api::{due_part, due_parts, fleet_or_default, scan_due_filtered};
+use crate::grpc::due_queries::{due_part, due_parts, known_fleet, scan_due_filtered};
 use crate::grpc::forecast_views::fleet_zone;
 use crate::state::AppState;
 use crate::store::{BandLevel, StoredPart, VehicleForecasts, MS_PER_DAY};
@@ -56,7 +56,7 @@ fn diff_vehicle(view: &mut WindowView, window: &Window, vehicle_id: &str, record
             present.insert(key.clone());
             let median = part.due_band_days(window.level.probability()).map(|b| b.1);
             let inside = window.contains(part);
-            let message = || Some(due_part(record, part, window.level.probability(), window.zone));
+            let message = || Some(due_part(record, part, window.level.probability(), window.zone, crate::convert::now_ms()));
             match (view.parts.get(&key).copied(), inside, median) {
                 (None, true, Some(m)) => {
                     view.parts.insert(key, m);
@@ -95,9 +95,9 @@ pub async fn start(state: AppState, fleet_id: String, due_before_ms: i64, level:
     let fleet = fleet_id.clone();
     let (zone, snapshot) = state
         .blocking(move |store| {
-            let zone = fleet_zone(&fleet_or_default(store, &fleet)?);
+            let zone = fleet_zone(&known_fleet(store, &fleet)?);
             let cursors = scan_due_filtered(store, &fleet, level, due_before_ms, None, None, usize::MAX)?;
-            Ok((zone, due_parts(store, &fleet, &cursors, level.probability(), zone)?))
+            Ok((zone, due_parts(store, &fleet, &cursors, level.probability(), zone, crate::convert::now_ms())?))
         })
         .await?;
     let window = Window { fleet_id, due_before_ms, level, zone };

@@ -6,6 +6,7 @@ use tonic::{Request, Response, Status};
 
 use crate::convert::{check_id, ms_timestamp, require_ids};
 use crate::error::ServiceError;
+use crate::grpc::due_queries::known_fleet;
 use crate::grpc::paging::{decode_token, encode_token, page_size};
 use crate::state::AppState;
 use crate::store::{FleetRecord, VehicleRecord};
@@ -38,7 +39,7 @@ impl FleetService for FleetApi {
         let response = self
             .state
             .blocking(move |store| {
-                let fleet = store.get_fleet(&fleet_id)?.unwrap_or_else(|| FleetRecord::default_for(&fleet_id));
+                let fleet = known_fleet(store, &fleet_id)?;
                 Ok(pb::GetFleetResponse {
                     vehicle_count: store.count_vehicles(&fleet_id)?,
                     forecasts_pending: store.count_stale(&fleet_id)?,

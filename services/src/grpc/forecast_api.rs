@@ -1,7 +1,6 @@
 //! `ForecastService`: one vehicle's forecast, the fleet's due list (paged range scans of the
 //! materialised due index), live due-list updates, a part's wear trajectory, and visit plans.
 
-use std::collections::HashMap;
 use std::pin::Pin;
 
 use brakeledger_models::domain::{BrakeType, Component};
@@ -14,13 +13,13 @@ use tonic::{Request, Response, Status};
 use crate::convert::{check_id, component_from_wire, component_to_wire, ms_timestamp, now_ms, require_ids};
 use crate::error::{ServiceError, ServiceResult};
 use crate::forecaster::{materialise, vehicle_forecast_now};
+use crate::grpc::due_queries::{due_parts, known_fleet, scan_due_filtered, undated_parts};
 use crate::grpc::due_watch;
-use crate::grpc::forecast_views::{
-    band_level, fleet_zone, indexed_band_level, local_date, local_day_number, part_forecast, required_time, STORED_THICKNESS_LEVEL,
-};
+use crate::grpc::forecast_views::{band_level, fleet_zone, indexed_band_level, local_date, local_day_number, part_forecast, required_time};
 use crate::grpc::paging::{decode_token, encode_token, page_size};
+use crate::grpc::part_cycles::readings_by_cycle;
 use crate::state::AppState;
-use crate::store::{days_to_ms, BandLevel, DueCursor, FleetRecord, Store, VehicleForecasts, MS_PER_DAY};
+use crate::store::{days_to_ms, DueCursor, MS_PER_DAY};
 
 /// Implements `brakeledger.v1.ForecastService`.
 pub struct ForecastApi {
@@ -32,11 +31,6 @@ impl ForecastApi {
     pub fn new(state: AppState) -> Self {
         Self { state }
     }
-}
-
-/// A fleet's settings (defaults when never set).
-pub fn fleet_or_default(store: &dyn Store, fleet_id: &str) -> ServiceResult<FleetRecord> {
-    Ok(store.get_fleet(fleet_id)?.unwrap_or_else(|| FleetRecord::default_for(fleet_id)))
 }
 
 fn component_filter(value: i32) -> ServiceResult<Option<Component>> {
@@ -53,57 +47,6 @@ fn component_code(component: Option<Component>) -> &'static str {
         None => "any",
         Some(Component::Friction) => "friction",
         Some(Component::Disc) => "disc",
-    }
-}
-
-/// Reads due-index entries in order until `wanted` match the filter or the range ends.
-/// Returns the matches and whether more entries may follow.
-pub fn scan_due_filtered(
-    store: &dyn Store,
-    fleet_id: &str,
-    level: BandLevel,
-    due_before_ms: i64,
-    mut after: Option<DueCursor>,
-    component: Option<Component>,
-    wanted: usize,
-) -> ServiceResult<Vec<DueCursor>> {
-    let mut found = Vec::new();
-    let chunk = wanted.max(16);
-    loop {
-        let cursors = store.scan_due(fleet_id, level, due_before_ms, after.as_ref(), chunk)?;
-        let exhausted = cursors.len() < chunk;
-        after = cursors.last().cloned();
-        found.extend(cursors.into_iter().filter(|c| component.is_none_or(|wanted| c.component == wanted)));
-        if found.len() >= wanted || exhausted {
-            found.truncate(wanted);
-            return Ok(found);
-        }
-    }
-}
-
-/// The `DuePart` messages of index entries, reading each vehicle's forecasts once.
-pub fn due_parts(store: &dyn Store, fleet_id: &str, cursors: &[DueCursor], level: f64, zone: chrono_tz::Tz) -> ServiceResult<Vec<pb::DuePart>> {
-    let mut vehicles: HashMap<String, Option<VehicleForecasts>> = HashMap::new();
-    let mut parts = Vec::with_capacity(cursors.len());
-    for cursor in cursors {
-        if !vehicles.contains_key(&cursor.vehicle_id) {
-            vehicles.insert(cursor.vehicle_id.clone(), store.get_forecasts(fleet_id, &cursor.vehicle_id)?);
-        }
-        let Some(Some(record)) = vehicles.get(&cursor.vehicle_id) else { continue };
-        if let Some(part) = record.parts.iter().find(|p| p.axle_index == cursor.axle_index && p.component == cursor.component) {
-            parts.push(due_part(record, part, level, zone));
-        }
-    }
-    Ok(parts)
-}
-
-/// One `DuePart` of a vehicle's materialised forecasts.
-pub fn due_part(record: &VehicleForecasts, part: &crate::store::StoredPart, level: f64, zone: chrono_tz::Tz) -> pb::DuePart {
-    pb::DuePart {
-        fleet_id: record.fleet_id.clone(),
-        vehicle_id: record.vehicle_id.clone(),
-        vehicle_class: record.vehicle_class.clone(),
-        part: Some(part_forecast(part, level, STORED_THICKNESS_LEVEL, zone)),
     }
 }
 
@@ -124,7 +67,7 @@ impl ForecastService for ForecastApi {
             .state
             .blocking(move |store| {
                 let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
-                Ok((fleet_or_default(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
+                Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
             })
             .await?;
         if record.parts.iter().all(|p| p.outlook.due.is_none()) {
@@ -147,7 +90,7 @@ impl ForecastService for ForecastApi {
         }
         let zone = fleet_zone(&fleet);
         Ok(Response::new(pb::GetVehicleForecastResponse {
-            parts: record.parts.iter().map(|p| part_forecast(p, level, level, zone)).collect(),
+            parts: record.parts.iter().map(|p| part_forecast(p, level, level, zone, now)).collect(),
             fleet_id: r.fleet_id,
             vehicle_id: r.vehicle_id,
             time_zone: fleet.time_zone,
@@ -180,14 +123,18 @@ impl ForecastService for ForecastApi {
             })
         };
         let fleet_id = r.fleet_id.clone();
-        let (fleet, cursors, parts) = self
+        let first_page = after.is_none();
+        let include_undated = r.include_undated && first_page;
+        let now = now_ms();
+        let (fleet, cursors, parts, undated) = self
             .state
             .blocking(move |store| {
-                let fleet = fleet_or_default(store, &fleet_id)?;
+                let fleet = known_fleet(store, &fleet_id)?;
                 let cursors = scan_due_filtered(store, &fleet_id, level, due_before_ms, after, component, limit + 1)?;
                 let page = &cursors[..cursors.len().min(limit)];
-                let parts = due_parts(store, &fleet_id, page, level.probability(), fleet_zone(&fleet))?;
-                Ok((fleet, cursors, parts))
+                let parts = due_parts(store, &fleet_id, page, level.probability(), fleet_zone(&fleet), now)?;
+                let undated = if include_undated { undated_parts(store, &fleet_id, component)? } else { Vec::new() };
+                Ok((fleet, cursors, parts, undated))
             })
             .await?;
         let next_page_token = if cursors.len() > limit {
@@ -200,7 +147,7 @@ impl ForecastService for ForecastApi {
         } else {
             String::new()
         };
-        Ok(Response::new(pb::ListDueResponse { parts, next_page_token, time_zone: fleet.time_zone }))
+        Ok(Response::new(pb::ListDueResponse { parts, next_page_token, time_zone: fleet.time_zone, undated }))
     }
 
     async fn watch_due(&self, request: Request<pb::WatchDueRequest>) -> Result<Response<Self::WatchDueStream>, Status> {
@@ -224,7 +171,7 @@ impl ForecastService for ForecastApi {
             .state
             .blocking(move |store| {
                 let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
-                Ok((fleet_or_default(store, &fleet_id)?, data, parts))
+                Ok((known_fleet(store, &fleet_id)?, data, parts))
             })
             .await?;
         let zone = fleet_zone(&fleet);
@@ -233,38 +180,39 @@ impl ForecastService for ForecastApi {
         };
         let part = &parts[position];
         let record = materialise(&data, std::slice::from_ref(part), now);
-        let fitted_at_ms = data
+        let replacements_ms: Vec<i64> = data
             .history
             .replacements
             .iter()
             .filter(|x| x.axle_index == axle_index && x.component == component)
             .map(|x| x.replaced_at_ms)
-            .max();
+            .collect();
+        let fitted_at_ms = replacements_ms.iter().copied().max();
         // Energy at the start of an instant's UTC day, from the part's daily series (MJ).
         let energy_before = |ms: i64| {
             let days = (ms.div_euclid(MS_PER_DAY) - part.input.first_day).clamp(0, part.input.daily_energy_mj.len() as i64) as usize;
             part.input.daily_energy_mj[..days].iter().sum::<f64>()
         };
-        let inspections: Vec<_> = data
-            .history
-            .inspections
-            .iter()
-            .filter(|i| i.axle_index == axle_index && i.component == component && fitted_at_ms.is_none_or(|f| i.measured_at_ms >= f))
-            .collect();
-        let origin_mj = match (fitted_at_ms, inspections.first()) {
-            (Some(fitted), _) => energy_before(fitted),
-            (None, Some(first)) => energy_before(first.measured_at_ms),
-            (None, None) => 0.0,
-        };
-        let measured = inspections
-            .iter()
-            .map(|i| pb::MeasuredPoint {
-                measured_at: Some(ms_timestamp(i.measured_at_ms)),
-                thickness_mm: i.thickness_mm,
-                energy_since_fitted_mj: energy_before(i.measured_at_ms) - origin_mj,
-                inspection_id: i.inspection_id.clone(),
-            })
-            .collect();
+        let inspections: Vec<_> =
+            data.history.inspections.iter().filter(|i| i.axle_index == axle_index && i.component == component).collect();
+        let cycles = readings_by_cycle(&inspections.iter().map(|i| i.measured_at_ms).collect::<Vec<_>>(), &replacements_ms);
+        // Each cycle's energy origin: its fitting, else its first reading (inspections are
+        // oldest first).
+        let mut origins_mj = std::collections::HashMap::new();
+        for (inspection, cycle) in inspections.iter().zip(&cycles) {
+            origins_mj.entry(cycle.cycles_ago).or_insert_with(|| energy_before(cycle.fitted_at_ms.unwrap_or(inspection.measured_at_ms)));
+        }
+        let (mut measured, mut earlier) = (Vec::new(), Vec::new());
+        for (inspection, cycle) in inspections.iter().zip(&cycles) {
+            let point = pb::MeasuredPoint {
+                measured_at: Some(ms_timestamp(inspection.measured_at_ms)),
+                thickness_mm: inspection.thickness_mm,
+                energy_since_fitted_mj: energy_before(inspection.measured_at_ms) - origins_mj.get(&cycle.cycles_ago).copied().unwrap_or(0.0),
+                inspection_id: inspection.inspection_id.clone(),
+                cycles_ago: cycle.cycles_ago,
+            };
+            if cycle.cycles_ago == 0 { measured.push(point) } else { earlier.push(point) }
+        }
         let forecast = part
             .outlook
             .trajectory
@@ -281,10 +229,11 @@ impl ForecastService for ForecastApi {
             })
             .collect();
         Ok(Response::new(pb::GetWearTrajectoryResponse {
-            part: record.parts.first().map(|p| part_forecast(p, level, level, zone)),
+            part: record.parts.first().map(|p| part_forecast(p, level, level, zone, now)),
             measured,
             forecast,
             fitted_at: fitted_at_ms.map(ms_timestamp),
+            earlier,
         }))
     }
 
@@ -327,14 +276,16 @@ impl ForecastService for ForecastApi {
         let bundle_days = if r.bundle_within_days == 0 { 14 } else { i64::from(r.bundle_within_days.min(366)) };
         let capacity = r.capacity_hours_per_day;
         let fleet_id = r.fleet_id.clone();
+        let now = now_ms();
         let (fleet, parts) = self
             .state
             .blocking(move |store| {
-                let fleet = fleet_or_default(store, &fleet_id)?;
-                // Everything due before the plan ends, plus what could join a bundle.
-                let horizon_ms = to_ms + (bundle_days + 2) * MS_PER_DAY;
+                let fleet = known_fleet(store, &fleet_id)?;
+                // Everything due before the plan ends (parts due now included), plus what
+                // could join a bundle.
+                let horizon_ms = to_ms.max(now) + (bundle_days + 2) * MS_PER_DAY;
                 let cursors = scan_due_filtered(store, &fleet_id, level, horizon_ms, None, None, usize::MAX)?;
-                let parts = due_parts(store, &fleet_id, &cursors, level.probability(), fleet_zone(&fleet))?;
+                let parts = due_parts(store, &fleet_id, &cursors, level.probability(), fleet_zone(&fleet), now)?;
                 Ok((fleet, parts))
             })
             .await?;

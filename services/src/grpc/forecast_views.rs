@@ -73,8 +73,10 @@ fn z(probability: f64) -> f64 {
 }
 
 /// `PartForecast` of a materialised part at `level`. `thickness_level` is the level its
-/// thickness band was computed at; the band is rescaled to `level` as a normal band.
-pub fn part_forecast(part: &StoredPart, level: f64, thickness_level: f64, zone: Tz) -> pb::PartForecast {
+/// thickness band was computed at; the band is rescaled to `level` as a normal band. `now_ms`
+/// is when the answer is made: a part whose median due date falls on an earlier calendar day
+/// (in `zone`) is marked overdue.
+pub fn part_forecast(part: &StoredPart, level: f64, thickness_level: f64, zone: Tz, now_ms: i64) -> pb::PartForecast {
     let o = &part.outlook;
     let (low, high) = if (level - thickness_level).abs() < 1e-12 {
         (o.current_thickness_low_mm, o.current_thickness_high_mm)
@@ -107,6 +109,8 @@ pub fn part_forecast(part: &StoredPart, level: f64, thickness_level: f64, zone: 
         inspections_used: o.inspections_used,
         notes: o.notes.clone(),
         band_level: level,
+        due_now: o.due_now,
+        overdue: median.is_some_and(|ms| local_day_number(ms, zone) < local_day_number(now_ms, zone)),
     }
 }
 
