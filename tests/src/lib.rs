@@ -2,6 +2,8 @@
 //! temporary data directory (in-process, or as a separate process that can be killed), and make
 //! the vehicles and trips the tests send.
 
+pub mod raw;
+
 use std::net::SocketAddr;
 use std::path::Path;
 use std::sync::Arc;

@@ -2,6 +2,7 @@
 //! directory and talks gRPC to it. One binary, one module per topic.
 
 mod auth;
+mod bad_bytes;
 mod cli;
 mod durability;
 mod forecast;
