@@ -55,7 +55,18 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
 
     let address = listener.local_addr().ok();
     tracing::info!(?address, token_required = state.access.requires_token(), "serving brakeledger.v1");
+    let http2 = &state.serving.http2;
     let result = tonic::transport::Server::builder()
+        // Flow control sized so that h2's budget for small DATA frames (half the connection
+        // window) covers every stream window filled with small trip messages while ingest waits
+        // for a disk flush; hyper's defaults made that budget run out and h2 answered with
+        // GOAWAY ENHANCE_YOUR_CALM "too_many_data_frames". See `config::Http2Config`.
+        .initial_stream_window_size(http2.stream_window_bytes)
+        .initial_connection_window_size(http2.connection_window_bytes)
+        .max_concurrent_streams(http2.max_concurrent_streams)
+        // A window that adapts to the measured bandwidth-delay product would grow the stream
+        // window past what the budget above assumes.
+        .http2_adaptive_window(Some(false))
         .add_service(health_service)
         .add_service(reflection_v1)
         .add_service(reflection_v1alpha)

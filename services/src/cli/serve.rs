@@ -70,7 +70,7 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     if !access.requires_token() && !settings.listen.ip().is_loopback() {
         tracing::warn!(listen = %settings.listen, "listening beyond loopback with no auth_tokens: any caller can read and write");
     }
-    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access);
+    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access).with_serving(settings.serving());
     server::run(listener, state, shutdown_signal()).await?;
     Ok(())
 }

@@ -9,4 +9,5 @@ mod forecast;
 mod fleet;
 mod health;
 mod ingest;
+mod long_stream;
 mod maintenance;
