@@ -34,6 +34,9 @@ pub struct AppState {
     /// Turns true when the server begins to shut down; long-lived streams and background
     /// tasks end when they see it.
     pub stopping: Arc<watch::Sender<bool>>,
+    /// Turns true when open ingest streams must end: the shutdown drain deadline passed (or a
+    /// second signal arrived). Streams write what they have read, then end with UNAVAILABLE.
+    pub ingest_cutoff: Arc<watch::Sender<bool>>,
     /// HTTP/2, ingest, shutdown and queue settings.
     pub serving: ServingConfig,
 }
@@ -50,6 +53,7 @@ impl AppState {
             changes,
             access: AccessPolicy::open(),
             stopping: Arc::new(stopping),
+            ingest_cutoff: Arc::new(watch::channel(false).0),
             serving: ServingConfig::default(),
         }
     }

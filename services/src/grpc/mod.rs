@@ -5,6 +5,8 @@ pub mod fleet_api;
 pub mod due_watch;
 pub mod forecast_api;
 pub mod forecast_views;
+pub mod ingest;
 pub mod maintenance_api;
 pub mod paging;
+pub mod refusals;
 pub mod telemetry_api;

@@ -1,6 +1,7 @@
 //! End-to-end tests: each starts the real server on a loopback port with a temporary data
 //! directory and talks gRPC to it. One binary, one module per topic.
 
+mod acknowledged_ingest;
 mod auth;
 mod bad_bytes;
 mod cli;
@@ -11,3 +12,4 @@ mod health;
 mod ingest;
 mod long_stream;
 mod maintenance;
+mod report_size;
