@@ -13,3 +13,4 @@ mod ingest;
 mod long_stream;
 mod maintenance;
 mod report_size;
+mod shutdown;

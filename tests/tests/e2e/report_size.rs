@@ -1,7 +1,6 @@
 //! Reports that fit: a stream with very many refused trips gets a report a standard client
 //! accepts (4 MB default message limit), listing the first refusals and counting them all.
 
-use brakeledger_proto::v1 as pb;
 use brakeledger_tests::{now_s, register, trip, two_axle_vehicle, TestServer};
 use prost::Message;
 
