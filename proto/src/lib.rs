@@ -8,8 +8,11 @@
 
 /// Generated code for package `brakeledger.v1`.
 pub mod v1 {
-    tonic::include_proto!("brakeledger.v1");
+    include!(concat!(env!("OUT_DIR"), "/client/brakeledger.v1.rs"));
+    include!(concat!(env!("OUT_DIR"), "/server/brakeledger.v1.rs"));
 }
+
+pub mod codec;
 
 /// Encoded `FileDescriptorSet` of every brakeledger proto file, for gRPC server reflection.
 pub const FILE_DESCRIPTOR_SET: &[u8] = tonic::include_file_descriptor_set!("brakeledger_descriptor");

@@ -8,6 +8,9 @@ use std::path::{Path, PathBuf};
 
 use serde::Deserialize;
 
+mod reliability;
+pub use reliability::*;
+
 /// Everything the server needs to start.
 #[derive(Debug, Clone, Deserialize, PartialEq)]
 #[serde(default, deny_unknown_fields)]
@@ -24,6 +27,16 @@ pub struct Settings {
     pub auth_tokens: Vec<String>,
     /// Forecast settings.
     pub forecast: ForecastConfig,
+    /// HTTP/2 flow control (see [`Http2Config`] for why these values).
+    pub http2: Http2Config,
+    /// Ingest chunking, acknowledgement and report size.
+    pub ingest: IngestConfig,
+    /// The shutdown drain.
+    pub shutdown: ShutdownConfig,
+    /// Storage memory and disk reserve.
+    pub storage: StorageConfig,
+    /// Start-up verification policy.
+    pub integrity: IntegrityConfig,
 }
 
 /// Log output format.
@@ -65,6 +78,11 @@ impl Default for Settings {
             log_filter: "info".to_owned(),
             auth_tokens: Vec::new(),
             forecast: ForecastConfig::default(),
+            http2: Http2Config::default(),
+            ingest: IngestConfig::default(),
+            shutdown: ShutdownConfig::default(),
+            storage: StorageConfig::default(),
+            integrity: IntegrityConfig::default(),
         }
     }
 }
@@ -99,6 +117,11 @@ pub enum ConfigError {
 }
 
 impl Settings {
+    /// The settings handlers and the server read at run time.
+    pub fn serving(&self) -> ServingConfig {
+        ServingConfig { http2: self.http2.clone(), ingest: self.ingest.clone(), shutdown: self.shutdown.clone(), storage: self.storage.clone() }
+    }
+
     /// Defaults, then `file` (if given), then the environment as read by `env`.
     pub fn load(file: Option<&Path>, env: impl Fn(&str) -> Option<String>) -> Result<Self, ConfigError> {
         let mut settings = match file {

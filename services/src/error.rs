@@ -28,6 +28,10 @@ pub enum ServiceError {
     /// The call carries no accepted bearer token.
     #[error("{0}")]
     Unauthenticated(String),
+    /// The server is shutting down; the client should retry against it later (or another
+    /// instance). The message says what the call got done.
+    #[error("{0}")]
+    ShuttingDown(String),
     /// A background computation failed or was cancelled.
     #[error("internal: {0}")]
     Internal(String),
@@ -67,6 +71,7 @@ impl ServiceError {
             ServiceError::NotFound(_) => Status::not_found(message),
             ServiceError::FailedPrecondition(_) => Status::failed_precondition(message),
             ServiceError::Unauthenticated(_) => Status::unauthenticated(message),
+            ServiceError::ShuttingDown(_) => Status::unavailable(message),
             ServiceError::Storage(StoreError::NewerSchema { .. }) => Status::failed_precondition(message),
             ServiceError::Storage(StoreError::Engine(_))
             | ServiceError::Storage(StoreError::Corrupt(_))

@@ -13,6 +13,7 @@
 //! - [`grpc`]: one handler module per gRPC service.
 //! - [`forecaster`]: builds model inputs from stored data and keeps forecasts materialised.
 //! - [`server`]: the one entry point, [`server::run`].
+//! - [`drain`]: the shutdown drain (deadline for open ingest streams, then UNAVAILABLE).
 //! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
@@ -24,6 +25,7 @@ pub mod auth;
 pub mod cli;
 pub mod config;
 pub mod convert;
+pub mod drain;
 pub mod error;
 pub mod forecaster;
 pub mod grpc;

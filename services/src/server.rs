@@ -10,7 +10,7 @@ use brakeledger_proto::v1::{
 };
 use tokio::net::TcpListener;
 
-use crate::forecaster;
+use crate::{drain, forecaster};
 use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
 use crate::state::AppState;
 
@@ -23,9 +23,6 @@ pub enum ServerError {
     /// Reflection could not be built from the descriptors.
     #[error("reflection: {0}")]
     Reflection(#[from] tonic_reflection::server::Error),
-    /// The final flush failed.
-    #[error("flush on shutdown: {0}")]
-    Flush(#[from] crate::store::StoreError),
 }
 
 /// Serves on `listener` until `shutdown` resolves; returns after a clean drain and flush.
@@ -46,16 +43,27 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .build_v1alpha()?;
 
     let forecaster_task = tokio::spawn(forecaster::run(state.clone(), state.stopping.subscribe()));
-    let stopping = std::sync::Arc::clone(&state.stopping);
+    let drain_state = state.clone();
     let shutdown = async move {
         shutdown.await;
-        // Ends watch streams and the materialiser, so that draining can finish.
-        stopping.send_replace(true);
+        // Ends watch streams and the materialiser, and schedules the ingest cutoff.
+        drain::begin(&drain_state);
     };
 
     let address = listener.local_addr().ok();
     tracing::info!(?address, token_required = state.access.requires_token(), "serving brakeledger.v1");
-    let result = tonic::transport::Server::builder()
+    let http2 = &state.serving.http2;
+    let serve = tonic::transport::Server::builder()
+        // Flow control sized so that h2's budget for small DATA frames (half the connection
+        // window) covers every stream window filled with small trip messages while ingest waits
+        // for a disk flush; hyper's defaults made that budget run out and h2 answered with
+        // GOAWAY ENHANCE_YOUR_CALM "too_many_data_frames". See `config::Http2Config`.
+        .initial_stream_window_size(http2.stream_window_bytes)
+        .initial_connection_window_size(http2.connection_window_bytes)
+        .max_concurrent_streams(http2.max_concurrent_streams)
+        // A window that adapts to the measured bandwidth-delay product would grow the stream
+        // window past what the budget above assumes.
+        .http2_adaptive_window(Some(false))
         .add_service(health_service)
         .add_service(reflection_v1)
         .add_service(reflection_v1alpha)
@@ -67,13 +75,20 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
             // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
             tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),
             shutdown,
-        )
-        .await;
-    tracing::info!("stopped accepting calls; draining done, flushing the store");
+        );
+    let result = drain::bounded(&state, serve).await;
+    tracing::info!("stopped serving; flushing the store");
     state.stopping.send_replace(true);
+    drain::cut_off_now(&state);
     let _ = forecaster_task.await;
     let store = std::sync::Arc::clone(&state.store);
-    tokio::task::spawn_blocking(move || store.flush()).await.ok().transpose()?;
-    result?;
+    // Every acknowledged write was flushed before it was acknowledged; this last flush covers
+    // derived data (forecasts), so its failure (for example a full disk) is logged, not fatal.
+    match tokio::task::spawn_blocking(move || store.flush()).await {
+        Ok(Ok(())) => tracing::info!("store flushed; stopped"),
+        Ok(Err(error)) => tracing::error!(%error, "final flush failed; acknowledged data was already on disk"),
+        Err(error) => tracing::error!(%error, "final flush task failed; acknowledged data was already on disk"),
+    }
+    result.transpose()?;
     Ok(())
 }

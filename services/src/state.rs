@@ -5,7 +5,7 @@ use std::sync::Arc;
 use tokio::sync::{broadcast, watch, Notify};
 
 use crate::auth::AccessPolicy;
-use crate::config::ForecastConfig;
+use crate::config::{ForecastConfig, ServingConfig};
 use crate::error::{ServiceError, ServiceResult};
 use crate::store::{Store, VehicleForecasts, VehicleRecord};
 
@@ -34,6 +34,11 @@ pub struct AppState {
     /// Turns true when the server begins to shut down; long-lived streams and background
     /// tasks end when they see it.
     pub stopping: Arc<watch::Sender<bool>>,
+    /// Turns true when open ingest streams must end: the shutdown drain deadline passed (or a
+    /// second signal arrived). Streams write what they have read, then end with UNAVAILABLE.
+    pub ingest_cutoff: Arc<watch::Sender<bool>>,
+    /// HTTP/2, ingest, shutdown and queue settings.
+    pub serving: ServingConfig,
 }
 
 impl AppState {
@@ -48,7 +53,17 @@ impl AppState {
             changes,
             access: AccessPolicy::open(),
             stopping: Arc::new(stopping),
+            ingest_cutoff: Arc::new(watch::channel(false).0),
+            serving: ServingConfig::default(),
         }
+    }
+
+    /// The same state with reliability settings (the change feed is sized from them).
+    pub fn with_serving(mut self, serving: ServingConfig) -> Self {
+        let (changes, _) = broadcast::channel(serving.storage.change_feed_capacity.max(1));
+        self.changes = changes;
+        self.serving = serving;
+        self
     }
 
     /// The same state with an access policy.

@@ -2,6 +2,9 @@
 //! temporary data directory (in-process, or as a separate process that can be killed), and make
 //! the vehicles and trips the tests send.
 
+pub mod load;
+pub mod raw;
+
 use std::net::SocketAddr;
 use std::path::Path;
 use std::sync::Arc;
@@ -26,6 +29,8 @@ pub struct TestServer {
     task: Option<tokio::task::JoinHandle<()>>,
     /// The data directory (kept alive while the server runs).
     pub data_dir: Option<tempfile::TempDir>,
+    /// The store, to know when the server's last handle on it is gone.
+    store: std::sync::Weak<dyn brakeledger::store::Store>,
 }
 
 impl TestServer {
@@ -56,7 +61,9 @@ impl TestServer {
         let store = SledStore::open(dir).expect("open store");
         let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
         let addr = listener.local_addr().expect("addr");
-        let state = AppState::new(Arc::new(store), forecast).with_access(access);
+        let store: Arc<dyn brakeledger::store::Store> = Arc::new(store);
+        let weak_store = Arc::downgrade(&store);
+        let state = AppState::new(store, forecast).with_access(access);
         let (stop, stopped) = oneshot::channel::<()>();
         let task = tokio::spawn(async move {
             brakeledger::server::run(listener, state, async {
@@ -66,7 +73,7 @@ impl TestServer {
             .expect("server run");
         });
         let channel = connect(addr).await;
-        Self { addr, channel, stop: Some(stop), task: Some(task), data_dir: None }
+        Self { addr, channel, stop: Some(stop), task: Some(task), data_dir: None, store: weak_store }
     }
 
     /// Begins a graceful stop without waiting: new calls are refused, open ones may finish.
@@ -83,6 +90,14 @@ impl TestServer {
         }
         if let Some(task) = self.task.take() {
             task.await.expect("server task");
+        }
+        // The transport's per-call tasks may still be dropping their handlers (and with them
+        // the store) a moment after the server returned; wait, so the directory can be reopened.
+        for _ in 0..400 {
+            if self.store.strong_count() == 0 {
+                return;
+            }
+            tokio::time::sleep(Duration::from_millis(5)).await;
         }
     }
 
@@ -132,19 +147,58 @@ pub struct ServerProcess {
 impl ServerProcess {
     /// Starts `binary serve --data dir --listen 127.0.0.1:0` and reads the port it prints.
     pub fn spawn(binary: &Path, data_dir: &Path) -> Self {
-        use std::io::BufRead;
+        Self::spawn_with(binary, data_dir, &[]).unwrap_or_else(|output| panic!("server did not start: {output}"))
+    }
+
+    /// Starts `binary serve --data dir --listen 127.0.0.1:0 <extra>`; `Err` with what the process
+    /// wrote to stderr when it exits instead of listening.
+    pub fn spawn_with(binary: &Path, data_dir: &Path, extra: &[&std::ffi::OsStr]) -> Result<Self, String> {
+        use std::io::{BufRead, Read};
         let mut child = std::process::Command::new(binary)
             .args(["serve", "--listen", "127.0.0.1:0", "--data"])
             .arg(data_dir)
+            .args(extra)
             .env("BRAKELEDGER_LOG", "warn")
             .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped())
             .spawn()
             .expect("spawn server process");
         let stdout = child.stdout.take().expect("stdout");
+        let mut stderr = child.stderr.take().expect("stderr");
         let mut line = String::new();
-        std::io::BufReader::new(stdout).read_line(&mut line).expect("read listen line");
-        let addr = line.trim().rsplit(' ').next().and_then(|a| a.parse().ok()).unwrap_or_else(|| panic!("unexpected first line {line:?}"));
-        Self { child, addr }
+        let _ = std::io::BufReader::new(stdout).read_line(&mut line);
+        let Some(addr) = line.trim().rsplit(' ').next().and_then(|a| a.parse().ok()) else {
+            let mut output = String::new();
+            let _ = stderr.read_to_string(&mut output);
+            let _ = child.wait();
+            return Err(format!("{line}{output}"));
+        };
+        // Keep reading stderr so the server never blocks on a full pipe; echo it for failures.
+        std::thread::spawn(move || {
+            for line in std::io::BufReader::new(stderr).lines().map_while(Result::ok) {
+                eprintln!("[server] {line}");
+            }
+        });
+        Ok(Self { child, addr })
+    }
+
+    /// Sends a signal (`"TERM"`, `"INT"`, ...) without waiting.
+    pub fn signal(&self, name: &str) {
+        let pid = self.child.id().to_string();
+        let sent = std::process::Command::new("kill").args([&format!("-{name}"), &pid]).status().expect("run kill");
+        assert!(sent.success(), "kill -{name} {pid}");
+    }
+
+    /// Waits up to `limit` for the process to exit.
+    pub fn wait_exit(&mut self, limit: Duration) -> Option<std::process::ExitStatus> {
+        let started = std::time::Instant::now();
+        while started.elapsed() < limit {
+            if let Some(status) = self.child.try_wait().expect("try_wait") {
+                return Some(status);
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+        None
     }
 
     /// Sends SIGTERM and waits for the process to exit; returns its exit status.

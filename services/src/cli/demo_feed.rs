@@ -133,7 +133,7 @@ pub async fn feed_fleet(
     for result in futures::future::join_all(sends).await {
         let report = result.map_err(|s| explain(s, "streaming trips"))?.into_inner();
         counts.trips_accepted += report.accepted + report.duplicates;
-        counts.trips_rejected += report.rejected.len() as u64;
+        counts.trips_rejected += report.rejected_count.max(report.rejected.len() as u64);
         counts.refusals.extend(report.rejected.iter().take(5).map(|r| format!("trip {}: {}: {}", r.trip_id, r.field, r.reason)));
     }
     progress(format!(

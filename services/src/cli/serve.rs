@@ -22,28 +22,58 @@ pub fn init_logging(format: LogFormat, filter: &str) {
     };
 }
 
-/// Resolves when SIGINT or SIGTERM arrives.
-pub async fn shutdown_signal() {
-    let interrupt = tokio::signal::ctrl_c();
+/// SIGINT and SIGTERM, installed once so that a second signal can be told from the first.
+pub struct Signals {
     #[cfg(unix)]
-    {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut terminate) => {
-                tokio::select! {
-                    _ = interrupt => {}
-                    _ = terminate.recv() => {}
-                }
-            }
-            Err(_) => {
-                let _ = interrupt.await;
-            }
+    terminate: Option<tokio::signal::unix::Signal>,
+}
+
+impl Signals {
+    /// Starts listening (before the server starts, so no signal is missed).
+    pub fn install() -> Self {
+        #[cfg(unix)]
+        {
+            let terminate = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()).ok();
+            Self { terminate }
+        }
+        #[cfg(not(unix))]
+        {
+            Self {}
         }
     }
-    #[cfg(not(unix))]
-    {
-        let _ = interrupt.await;
+
+    /// Resolves at the next SIGINT or SIGTERM.
+    pub async fn next(&mut self) {
+        #[cfg(unix)]
+        if let Some(terminate) = self.terminate.as_mut() {
+            tokio::select! {
+                _ = tokio::signal::ctrl_c() => {}
+                _ = terminate.recv() => {}
+            }
+            return;
+        }
+        let _ = tokio::signal::ctrl_c().await;
     }
-    tracing::info!("shutdown signal received");
+}
+
+/// Resolves at the first signal; a second signal then forces a prompt exit: open ingest
+/// streams are ended, the store is flushed (everything acknowledged already was), and the
+/// process exits 0 without waiting for the drain deadline.
+pub async fn shutdown_signal(mut signals: Signals, state: AppState) {
+    signals.next().await;
+    tracing::info!("shutdown signal received; a second signal exits at once");
+    tokio::spawn(async move {
+        signals.next().await;
+        tracing::warn!("second shutdown signal: ending open streams, flushing the store and exiting now");
+        crate::drain::cut_off_now(&state);
+        let store = Arc::clone(&state.store);
+        match tokio::task::spawn_blocking(move || store.flush()).await {
+            Ok(Ok(())) => tracing::info!("store flushed; exiting"),
+            Ok(Err(error)) => tracing::error!(%error, "flush before a forced exit failed; acknowledged data was already on disk"),
+            Err(error) => tracing::error!(%error, "flush before a forced exit failed; acknowledged data was already on disk"),
+        }
+        std::process::exit(0);
+    });
 }
 
 /// Runs the server until a signal.
@@ -70,7 +100,8 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     if !access.requires_token() && !settings.listen.ip().is_loopback() {
         tracing::warn!(listen = %settings.listen, "listening beyond loopback with no auth_tokens: any caller can read and write");
     }
-    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access);
-    server::run(listener, state, shutdown_signal()).await?;
+    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access).with_serving(settings.serving());
+    let signals = Signals::install();
+    server::run(listener, state.clone(), shutdown_signal(signals, state)).await?;
     Ok(())
 }

@@ -62,8 +62,23 @@ pub struct PushReport {
     pub accepted: u64,
     /// Trips already stored.
     pub duplicates: u64,
-    /// Refused trips.
+    /// Refused trips, the first ones only when there were very many (see `refused`).
     pub rejected: Vec<RejectedTrip>,
+    /// Every refused trip, listed in `rejected` or not.
+    pub refused: u64,
+    /// Every refused trip counted by field and reason, most frequent first.
+    pub refused_by_reason: Vec<RefusalCount>,
+}
+
+/// How many refused trips share a field and reason.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RefusalCount {
+    /// The offending field.
+    pub field: String,
+    /// Why.
+    pub reason: String,
+    /// Trips.
+    pub count: u64,
 }
 
 /// A refused trip.
@@ -138,6 +153,13 @@ pub fn tie_to_lines(report: pb::IngestReport, lines: &[u64]) -> PushReport {
         sent: lines.len() as u64,
         accepted: report.accepted,
         duplicates: report.duplicates,
+        // A server from before the counts were added lists every refusal and counts none.
+        refused: report.rejected_count.max(report.rejected.len() as u64),
+        refused_by_reason: report
+            .rejection_counts
+            .into_iter()
+            .map(|c| RefusalCount { field: c.field, reason: c.reason, count: c.count })
+            .collect(),
         rejected: report
             .rejected
             .into_iter()
@@ -158,8 +180,20 @@ pub fn render_report(report: &PushReport) -> String {
         report.sent,
         report.accepted,
         report.duplicates,
-        report.rejected.len()
+        report.refused
     );
+    if report.refused > report.rejected.len() as u64 {
+        text.push_str(&format!("the first {} refused trips are listed below; all of them by field and reason:\n\n", report.rejected.len()));
+        let mut counts = crate::cli::table::Table::new(&[
+            ("trips", crate::cli::table::Align::Right),
+            ("field", crate::cli::table::Align::Left),
+            ("reason", crate::cli::table::Align::Left),
+        ]);
+        for c in &report.refused_by_reason {
+            counts.row(vec![c.count.to_string(), c.field.clone(), c.reason.clone()]);
+        }
+        text.push_str(&counts.render());
+    }
     if !report.rejected.is_empty() {
         let mut table = crate::cli::table::Table::new(&[
             ("line", crate::cli::table::Align::Right),
@@ -190,6 +224,7 @@ mod tests {
                 pb::Rejection { index: 1, trip_id: "t2".into(), field: "end_time".into(), reason: "must be after start_time".into() },
                 pb::Rejection { index: 9, trip_id: "zz".into(), field: "trip_id".into(), reason: "odd".into() },
             ],
+            ..Default::default()
         };
         // Trips 0..4 came from lines 2, 3, 5, 6 (line 4 was blank).
         let report = tie_to_lines(server_report, &[2, 3, 5, 6]);
@@ -205,8 +240,21 @@ mod tests {
     }
 
     #[test]
+    fn a_capped_report_says_so_and_prints_the_counts() {
+        let server_report = pb::IngestReport {
+            rejected: vec![pb::Rejection { index: 0, trip_id: "t1".into(), field: "distance_m".into(), reason: "must not be negative".into() }],
+            rejected_count: 5000,
+            rejection_counts: vec![pb::RejectionCount { field: "distance_m".into(), reason: "must not be negative".into(), count: 5000 }],
+            ..Default::default()
+        };
+        let text = render_report(&tie_to_lines(server_report, &[2]));
+        assert!(text.starts_with("sent 1 trips: 0 stored, 0 already stored, 5000 refused\nthe first 1 refused trips are listed below"), "{text}");
+        assert!(text.contains(" 5000  distance_m  must not be negative"), "{text}");
+    }
+
+    #[test]
     fn a_clean_report_is_one_line() {
-        let report = tie_to_lines(pb::IngestReport { accepted: 3, duplicates: 0, rejected: vec![] }, &[2, 3, 4]);
+        let report = tie_to_lines(pb::IngestReport { accepted: 3, ..Default::default() }, &[2, 3, 4]);
         assert_eq!(render_report(&report), "sent 3 trips: 3 stored, 0 already stored, 0 refused\n");
     }
 }

@@ -120,7 +120,13 @@ pub async fn start(state: AppState, fleet_id: String, due_before_ms: i64, level:
         loop {
             let events = tokio::select! {
                 _ = sender.closed() => return,
-                _ = async { let _ = stopping.wait_for(|s| *s).await; } => return,
+                _ = async { let _ = stopping.wait_for(|s| *s).await; } => {
+                    // Ending with OK would tell the client the watch is over; UNAVAILABLE
+                    // tells it to reconnect.
+                    let status = crate::error::ServiceError::ShuttingDown("the server is shutting down; watch again to reconnect".into());
+                    let _ = sender.send(Err(status.into_status())).await;
+                    return;
+                }
                 received = changes.recv() => match received {
                     Ok(change) if change.after.fleet_id == window.fleet_id => {
                         diff_vehicle(&mut view, &window, &change.after.vehicle_id, Some(&change.after))

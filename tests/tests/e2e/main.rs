@@ -1,11 +1,16 @@
 //! End-to-end tests: each starts the real server on a loopback port with a temporary data
 //! directory and talks gRPC to it. One binary, one module per topic.
 
+mod acknowledged_ingest;
 mod auth;
+mod bad_bytes;
 mod cli;
 mod durability;
 mod forecast;
 mod fleet;
 mod health;
 mod ingest;
+mod long_stream;
 mod maintenance;
+mod report_size;
+mod shutdown;

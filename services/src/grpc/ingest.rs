@@ -1,0 +1,319 @@
+//! The ingest pipeline shared by the three TelemetryService RPCs.
+//!
+//! An [`Ingestor`] validates each trip of a call, gathers valid ones into chunks of
+//! `[ingest] chunk_trips` and writes a chunk while the next one is being read (at most one write
+//! in flight, so a call holds at most two chunks). It counts what became of every trip, knows
+//! which prefix of the call is *settled* (durable, duplicate or refused) for IngestTrips acks,
+//! and builds the final report with the refusal listing capped ([`super::refusals`]).
+//!
+//! [`drive`] runs a call's stream through an ingestor until the client closes it, the client's
+//! stream fails, or the server's drain deadline passes at shutdown; it writes everything valid
+//! it has read before it returns.
+
+use std::collections::HashMap;
+use std::time::Duration;
+
+use brakeledger_models::domain::FieldViolation;
+use brakeledger_proto::v1 as pb;
+use tokio::task::JoinHandle;
+use tokio::time::Instant;
+use tokio_stream::{Stream, StreamExt};
+use tonic::Status;
+
+use super::refusals::Refusals;
+use crate::convert::{check_id, now_ms, trip_record};
+use crate::error::{ServiceError, ServiceResult};
+use crate::state::AppState;
+use crate::store::{IngestOutcome, StoreResult, TripRecord, VehicleRecord};
+
+/// Vehicles remembered per call; the cache is emptied when a call names more (bounded memory
+/// for calls that name very many vehicles, for example unknown ones).
+const VEHICLE_CACHE_MAX: usize = 10_000;
+
+/// A chunk being written, and the number of the call's trips it settles.
+struct InFlight {
+    handle: JoinHandle<StoreResult<Vec<IngestOutcome>>>,
+    settles_through: u64,
+}
+
+/// What happened since the last acknowledgement.
+#[derive(Default)]
+struct AckDelta {
+    accepted: u64,
+    duplicates: u64,
+    rejected_count: u64,
+    rejected: Vec<pb::Rejection>,
+}
+
+/// Validates and stores trips of one call, and counts what became of them.
+pub struct Ingestor {
+    state: AppState,
+    vehicles: HashMap<(String, String), Option<VehicleRecord>>,
+    chunk: Vec<TripRecord>,
+    in_flight: Option<InFlight>,
+    received: u64,
+    settled: u64,
+    acked_settled: u64,
+    accepted: u64,
+    duplicates: u64,
+    refusals: Refusals,
+    delta: AckDelta,
+    now_ms: i64,
+}
+
+impl Ingestor {
+    /// A fresh ingest call.
+    pub fn new(state: AppState) -> Self {
+        let ingest = &state.serving.ingest;
+        let refusals = Refusals::new(ingest.max_listed_rejections, ingest.max_rejection_groups);
+        let chunk = Vec::with_capacity(ingest.chunk_trips.max(1));
+        Self {
+            state,
+            vehicles: HashMap::new(),
+            chunk,
+            in_flight: None,
+            received: 0,
+            settled: 0,
+            acked_settled: 0,
+            accepted: 0,
+            duplicates: 0,
+            refusals,
+            delta: AckDelta::default(),
+            now_ms: now_ms(),
+        }
+    }
+
+    fn refuse(&mut self, index: u64, trip_id: String, violations: Vec<FieldViolation>) {
+        self.delta.rejected_count += 1;
+        if let Some(listed) = self.refusals.refuse(index, trip_id, violations) {
+            self.delta.rejected.push(listed.clone());
+        }
+    }
+
+    async fn vehicle(&mut self, fleet_id: &str, vehicle_id: &str) -> ServiceResult<Option<VehicleRecord>> {
+        let key = (fleet_id.to_owned(), vehicle_id.to_owned());
+        if let Some(found) = self.vehicles.get(&key) {
+            return Ok(found.clone());
+        }
+        let (fleet, vehicle) = key.clone();
+        let found = self.state.blocking(move |store| Ok(store.get_vehicle(&fleet, &vehicle)?)).await?;
+        if self.vehicles.len() >= VEHICLE_CACHE_MAX {
+            self.vehicles.clear();
+        }
+        self.vehicles.insert(key, found.clone());
+        Ok(found)
+    }
+
+    /// Takes the next trip of the call.
+    pub async fn add(&mut self, trip: pb::TripSummary) -> ServiceResult<()> {
+        let index = self.received;
+        self.received += 1;
+        let ids: Vec<FieldViolation> = [("fleet_id", &trip.fleet_id), ("vehicle_id", &trip.vehicle_id)]
+            .into_iter()
+            .filter_map(|(field, value)| check_id(field, value).err())
+            .collect();
+        if !ids.is_empty() {
+            self.refuse(index, trip.trip_id, ids);
+            return Ok(());
+        }
+        let Some(vehicle) = self.vehicle(&trip.fleet_id, &trip.vehicle_id).await? else {
+            let reason = format!("vehicle '{}' is not registered in fleet '{}'", trip.vehicle_id, trip.fleet_id);
+            self.refuse(index, trip.trip_id, vec![FieldViolation::new("vehicle_id", reason)]);
+            return Ok(());
+        };
+        let trip_id = trip.trip_id.clone();
+        match trip_record(trip, &vehicle, self.now_ms) {
+            Ok(record) => {
+                self.chunk.push(record);
+                if self.chunk.len() >= self.state.serving.ingest.chunk_trips.max(1) {
+                    self.write_chunk().await?;
+                }
+            }
+            Err(violations) => self.refuse(index, trip_id, violations),
+        }
+        Ok(())
+    }
+
+    /// Waits for the chunk being written, if any, and counts its outcomes. Cancel-safe: if the
+    /// wait is abandoned, the write stays in flight and a later call settles it.
+    pub async fn settle_in_flight(&mut self) -> ServiceResult<()> {
+        let Some(in_flight) = self.in_flight.as_mut() else { return Ok(()) };
+        let joined = (&mut in_flight.handle).await;
+        let settles_through = in_flight.settles_through;
+        self.in_flight = None;
+        let outcomes = joined.map_err(|e| ServiceError::Internal(format!("ingest task failed: {e}")))??;
+        for outcome in outcomes {
+            match outcome {
+                IngestOutcome::Stored => {
+                    self.accepted += 1;
+                    self.delta.accepted += 1;
+                }
+                IngestOutcome::Duplicate => {
+                    self.duplicates += 1;
+                    self.delta.duplicates += 1;
+                }
+            }
+        }
+        self.settled = self.settled.max(settles_through);
+        self.state.wake_forecaster.notify_one();
+        Ok(())
+    }
+
+    /// True while a chunk is being written.
+    pub fn writing(&self) -> bool {
+        self.in_flight.is_some()
+    }
+
+    /// Starts writing the chunk gathered so far (after the previous write settled).
+    async fn write_chunk(&mut self) -> ServiceResult<()> {
+        self.settle_in_flight().await?;
+        if self.chunk.is_empty() {
+            // Everything received is refused or already settled.
+            self.settled = self.received;
+            return Ok(());
+        }
+        let capacity = self.state.serving.ingest.chunk_trips.max(1);
+        let chunk = std::mem::replace(&mut self.chunk, Vec::with_capacity(capacity));
+        let store = std::sync::Arc::clone(&self.state.store);
+        let handle = tokio::task::spawn_blocking(move || store.ingest_trips(&chunk));
+        self.in_flight = Some(InFlight { handle, settles_through: self.received });
+        Ok(())
+    }
+
+    /// Writes everything gathered and waits until it is on disk: afterwards every trip received
+    /// is settled.
+    pub async fn write_all(&mut self) -> ServiceResult<()> {
+        self.write_chunk().await?;
+        self.settle_in_flight().await
+    }
+
+    /// True when something happened that the client has not been told in an ack.
+    pub fn unacknowledged(&self) -> bool {
+        self.received > self.acked_settled || self.delta.rejected_count > 0
+    }
+
+    /// An ack of what happened since the previous one, or `None` when nothing did.
+    pub fn take_ack(&mut self) -> Option<pb::IngestAck> {
+        let delta = std::mem::take(&mut self.delta);
+        if self.settled == self.acked_settled && delta.accepted + delta.duplicates + delta.rejected_count == 0 {
+            return None;
+        }
+        self.acked_settled = self.settled;
+        Some(pb::IngestAck {
+            settled_trips: self.settled,
+            accepted: delta.accepted,
+            duplicates: delta.duplicates,
+            rejected_count: delta.rejected_count,
+            rejected: delta.rejected,
+            accepted_total: self.accepted,
+            duplicates_total: self.duplicates,
+            rejected_total: self.refusals.total(),
+        })
+    }
+
+    /// Trips received so far in this call.
+    pub fn received(&self) -> u64 {
+        self.received
+    }
+
+    /// One line on what this call stored, for logs and status messages.
+    pub fn summary(&self) -> String {
+        format!(
+            "{} trips received, {} stored, {} duplicates, {} refused; trips below index {} are settled",
+            self.received,
+            self.accepted,
+            self.duplicates,
+            self.refusals.total(),
+            self.settled
+        )
+    }
+
+    /// Writes what is left and returns the report; every accepted trip is on disk.
+    pub async fn finish(mut self) -> ServiceResult<pb::IngestReport> {
+        self.write_all().await?;
+        let mut report = pb::IngestReport { accepted: self.accepted, duplicates: self.duplicates, ..Default::default() };
+        self.refusals.into_report(&mut report);
+        Ok(report)
+    }
+}
+
+/// How a call's stream ended.
+#[derive(Debug)]
+pub enum StreamEnd {
+    /// The client closed its side; everything is written.
+    Closed,
+    /// The drain deadline of a shutdown passed; everything read is written.
+    Cutoff,
+}
+
+/// Runs `trips` (a stream of messages, each holding trips) through `ingestor`, calling `on_ack`
+/// with each acknowledgement when `acks` is true (writes then also happen after
+/// `[ingest] ack_delay_ms` when the client pauses). Returns after writing everything read.
+pub async fn drive<S>(
+    ingestor: &mut Ingestor,
+    mut trips: S,
+    acks: bool,
+    mut on_ack: impl FnMut(pb::IngestAck),
+) -> Result<StreamEnd, Status>
+where
+    S: Stream<Item = Result<Vec<pb::TripSummary>, Status>> + Unpin,
+{
+    let state = ingestor.state.clone();
+    let mut cutoff = state.ingest_cutoff.subscribe();
+    let ack_delay = Duration::from_millis(state.serving.ingest.ack_delay_ms);
+    let mut ack_due: Option<Instant> = None;
+    let outcome = loop {
+        if acks && ack_due.is_none() && ingestor.unacknowledged() {
+            ack_due = Some(Instant::now() + ack_delay);
+        }
+        let writing = ingestor.writing();
+        tokio::select! {
+            biased;
+            _ = async { let _ = cutoff.wait_for(|cut| *cut).await; } => break Ok(StreamEnd::Cutoff),
+            settled = ingestor.settle_in_flight(), if acks && writing => {
+                if let Err(error) = settled {
+                    break Err(error.into_status());
+                }
+                if let Some(ack) = ingestor.take_ack() {
+                    on_ack(ack);
+                    ack_due = None;
+                }
+            }
+            _ = tokio::time::sleep_until(ack_due.unwrap_or_else(Instant::now)), if acks && ack_due.is_some() => {
+                if let Err(error) = ingestor.write_all().await {
+                    break Err(error.into_status());
+                }
+                if let Some(ack) = ingestor.take_ack() {
+                    on_ack(ack);
+                }
+                ack_due = None;
+            }
+            message = trips.next() => match message {
+                None => break Ok(StreamEnd::Closed),
+                Some(Err(status)) => break Err(status),
+                Some(Ok(batch)) => {
+                    for trip in batch {
+                        if let Err(error) = ingestor.add(trip).await {
+                            return Err(error.into_status());
+                        }
+                    }
+                    // A full chunk settles the previous write while the batch is read.
+                    if acks && ingestor.settled > ingestor.acked_settled {
+                        if let Some(ack) = ingestor.take_ack() {
+                            on_ack(ack);
+                            ack_due = None;
+                        }
+                    }
+                }
+            },
+        }
+    };
+    // Whatever ended the stream, what was read and is valid is written (and acknowledged).
+    ingestor.write_all().await.map_err(ServiceError::into_status)?;
+    if acks {
+        if let Some(ack) = ingestor.take_ack() {
+            on_ack(ack);
+        }
+    }
+    outcome
+}
