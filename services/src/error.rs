@@ -73,6 +73,10 @@ impl ServiceError {
             ServiceError::Unauthenticated(_) => Status::unauthenticated(message),
             ServiceError::ShuttingDown(_) => Status::unavailable(message),
             ServiceError::Storage(StoreError::NewerSchema { .. }) => Status::failed_precondition(message),
+            ServiceError::Storage(StoreError::StorageFull(_)) => {
+                tracing::warn!(error = %message, "write refused: disk full");
+                Status::resource_exhausted(message)
+            }
             ServiceError::Storage(StoreError::Engine(_))
             | ServiceError::Storage(StoreError::Corrupt(_))
             | ServiceError::Storage(StoreError::Conflict) => {

@@ -14,6 +14,7 @@
 //! - [`forecaster`]: builds model inputs from stored data and keeps forecasts materialised.
 //! - [`server`]: the one entry point, [`server::run`].
 //! - [`drain`]: the shutdown drain (deadline for open ingest streams, then UNAVAILABLE).
+//! - [`write_health`]: gRPC health of the write services follows whether writes are accepted.
 //! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
@@ -32,6 +33,7 @@ pub mod grpc;
 pub mod server;
 pub mod state;
 pub mod store;
+pub mod write_health;
 
 /// The caution printed with every forecast and plan.
 pub const SAFETY_CAUTION: &str = "Caution: these forecasts support maintenance planning. They do not replace inspection by a qualified technician, nor the roadworthiness rules that apply where the vehicle runs.";

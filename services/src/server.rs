@@ -10,7 +10,7 @@ use brakeledger_proto::v1::{
 };
 use tokio::net::TcpListener;
 
-use crate::{drain, forecaster};
+use crate::{drain, forecaster, write_health};
 use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
 use crate::state::AppState;
 
@@ -43,6 +43,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .build_v1alpha()?;
 
     let forecaster_task = tokio::spawn(forecaster::run(state.clone(), state.stopping.subscribe()));
+    tokio::spawn(write_health::run(state.clone(), health_reporter.clone()));
     let drain_state = state.clone();
     let shutdown = async move {
         shutdown.await;

@@ -4,6 +4,7 @@
 
 pub mod load;
 pub mod raw;
+pub mod small_disk;
 
 use std::net::SocketAddr;
 use std::path::Path;

@@ -10,7 +10,7 @@ use crate::cli::ServeArgs;
 use crate::config::{LogFormat, Settings};
 use crate::server;
 use crate::state::AppState;
-use crate::store::sled_store::SledStore;
+use crate::store::sled_store::{SledStore, StoreOptions};
 
 /// Sets up `tracing` output once for the process.
 pub fn init_logging(format: LogFormat, filter: &str) {
@@ -90,7 +90,8 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     }
     init_logging(settings.log_format, &settings.log_filter);
     let data_dir = settings.data_dir.clone();
-    let store = tokio::task::spawn_blocking(move || SledStore::open(&data_dir))
+    let options = StoreOptions::from(&settings.storage);
+    let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
         .await?
         .with_context(|| format!("opening the database in {}", settings.data_dir.display()))?;
     let listener = TcpListener::bind(settings.listen).await.with_context(|| format!("listening on {}", settings.listen))?;

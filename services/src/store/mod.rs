@@ -4,8 +4,10 @@
 //! method returns only after what it wrote is durable on disk ("acknowledged means durable").
 //! [`sled_store::SledStore`] is the embedded default.
 
+pub mod disk_space;
 pub mod keys;
 pub mod records;
+pub mod sled_engine;
 pub mod sled_store;
 
 pub use records::*;
@@ -30,6 +32,9 @@ pub enum StoreError {
     /// A concurrent writer changed the same record; the caller may retry.
     #[error("concurrent update conflict")]
     Conflict,
+    /// The disk is (nearly) full: writes are refused until space is freed; reads still work.
+    #[error("{0}")]
+    StorageFull(String),
 }
 
 /// Result of storage calls.
@@ -46,6 +51,9 @@ pub enum IngestOutcome {
 
 /// A storage engine for brakeledger.
 pub trait Store: Send + Sync + 'static {
+    /// Whether writes can be accepted now: `Err(StorageFull)` while the disk is (nearly) full.
+    /// Recovers the engine once space is free again (see `sled_store`); health checks call it.
+    fn writable(&self) -> StoreResult<()>;
     /// Creates or replaces a fleet; returns true when it is new.
     fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool>;
     /// Reads a fleet's settings.

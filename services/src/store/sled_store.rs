@@ -1,494 +1,273 @@
-//! The embedded default engine: sled 0.34.
+//! The embedded default engine, sled 0.34, as a [`Store`]: an [`Engine`] (the open database
+//! and its trees) behind a slot that can be reopened, with a disk-space gate in front of writes.
 //!
-//! Each write that callers acknowledge (trips, inspections, replacements, vehicles, fleets) runs
-//! in one multi-tree transaction and is followed by `Db::flush`, which returns only after the
-//! data reached disk. Materialised forecasts are derived data: they are rebuilt from the stale
-//! marks after a crash, so they ride on sled's periodic flush.
+//! - **Memory**: sled's page cache is `[storage] cache_capacity_bytes` (64 MiB by default;
+//!   sled's own default of 1 GB let memory grow with every write until it got there).
+//! - **Full disk**: every write first checks free space and is refused with
+//!   [`StoreError::StorageFull`] below `[storage] min_free_bytes`. If the engine hits a full
+//!   disk anyway, sled keeps failing every write with that error until the database is
+//!   reopened; the store then marks itself *poisoned* and, at the next write or
+//!   [`Store::writable`] check once space is free again, reopens the database in place (waiting
+//!   for calls in flight to finish). Reads keep working throughout.
 
-use std::collections::{BTreeMap, HashSet};
-use std::path::Path;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, Mutex, RwLock};
+use std::time::{Duration, Instant};
 
-use serde::{de::DeserializeOwned, Serialize};
-use sled::transaction::{ConflictableTransactionError, TransactionError, TransactionalTree};
-use sled::Transactional;
-
-use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, vehicle_key, vehicle_prefix};
+pub use super::sled_engine::SCHEMA_VERSION;
+use super::disk_space;
+use super::sled_engine::Engine;
 use super::*;
 
-/// Schema version this build writes. Opening a database with a higher version is refused.
-/// Version 2: the stored forecasts and priors carry the leave-one-out pooling and pad coupling
-/// of the wear models; version-1 directories are migrated by [`SledStore::rebuild_derived`].
-pub const SCHEMA_VERSION: u32 = 2;
-const SCHEMA_KEY: &[u8] = b"schema_version";
+/// How the database is opened.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct StoreOptions {
+    /// sled page cache, bytes.
+    pub cache_capacity_bytes: u64,
+    /// Free space below which writes are refused, bytes.
+    pub min_free_bytes: u64,
+}
 
-impl From<sled::Error> for StoreError {
-    fn from(error: sled::Error) -> Self {
-        StoreError::Engine(error.to_string())
+impl Default for StoreOptions {
+    fn default() -> Self {
+        let defaults = crate::config::StorageConfig::default();
+        Self { cache_capacity_bytes: defaults.cache_capacity_bytes, min_free_bytes: defaults.min_free_bytes }
     }
 }
 
-impl From<TransactionError<StoreError>> for StoreError {
-    fn from(error: TransactionError<StoreError>) -> Self {
-        match error {
-            TransactionError::Abort(inner) => inner,
-            TransactionError::Storage(engine) => engine.into(),
-        }
+impl From<&crate::config::StorageConfig> for StoreOptions {
+    fn from(config: &crate::config::StorageConfig) -> Self {
+        Self { cache_capacity_bytes: config.cache_capacity_bytes, min_free_bytes: config.min_free_bytes }
     }
 }
 
-fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
-    postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))
-}
+/// Free space needed before a poisoned database is reopened, bytes (at least; the configured
+/// reserve when larger): reopening replays sled's log and writes, and a reopen that fails for
+/// lack of space leaves no database open until the next attempt.
+const REOPEN_MIN_FREE_BYTES: u64 = 4 * 1024 * 1024;
 
-fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
-    postcard::from_bytes(bytes).map_err(|e| StoreError::Corrupt(e.to_string()))
-}
-
-fn abort(error: StoreError) -> ConflictableTransactionError<StoreError> {
-    ConflictableTransactionError::Abort(error)
-}
-
-/// Read-modify-write of a postcard value inside a transaction.
-fn tx_get<T: DeserializeOwned>(
-    tree: &TransactionalTree,
-    key: &[u8],
-) -> Result<Option<T>, ConflictableTransactionError<StoreError>> {
-    match tree.get(key)? {
-        Some(bytes) => decode(&bytes).map(Some).map_err(abort),
-        None => Ok(None),
-    }
-}
-
-fn tx_put<T: Serialize>(
-    tree: &TransactionalTree,
-    key: &[u8],
-    value: &T,
-) -> Result<(), ConflictableTransactionError<StoreError>> {
-    tree.insert(key, encode(value).map_err(abort)?)?;
-    Ok(())
-}
+/// Longest wait for calls in flight to let go of the engine before a reopen gives up (and is
+/// retried at the next write).
+const REOPEN_WAIT: Duration = Duration::from_secs(10);
 
 /// sled-backed [`Store`].
 pub struct SledStore {
-    db: sled::Db,
-    fleets: sled::Tree,
-    vehicles: sled::Tree,
-    totals: sled::Tree,
-    trips: sled::Tree,
-    trip_ids: sled::Tree,
-    daily: sled::Tree,
-    inspections: sled::Tree,
-    replacements: sled::Tree,
-    forecasts: sled::Tree,
-    due_index: sled::Tree,
-    stale: sled::Tree,
-    priors: sled::Tree,
+    /// The data directory; `None` for a temporary database (never reopened).
+    dir: Option<PathBuf>,
+    options: StoreOptions,
+    engine: RwLock<Option<Arc<Engine>>>,
+    /// The engine failed a write for lack of space and must be reopened before the next one.
+    poisoned: AtomicBool,
+    reopening: Mutex<()>,
+}
+
+fn open_engine(dir: &Path, options: &StoreOptions) -> StoreResult<Engine> {
+    Engine::from_db(sled::Config::new().path(dir).cache_capacity(options.cache_capacity_bytes).open()?)
 }
 
 impl SledStore {
-    /// Opens (or creates) the database in `dir`.
+    /// Opens (or creates) the database in `dir` with default options.
     pub fn open(dir: &Path) -> StoreResult<Self> {
-        Self::from_db(sled::Config::new().path(dir).open()?)
+        Self::open_with(dir, &StoreOptions::default())
+    }
+
+    /// Opens (or creates) the database in `dir`.
+    pub fn open_with(dir: &Path, options: &StoreOptions) -> StoreResult<Self> {
+        let engine = open_engine(dir, options)?;
+        Ok(Self::around(Some(dir.to_owned()), options.clone(), engine))
     }
 
     /// A throw-away database in a temporary location (tests).
     pub fn temporary() -> StoreResult<Self> {
-        Self::from_db(sled::Config::new().temporary(true).open()?)
+        let engine = Engine::from_db(sled::Config::new().temporary(true).open()?)?;
+        Ok(Self::around(None, StoreOptions { min_free_bytes: 0, ..StoreOptions::default() }, engine))
     }
 
-    fn from_db(db: sled::Db) -> StoreResult<Self> {
-        let meta = db.open_tree("meta")?;
-        match meta.get(SCHEMA_KEY)? {
-            Some(bytes) => {
-                let array: [u8; 4] =
-                    bytes.as_ref().try_into().map_err(|_| StoreError::Corrupt("schema version".into()))?;
-                let found = u32::from_be_bytes(array);
-                if found > SCHEMA_VERSION {
-                    return Err(StoreError::NewerSchema { found, supported: SCHEMA_VERSION });
-                }
-                if found < SCHEMA_VERSION {
-                    let store = Self::with_trees(db)?;
-                    store.rebuild_derived()?;
-                    meta.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
-                    store.db.flush()?;
-                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: forecasts will be recomputed");
-                    return Ok(store);
-                }
-            }
-            None => {
-                meta.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
-                db.flush()?;
-            }
-        }
-        Self::with_trees(db)
-    }
-
-    /// Migration of derived data: stored forecasts, the due index and the priors are what the
-    /// forecast worker computes from the records, so an older layout of them is dropped and
-    /// every vehicle marked stale; the worker rebuilds them. Records (fleets, vehicles, trips,
-    /// roll-ups, inspections, replacements) are untouched.
-    fn rebuild_derived(&self) -> StoreResult<()> {
-        self.forecasts.clear()?;
-        self.due_index.clear()?;
-        self.priors.clear()?;
-        for key in self.vehicles.iter().keys() {
-            let key = key?;
-            let generation = self.db.generate_id()?;
-            self.stale.insert(key, &generation.to_be_bytes())?;
-        }
-        Ok(())
-    }
-
-    fn with_trees(db: sled::Db) -> StoreResult<Self> {
-        Ok(Self {
-            fleets: db.open_tree("fleets")?,
-            vehicles: db.open_tree("vehicles")?,
-            totals: db.open_tree("totals")?,
-            trips: db.open_tree("trips")?,
-            trip_ids: db.open_tree("trip_ids")?,
-            daily: db.open_tree("daily")?,
-            inspections: db.open_tree("inspections")?,
-            replacements: db.open_tree("replacements")?,
-            forecasts: db.open_tree("forecasts")?,
-            due_index: db.open_tree("due_index")?,
-            stale: db.open_tree("stale")?,
-            priors: db.open_tree("priors")?,
-            db,
-        })
+    fn around(dir: Option<PathBuf>, options: StoreOptions, engine: Engine) -> Self {
+        Self { dir, options, engine: RwLock::new(Some(Arc::new(engine))), poisoned: AtomicBool::new(false), reopening: Mutex::new(()) }
     }
 
     /// Writes a schema version (tests of the refusal to open newer databases).
     pub fn force_schema_version(&self, version: u32) -> StoreResult<()> {
-        self.db.open_tree("meta")?.insert(SCHEMA_KEY, &version.to_be_bytes())?;
-        self.db.flush()?;
+        self.engine()?.force_schema_version(version)
+    }
+
+    fn engine(&self) -> StoreResult<Arc<Engine>> {
+        {
+            let slot = self.engine.read().map_err(|_| StoreError::Engine("engine slot lock poisoned".into()))?;
+            if let Some(engine) = slot.as_ref() {
+                return Ok(Arc::clone(engine));
+            }
+        }
+        // A reopen failed earlier: try again, so that reads recover as well as writes.
+        if let Some(dir) = self.dir.as_deref() {
+            self.reopen(dir)?;
+        }
+        let slot = self.engine.read().map_err(|_| StoreError::Engine("engine slot lock poisoned".into()))?;
+        slot.clone().ok_or_else(|| StoreError::Engine("the database could not be reopened after a full disk; retrying at the next call".into()))
+    }
+
+    fn read<T>(&self, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
+        op(&*self.engine()?)
+    }
+
+    fn write<T>(&self, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
+        self.writable()?;
+        let result = op(&*self.engine()?);
+        if let Err(StoreError::StorageFull(message)) = &result {
+            if !self.poisoned.swap(true, Ordering::SeqCst) {
+                tracing::error!(error = %message, "write failed for lack of space; the database will be reopened once space is free");
+            }
+        }
+        result
+    }
+
+    /// Replaces the engine with a freshly opened one (after a full disk poisoned it).
+    fn reopen(&self, dir: &Path) -> StoreResult<()> {
+        let _one_at_a_time = self.reopening.lock().map_err(|_| StoreError::Engine("reopen lock poisoned".into()))?;
+        if !self.poisoned.load(Ordering::SeqCst) {
+            return Ok(());
+        }
+        let mut slot = self.engine.write().map_err(|_| StoreError::Engine("engine slot lock poisoned".into()))?;
+        if let Some(old) = slot.take() {
+            // New calls wait on the slot lock; calls in flight hold clones of the engine.
+            let started = Instant::now();
+            let mut old = old;
+            loop {
+                match Arc::try_unwrap(old) {
+                    Ok(engine) => {
+                        drop(engine);
+                        break;
+                    }
+                    Err(still_shared) if started.elapsed() < REOPEN_WAIT => {
+                        old = still_shared;
+                        std::thread::sleep(Duration::from_millis(5));
+                    }
+                    Err(still_shared) => {
+                        *slot = Some(still_shared);
+                        return Err(StoreError::Engine("calls in flight kept the database busy; reopening at the next write".into()));
+                    }
+                }
+            }
+        }
+        let engine = open_engine(dir, &self.options)?;
+        *slot = Some(Arc::new(engine));
+        self.poisoned.store(false, Ordering::SeqCst);
+        tracing::warn!(dir = %dir.display(), "database reopened after the disk was full; writes resume");
         Ok(())
     }
-
-    fn get_value<T: DeserializeOwned>(tree: &sled::Tree, key: &[u8]) -> StoreResult<Option<T>> {
-        tree.get(key)?.map(|bytes| decode(&bytes)).transpose()
-    }
-
-    fn scan_values<T: DeserializeOwned>(tree: &sled::Tree, prefix: &[u8]) -> StoreResult<Vec<T>> {
-        tree.scan_prefix(prefix).values().map(|bytes| decode(&bytes?)).collect()
-    }
-
-    /// Stores a record under an idempotency key; false when the key existed.
-    fn insert_once<T: Serialize>(&self, tree: &sled::Tree, key: Vec<u8>, value: &T, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
-        let bytes = encode(value)?;
-        let stale_key = vehicle_key(fleet_id, vehicle_id);
-        let inserted = (tree, &self.stale).transaction(|(records, stale)| {
-            if records.get(&key)?.is_some() {
-                return Ok(false);
-            }
-            records.insert(key.as_slice(), bytes.as_slice())?;
-            stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-            Ok(true)
-        });
-        let inserted = inserted.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
-        if inserted {
-            self.db.flush()?;
-        }
-        Ok(inserted)
-    }
-}
-
-/// Per-vehicle total changes gathered while ingesting a batch.
-#[derive(Default)]
-struct TotalsDelta {
-    trips: u64,
-    energy_j: f64,
-    distance_m: f64,
-    last_end_ms: Option<i64>,
 }
 
 impl Store for SledStore {
+    fn writable(&self) -> StoreResult<()> {
+        let Some(dir) = self.dir.as_deref() else { return Ok(()) };
+        if self.options.min_free_bytes > 0 {
+            let free = disk_space::available_bytes(dir).map_err(|e| StoreError::Engine(format!("free space of {}: {e}", dir.display())))?;
+            if free < self.options.min_free_bytes {
+                return Err(StoreError::StorageFull(disk_space::below_reserve(dir, free, self.options.min_free_bytes)));
+            }
+        }
+        if self.poisoned.load(Ordering::SeqCst) {
+            let needed = self.options.min_free_bytes.max(REOPEN_MIN_FREE_BYTES);
+            let free = disk_space::available_bytes(dir).map_err(|e| StoreError::Engine(format!("free space of {}: {e}", dir.display())))?;
+            if free < needed {
+                return Err(StoreError::StorageFull(disk_space::below_reserve(dir, free, needed)));
+            }
+            self.reopen(dir)?;
+        }
+        Ok(())
+    }
+
     fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool> {
-        let created = self.fleets.insert(fleet.fleet_id.as_bytes(), encode(fleet)?)?.is_none();
-        self.db.flush()?;
-        Ok(created)
+        self.write(|e| e.upsert_fleet(fleet))
     }
 
     fn get_fleet(&self, fleet_id: &str) -> StoreResult<Option<FleetRecord>> {
-        Self::get_value(&self.fleets, fleet_id.as_bytes())
+        self.read(|e| e.get_fleet(fleet_id))
     }
 
     fn upsert_vehicle(&self, vehicle: &VehicleRecord) -> StoreResult<bool> {
-        let key = vehicle_key(&vehicle.fleet_id, &vehicle.vehicle_id);
-        let bytes = encode(vehicle)?;
-        let created = (&self.vehicles, &self.stale)
-            .transaction(|(vehicles, stale)| {
-                let created = vehicles.insert(key.as_slice(), bytes.as_slice())?.is_none();
-                stale.insert(key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-                Ok(created)
-            })
-            .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
-        self.db.flush()?;
-        Ok(created)
+        self.write(|e| e.upsert_vehicle(vehicle))
     }
 
     fn get_vehicle(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleRecord>> {
-        Self::get_value(&self.vehicles, &vehicle_key(fleet_id, vehicle_id))
+        self.read(|e| e.get_vehicle(fleet_id, vehicle_id))
     }
 
     fn list_vehicles(&self, fleet_id: &str, after: Option<&str>, limit: usize) -> StoreResult<Vec<VehicleRecord>> {
-        let prefix = fleet_prefix(fleet_id);
-        let start = match after {
-            // The smallest key after `fleet 0 after` is `fleet 0 after 0`.
-            Some(after) => {
-                let mut key = vehicle_key(fleet_id, after);
-                key.push(0);
-                key
-            }
-            None => prefix.clone(),
-        };
-        self.vehicles
-            .range(start..prefix_end(&prefix))
-            .values()
-            .take(limit)
-            .map(|bytes| decode(&bytes?))
-            .collect()
+        self.read(|e| e.list_vehicles(fleet_id, after, limit))
     }
 
     fn count_vehicles(&self, fleet_id: &str) -> StoreResult<u64> {
-        Ok(self.vehicles.scan_prefix(fleet_prefix(fleet_id)).keys().count() as u64)
+        self.read(|e| e.count_vehicles(fleet_id))
     }
 
     fn vehicle_totals(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<VehicleTotals> {
-        Ok(Self::get_value(&self.totals, &vehicle_key(fleet_id, vehicle_id))?.unwrap_or_default())
+        self.read(|e| e.vehicle_totals(fleet_id, vehicle_id))
     }
 
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
-        if trips.is_empty() {
-            return Ok(Vec::new());
-        }
-        let encoded: Vec<Vec<u8>> = trips.iter().map(encode).collect::<StoreResult<_>>()?;
-        let outcomes = (&self.trips, &self.trip_ids, &self.daily, &self.totals, &self.stale)
-            .transaction(|(trip_tree, id_tree, daily_tree, totals_tree, stale_tree)| {
-                let mut outcomes = Vec::with_capacity(trips.len());
-                let mut seen: HashSet<Vec<u8>> = HashSet::new();
-                let mut daily: BTreeMap<Vec<u8>, DailyEnergy> = BTreeMap::new();
-                let mut totals: BTreeMap<Vec<u8>, TotalsDelta> = BTreeMap::new();
-                for (trip, bytes) in trips.iter().zip(&encoded) {
-                    let id_key = child_key(&trip.fleet_id, &trip.vehicle_id, &trip.trip_id);
-                    if seen.contains(&id_key) || id_tree.get(&id_key)?.is_some() {
-                        outcomes.push(IngestOutcome::Duplicate);
-                        continue;
-                    }
-                    trip_tree.insert(trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id), bytes.as_slice())?;
-                    id_tree.insert(id_key.as_slice(), &keys::ordered_i64(trip.end_ms))?;
-                    seen.insert(id_key);
-                    outcomes.push(IngestOutcome::Stored);
-
-                    let day = utc_day(trip.end_ms);
-                    let entry = daily.entry(day_key(&trip.fleet_id, &trip.vehicle_id, day)).or_insert_with(|| DailyEnergy {
-                        day,
-                        ..DailyEnergy::default()
-                    });
-                    add_trip_to_day(entry, trip);
-                    let total = totals.entry(vehicle_key(&trip.fleet_id, &trip.vehicle_id)).or_default();
-                    total.trips += 1;
-                    total.energy_j += trip.friction_energy_j;
-                    total.distance_m += trip.distance_m;
-                    total.last_end_ms = Some(total.last_end_ms.map_or(trip.end_ms, |t| t.max(trip.end_ms)));
-                }
-                for (key, delta) in &daily {
-                    let mut day: DailyEnergy = tx_get(daily_tree, key)?.unwrap_or_else(|| DailyEnergy { day: delta.day, ..DailyEnergy::default() });
-                    merge_days(&mut day, delta);
-                    tx_put(daily_tree, key, &day)?;
-                }
-                for (key, delta) in &totals {
-                    let mut total: VehicleTotals = tx_get(totals_tree, key)?.unwrap_or_default();
-                    total.trips_recorded += delta.trips;
-                    total.friction_energy_j += delta.energy_j;
-                    total.distance_m += delta.distance_m;
-                    total.last_trip_end_ms = match (total.last_trip_end_ms, delta.last_end_ms) {
-                        (Some(a), Some(b)) => Some(a.max(b)),
-                        (a, b) => a.or(b),
-                    };
-                    tx_put(totals_tree, key, &total)?;
-                    stale_tree.insert(key.as_slice(), &stale_tree.generate_id()?.to_be_bytes())?;
-                }
-                Ok(outcomes)
-            })
-            .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
-        if outcomes.contains(&IngestOutcome::Stored) {
-            self.db.flush()?;
-        }
-        Ok(outcomes)
+        self.write(|e| e.ingest_trips(trips))
     }
 
     fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool> {
-        let key = child_key(&inspection.fleet_id, &inspection.vehicle_id, &inspection.inspection_id);
-        self.insert_once(&self.inspections, key, inspection, &inspection.fleet_id, &inspection.vehicle_id)
+        self.write(|e| e.record_inspection(inspection))
     }
 
     fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool> {
-        let key = child_key(&replacement.fleet_id, &replacement.vehicle_id, &replacement.replacement_id);
-        self.insert_once(&self.replacements, key, replacement, &replacement.fleet_id, &replacement.vehicle_id)
+        self.write(|e| e.record_replacement(replacement))
     }
 
     fn daily_energy(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<DailyEnergy>> {
-        Self::scan_values(&self.daily, &vehicle_prefix(fleet_id, vehicle_id))
+        self.read(|e| e.daily_energy(fleet_id, vehicle_id))
     }
 
     fn service_history(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceHistory> {
-        let prefix = vehicle_prefix(fleet_id, vehicle_id);
-        let mut inspections: Vec<InspectionRecord> = Self::scan_values(&self.inspections, &prefix)?;
-        let mut replacements: Vec<ReplacementRecord> = Self::scan_values(&self.replacements, &prefix)?;
-        inspections.sort_by(|a, b| (a.measured_at_ms, &a.inspection_id).cmp(&(b.measured_at_ms, &b.inspection_id)));
-        replacements.sort_by(|a, b| (a.replaced_at_ms, &a.replacement_id).cmp(&(b.replaced_at_ms, &b.replacement_id)));
-        Ok(ServiceHistory { inspections, replacements })
+        self.read(|e| e.service_history(fleet_id, vehicle_id))
     }
 
     fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()> {
-        let key = vehicle_key(&record.fleet_id, &record.vehicle_id);
-        let bytes = encode(record)?;
-        let new_keys = due_index_keys(record);
-        (&self.forecasts, &self.due_index)
-            .transaction(|(forecasts, due_index)| {
-                if let Some(old) = tx_get::<VehicleForecasts>(forecasts, &key)? {
-                    for old_key in due_index_keys(&old) {
-                        due_index.remove(old_key)?;
-                    }
-                }
-                for new_key in &new_keys {
-                    due_index.insert(new_key.as_slice(), &[])?;
-                }
-                forecasts.insert(key.as_slice(), bytes.as_slice())?;
-                Ok(())
-            })
-            .map_err(|e: TransactionError<StoreError>| StoreError::from(e))
+        self.write(|e| e.put_forecasts(record))
     }
 
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
-        Self::get_value(&self.forecasts, &vehicle_key(fleet_id, vehicle_id))
+        self.read(|e| e.get_forecasts(fleet_id, vehicle_id))
     }
 
     fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>> {
-        Self::scan_values(&self.forecasts, &fleet_prefix(fleet_id))
+        self.read(|e| e.fleet_forecasts(fleet_id))
     }
 
-    fn scan_due(
-        &self,
-        fleet_id: &str,
-        level: BandLevel,
-        due_before_ms: i64,
-        after: Option<&DueCursor>,
-        limit: usize,
-    ) -> StoreResult<Vec<DueCursor>> {
-        let prefix = keys::due_level_prefix(fleet_id, level.code());
-        let start = match after {
-            Some(cursor) => {
-                let mut key = keys::due_key(fleet_id, level.code(), cursor);
-                key.push(0);
-                key
-            }
-            None => prefix.clone(),
-        };
-        let mut end = prefix.clone();
-        end.extend_from_slice(&keys::ordered_i64(due_before_ms));
-        if start >= end {
-            return Ok(Vec::new());
-        }
-        self.due_index
-            .range(start..end)
-            .keys()
-            .take(limit)
-            .map(|key| keys::due_cursor_of_key(&key?, prefix.len()))
-            .collect()
+    fn scan_due(&self, fleet_id: &str, level: BandLevel, due_before_ms: i64, after: Option<&DueCursor>, limit: usize) -> StoreResult<Vec<DueCursor>> {
+        self.read(|e| e.scan_due(fleet_id, level, due_before_ms, after, limit))
     }
 
     fn mark_stale(&self, fleet_id: &str, vehicle_ids: &[String]) -> StoreResult<()> {
-        for vehicle_id in vehicle_ids {
-            let generation = self.db.generate_id()?;
-            self.stale.insert(vehicle_key(fleet_id, vehicle_id), &generation.to_be_bytes())?;
-        }
-        Ok(())
+        self.write(|e| e.mark_stale(fleet_id, vehicle_ids))
     }
 
     fn stale_vehicles(&self, limit: usize) -> StoreResult<Vec<StaleMark>> {
-        let mut marks = Vec::new();
-        for entry in self.stale.iter().take(limit) {
-            let (key, value) = entry?;
-            let split = key.iter().position(|b| *b == keys::SEP).ok_or_else(|| StoreError::Corrupt("stale key".into()))?;
-            let generation: [u8; 8] = value.as_ref().try_into().map_err(|_| StoreError::Corrupt("stale value".into()))?;
-            marks.push(StaleMark {
-                fleet_id: String::from_utf8_lossy(&key[..split]).into_owned(),
-                vehicle_id: String::from_utf8_lossy(&key[split + 1..]).into_owned(),
-                generation: u64::from_be_bytes(generation),
-            });
-        }
-        Ok(marks)
+        self.read(|e| e.stale_vehicles(limit))
     }
 
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64> {
-        Ok(self.stale.scan_prefix(fleet_prefix(fleet_id)).keys().count() as u64)
+        self.read(|e| e.count_stale(fleet_id))
     }
 
     fn clear_stale(&self, mark: &StaleMark) -> StoreResult<()> {
-        let key = vehicle_key(&mark.fleet_id, &mark.vehicle_id);
-        // Leaves the mark in place when a newer write re-marked the vehicle meanwhile.
-        let _ = self.stale.compare_and_swap(key, Some(&mark.generation.to_be_bytes()), None as Option<&[u8]>)?;
-        Ok(())
+        self.write(|e| e.clear_stale(mark))
     }
 
     fn put_priors(&self, fleet_id: &str, priors: &FleetPriors) -> StoreResult<()> {
-        self.priors.insert(fleet_id.as_bytes(), encode(priors)?)?;
-        Ok(())
+        self.write(|e| e.put_priors(fleet_id, priors))
     }
 
     fn get_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriors>> {
-        Self::get_value(&self.priors, fleet_id.as_bytes())
+        self.read(|e| e.get_priors(fleet_id))
     }
 
     fn flush(&self) -> StoreResult<()> {
-        self.db.flush()?;
-        Ok(())
+        self.read(|e| e.flush())
     }
-}
-
-/// Index keys of every part with a due date, at every indexed level.
-fn due_index_keys(record: &VehicleForecasts) -> Vec<Vec<u8>> {
-    let mut out = Vec::new();
-    for part in &record.parts {
-        for level in BandLevel::ALL {
-            if let Some(due_earliest_ms) = part.due_earliest_ms(level.probability()) {
-                let cursor = DueCursor {
-                    due_earliest_ms,
-                    vehicle_id: record.vehicle_id.clone(),
-                    axle_index: part.axle_index,
-                    component: part.component,
-                };
-                out.push(keys::due_key(&record.fleet_id, level.code(), &cursor));
-            }
-        }
-    }
-    out
-}
-
-fn add_trip_to_day(day: &mut DailyEnergy, trip: &TripRecord) {
-    let axles = trip.axle_energy_j.len();
-    day.axle_energy_j.resize(day.axle_energy_j.len().max(axles), 0.0);
-    day.axle_hot_energy_j.resize(day.axle_hot_energy_j.len().max(axles), 0.0);
-    let hot_fraction = if trip.friction_energy_j > 0.0 { trip.hot_energy_j / trip.friction_energy_j } else { 0.0 };
-    for (i, energy) in trip.axle_energy_j.iter().enumerate() {
-        day.axle_energy_j[i] += energy;
-        day.axle_hot_energy_j[i] += energy * hot_fraction;
-    }
-    day.trips += 1;
-    day.distance_m += trip.distance_m;
-}
-
-fn merge_days(into: &mut DailyEnergy, delta: &DailyEnergy) {
-    let axles = into.axle_energy_j.len().max(delta.axle_energy_j.len());
-    into.axle_energy_j.resize(axles, 0.0);
-    into.axle_hot_energy_j.resize(axles, 0.0);
-    for (i, energy) in delta.axle_energy_j.iter().enumerate() {
-        into.axle_energy_j[i] += energy;
-    }
-    for (i, energy) in delta.axle_hot_energy_j.iter().enumerate() {
-        into.axle_hot_energy_j[i] += energy;
-    }
-    into.trips += delta.trips;
-    into.distance_m += delta.distance_m;
 }

@@ -7,6 +7,7 @@ mod bad_bytes;
 mod cli;
 mod durability;
 mod forecast;
+mod full_disk;
 mod fleet;
 mod health;
 mod ingest;
