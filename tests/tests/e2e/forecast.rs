@@ -34,6 +34,7 @@ async fn list_all_due(server: &TestServer, due_before_s: i64, page_size: u32) ->
                 component: 0,
                 page_size,
                 page_token: token,
+                include_undated: false,
             })
             .await
             .expect("list due")
@@ -144,6 +145,7 @@ async fn list_due_pages_return_each_part_once_in_order() {
             component: pb::Component::Disc as i32,
             page_size: 4,
             page_token: String::new(),
+            include_undated: false,
         })
         .await
         .expect("list")
