@@ -28,6 +28,11 @@ async fn raw_garbage_to_every_rpc_is_invalid_argument_with_the_decoders_reason()
     }
     // The same raw path with well-formed bytes succeeds, so the refusals above are about the bytes.
     let get_fleet = rpcs.iter().find(|m| m.path == "/brakeledger.v1.FleetService/GetFleet").expect("GetFleet");
+    server
+        .fleet()
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "UTC".into(), display_name: String::new() }) })
+        .await
+        .expect("fleet");
     let valid = pb::GetFleetRequest { fleet_id: "north".into() }.encode_to_vec();
     call(server.channel.clone(), get_fleet, Bytes::from(valid)).await.expect("valid bytes are served");
     server.stop().await;

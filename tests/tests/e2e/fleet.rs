@@ -76,8 +76,9 @@ async fn list_vehicles_pages_through_every_vehicle_once() {
 async fn fleet_time_zone_is_validated_and_stored() {
     let server = TestServer::start().await;
     let mut fleet = server.fleet();
-    let default = fleet.get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get").into_inner();
-    assert_eq!(default.fleet.expect("fleet").time_zone, "UTC");
+    // A fleet never set up and holding no vehicle does not exist.
+    let unknown = fleet.get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect_err("unknown fleet");
+    assert_eq!(unknown.code(), tonic::Code::NotFound, "{unknown:?}");
     let bad = fleet
         .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "Mars/Olympus".into(), display_name: String::new() }) })
         .await
