@@ -19,7 +19,10 @@
 //! and sustained grades above 10 % are rare on public roads.
 //!
 //! Other limits: a trip lasts at most 24 h, ends no more than 5 minutes in the future, and its
-//! average speed is at most 200 km/h.
+//! average speed is at most 200 km/h. Brake applications are at most one per second of the
+//! trip plus ten (a generous bound, common practice, no source: even stop-and-go city duty
+//! applies the brakes every several seconds), so a wrapped counter cannot inflate the energy
+//! bound above.
 
 use crate::domain::{FieldViolation, VehicleSpec};
 
@@ -39,6 +42,10 @@ pub const MAX_TRIP_SECONDS: f64 = 24.0 * 3600.0;
 pub const MAX_FUTURE_SECONDS: f64 = 300.0;
 /// Highest average speed over a trip, m/s (200 km/h).
 pub const MAX_AVERAGE_SPEED_M_PER_S: f64 = 200.0 / 3.6;
+/// Brake applications per second of trip that the bound allows (plus [`EXTRA_APPLICATIONS`]).
+pub const MAX_APPLICATIONS_PER_SECOND: f64 = 1.0;
+/// Applications allowed on top of the per-second rate (very short trips).
+pub const EXTRA_APPLICATIONS: f64 = 10.0;
 /// Relative tolerance between the per-axle split's sum and the trip total (1 %).
 pub const AXLE_SPLIT_TOLERANCE: f64 = 0.01;
 
@@ -98,12 +105,20 @@ pub fn check_trip(spec: &VehicleSpec, trip: &TripFacts, now_unix_s: f64) -> Resu
     if trip.end_unix_s > now_unix_s + MAX_FUTURE_SECONDS {
         out.push(FieldViolation::new("end_time", "is more than 5 minutes in the future"));
     }
+    let applications_bound = duration_s.max(0.0) * MAX_APPLICATIONS_PER_SECOND + EXTRA_APPLICATIONS;
+    let applications_ok = f64::from(trip.brake_applications) <= applications_bound;
+    if !applications_ok {
+        out.push(FieldViolation::new(
+            "brake_applications",
+            format!("{} applications in {:.0} s is more than one per second (limit {:.0})", trip.brake_applications, duration_s.max(0.0), applications_bound.floor()),
+        ));
+    }
     let distance_ok = non_negative(&mut out, "distance_m", trip.distance_m);
     if distance_ok && duration_s > 0.0 && trip.distance_m / duration_s > MAX_AVERAGE_SPEED_M_PER_S {
         out.push(FieldViolation::new("distance_m", "implies an average speed above 200 km/h"));
     }
     let energy_ok = non_negative(&mut out, "friction_energy_j", trip.friction_energy_j);
-    if energy_ok && distance_ok {
+    if energy_ok && distance_ok && applications_ok {
         let bound = max_friction_energy_j(spec.mass_kg, trip.distance_m, trip.brake_applications);
         if trip.friction_energy_j > bound {
             out.push(FieldViolation::new(
@@ -224,5 +239,19 @@ mod tests {
         let t = trip(1.0e6);
         assert!(check_trip(&car(), &t, t.end_unix_s - 301.0).is_err(), "ends > 5 min in the future");
         assert!(check_trip(&car(), &t, t.end_unix_s - 299.0).is_ok());
+    }
+
+    #[test]
+    fn a_wrapped_application_counter_is_refused_and_does_not_lift_the_energy_bound() {
+        // The case seen from outside: a 1-second trip, 4 billion applications, 1e16 J.
+        let mut wrapped = trip(1e16);
+        wrapped.end_unix_s = wrapped.start_unix_s + 1.0;
+        wrapped.brake_applications = 4_000_000_000;
+        let violations = check_trip(&car(), &wrapped, 2_000_000.0).unwrap_err();
+        assert!(violations.iter().any(|v| v.field == "brake_applications"), "{violations:?}");
+        // An hour of stop-and-go with a stop every 10 s stays acceptable.
+        let mut busy = trip(1.0e6);
+        busy.brake_applications = 360;
+        assert!(check_trip(&car(), &busy, 2_000_000.0).is_ok());
     }
 }

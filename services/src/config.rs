@@ -1,6 +1,6 @@
 //! Typed settings, layered once at start-up: built-in defaults, then an optional TOML file,
 //! then environment variables (`BRAKELEDGER_LISTEN`, `BRAKELEDGER_DATA`, `BRAKELEDGER_LOG`,
-//! `BRAKELEDGER_TOKENS`), then command-line flags. Libraries never read the environment; the
+//! `BRAKELEDGER_OPERATOR_TOKEN_FILE`), then command-line flags. Libraries never read the environment; the
 //! `serve` subcommand does, through [`Settings::load`].
 
 use std::net::SocketAddr;
@@ -8,7 +8,9 @@ use std::path::{Path, PathBuf};
 
 use serde::Deserialize;
 
+mod operations;
 mod reliability;
+pub use operations::*;
 pub use reliability::*;
 
 /// Everything the server needs to start.
@@ -23,8 +25,12 @@ pub struct Settings {
     pub log_format: LogFormat,
     /// Log filter in `tracing` env-filter syntax, e.g. "info,brakeledger=debug".
     pub log_filter: String,
-    /// Bearer tokens accepted from callers; empty means no token is required (see `auth`).
-    pub auth_tokens: Vec<String>,
+    /// Tokens: the first operator token, and whether the server may run without tokens.
+    pub auth: AuthConfig,
+    /// Per-token ingest rates, message sizes, call deadlines, earliest record date.
+    pub limits: LimitsConfig,
+    /// Prometheus metrics listener.
+    pub metrics: MetricsConfig,
     /// Forecast settings.
     pub forecast: ForecastConfig,
     /// HTTP/2 flow control (see [`Http2Config`] for why these values).
@@ -76,7 +82,9 @@ impl Default for Settings {
             data_dir: PathBuf::from("brakeledger-data"),
             log_format: LogFormat::Text,
             log_filter: "info".to_owned(),
-            auth_tokens: Vec::new(),
+            auth: AuthConfig::default(),
+            limits: LimitsConfig::default(),
+            metrics: MetricsConfig::default(),
             forecast: ForecastConfig::default(),
             http2: Http2Config::default(),
             ingest: IngestConfig::default(),
@@ -106,6 +114,12 @@ pub enum ConfigError {
         /// Why.
         message: String,
     },
+    /// A setting has a value that cannot work.
+    #[error("{message}")]
+    Invalid {
+        /// Why.
+        message: String,
+    },
     /// An environment variable has a bad value.
     #[error("environment variable {name}: {message}")]
     Env {
@@ -119,7 +133,13 @@ pub enum ConfigError {
 impl Settings {
     /// The settings handlers and the server read at run time.
     pub fn serving(&self) -> ServingConfig {
-        ServingConfig { http2: self.http2.clone(), ingest: self.ingest.clone(), shutdown: self.shutdown.clone(), storage: self.storage.clone() }
+        ServingConfig {
+            http2: self.http2.clone(),
+            ingest: self.ingest.clone(),
+            shutdown: self.shutdown.clone(),
+            storage: self.storage.clone(),
+            limits: self.limits.clone(),
+        }
     }
 
     /// Defaults, then `file` (if given), then the environment as read by `env`.
@@ -142,9 +162,19 @@ impl Settings {
         if let Some(filter) = env("BRAKELEDGER_LOG") {
             settings.log_filter = filter;
         }
-        if let Some(tokens) = env("BRAKELEDGER_TOKENS") {
-            settings.auth_tokens = tokens.split(',').map(|t| t.trim().to_owned()).filter(|t| !t.is_empty()).collect();
+        if env("BRAKELEDGER_TOKENS").is_some() {
+            return Err(ConfigError::Env {
+                name: "BRAKELEDGER_TOKENS",
+                message: "is no longer read: tokens now belong to a fleet and carry a role. Name the first operator token's file in [auth] operator_token_file (or BRAKELEDGER_OPERATOR_TOKEN_FILE) and create the others with `brakeledger token create`".into(),
+            });
         }
+        if let Some(file) = env("BRAKELEDGER_OPERATOR_TOKEN_FILE") {
+            if file.trim().is_empty() {
+                return Err(ConfigError::Env { name: "BRAKELEDGER_OPERATOR_TOKEN_FILE", message: "is set but empty".into() });
+            }
+            settings.auth.operator_token_file = Some(PathBuf::from(file));
+        }
+        settings.limits.earliest_record_ms().map_err(|message| ConfigError::Invalid { message })?;
         Ok(settings)
     }
 }
@@ -168,10 +198,11 @@ mod tests {
     #[test]
     fn the_example_config_in_deploy_parses() {
         let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../deploy/brakeledger.toml");
-        let settings = Settings::load(Some(&path), |name| (name == "BRAKELEDGER_TOKENS").then(|| "a, b,,".to_owned())).unwrap();
+        let settings = Settings::load(Some(&path), |_| None).unwrap();
         assert_eq!(settings.data_dir, PathBuf::from("/var/lib/brakeledger"));
         assert_eq!(settings.log_format, LogFormat::Json);
-        assert_eq!(settings.auth_tokens, vec!["a".to_owned(), "b".to_owned()]);
+        assert_eq!(settings.auth.operator_token_file, Some(PathBuf::from("/etc/brakeledger/operator-token")));
+        assert_eq!(settings.limits, LimitsConfig::default());
     }
 
     #[test]
@@ -182,5 +213,13 @@ mod tests {
         assert!(matches!(Settings::load(Some(&path), |_| None), Err(ConfigError::Parse { .. })));
         let bad_env = Settings::load(None, |name| (name == "BRAKELEDGER_LISTEN").then(|| "nowhere".to_owned()));
         assert!(matches!(bad_env, Err(ConfigError::Env { .. })));
+        // Settings that used to leave the server open are refused, not ignored.
+        for (name, value) in [("BRAKELEDGER_TOKENS", ""), ("BRAKELEDGER_TOKENS", " , "), ("BRAKELEDGER_OPERATOR_TOKEN_FILE", " ")] {
+            let loaded = Settings::load(None, |asked| (asked == name).then(|| value.to_owned()));
+            assert!(matches!(loaded, Err(ConfigError::Env { .. })), "{name}={value:?}");
+        }
+        std::fs::write(&path, "auth_tokens = [\"a\"]\n").unwrap();
+        let old = Settings::load(Some(&path), |_| None).unwrap_err().to_string();
+        assert!(old.contains("auth_tokens"), "{old}");
     }
 }

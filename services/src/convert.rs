@@ -6,7 +6,7 @@ use brakeledger_models::plausibility::{check_trip, TripFacts};
 use brakeledger_proto::v1 as pb;
 use prost_types::Timestamp;
 
-use crate::error::{ServiceError, ServiceResult};
+use crate::error::{quote_prefix, ServiceError, ServiceResult};
 use crate::store::{FleetRecord, TripRecord, VehicleRecord};
 
 /// Longest identifier, bytes.
@@ -80,13 +80,16 @@ pub fn component_to_wire(component: Component) -> pb::Component {
     }
 }
 
+/// Longest part of an offending value quoted back in an error, characters.
+pub const MAX_QUOTED_CHARS: usize = 64;
+
 /// Checks an IANA time zone name; empty means UTC.
 pub fn parse_time_zone(field: &str, name: &str) -> Result<chrono_tz::Tz, FieldViolation> {
     if name.is_empty() {
         return Ok(chrono_tz::UTC);
     }
     name.parse::<chrono_tz::Tz>()
-        .map_err(|_| FieldViolation::new(field, format!("'{name}' is not an IANA time zone name")))
+        .map_err(|_| FieldViolation::new(field, format!("'{}' is not an IANA time zone name", quote_prefix(name, MAX_QUOTED_CHARS))))
 }
 
 impl TryFrom<pb::Fleet> for FleetRecord {

@@ -28,6 +28,17 @@ pub enum ServiceError {
     /// The call carries no accepted bearer token.
     #[error("{0}")]
     Unauthenticated(String),
+    /// The caller's token may not do this on this fleet; the message names the role needed.
+    #[error("{0}")]
+    PermissionDenied(String),
+    /// The caller sent more than its limit allows; it may retry after `retry_after_ms`.
+    #[error("{message}; retry after {retry_after_ms} ms")]
+    RateLimited {
+        /// What was refused and which limit.
+        message: String,
+        /// When the limit allows the refused amount again, ms.
+        retry_after_ms: u64,
+    },
     /// The server is shutting down; the client should retry against it later (or another
     /// instance). The message says what the call got done.
     #[error("{0}")]
@@ -36,6 +47,24 @@ pub enum ServiceError {
     #[error("internal: {0}")]
     Internal(String),
 }
+
+/// Longest status message sent, characters.
+pub const MAX_MESSAGE_CHARS: usize = 2_000;
+/// Longest field path or reason in a `BadRequest` violation, characters.
+pub const MAX_REASON_CHARS: usize = 300;
+/// Most violations listed in one `BadRequest`.
+pub const MAX_VIOLATIONS: usize = 100;
+
+/// The first `max` characters of `text`, with "…" when it was longer: what an error quotes of
+/// a value a client sent, so a huge value never comes back whole.
+pub fn quote_prefix(text: &str, max: usize) -> String {
+    match text.char_indices().nth(max) {
+        Some((end, _)) => format!("{}…", &text[..end]),
+        None => text.to_owned(),
+    }
+}
+
+use quote_prefix as cap;
 
 fn summarise(violations: &[FieldViolation]) -> String {
     violations.iter().map(|v| format!("{}: {}", v.field, v.reason)).collect::<Vec<_>>().join("; ")
@@ -58,15 +87,26 @@ impl ServiceError {
     }
 
     /// The gRPC status for this error; INVALID_ARGUMENT carries `google.rpc.BadRequest`.
+    /// Messages and reasons are capped (see [`MAX_MESSAGE_CHARS`]), so an error about a huge
+    /// value never grows past what a client accepts.
     pub fn into_status(self) -> Status {
-        let message = self.to_string();
+        let message = cap(&self.to_string(), MAX_MESSAGE_CHARS);
         match self {
             ServiceError::InvalidArgument(violations) => {
                 let mut details = ErrorDetails::new();
-                for v in &violations {
-                    details.add_bad_request_violation(v.field.clone(), v.reason.clone());
+                for v in violations.iter().take(MAX_VIOLATIONS) {
+                    details.add_bad_request_violation(cap(&v.field, MAX_REASON_CHARS), cap(&v.reason, MAX_REASON_CHARS));
                 }
                 Status::with_error_details(Code::InvalidArgument, message, details)
+            }
+            ServiceError::PermissionDenied(_) => {
+                crate::metrics::auth_refused_reason("permission_denied");
+                Status::permission_denied(message)
+            }
+            ServiceError::RateLimited { retry_after_ms, .. } => {
+                let mut details = ErrorDetails::new();
+                details.set_retry_info(Some(std::time::Duration::from_millis(retry_after_ms)));
+                Status::with_error_details(Code::ResourceExhausted, message, details)
             }
             ServiceError::NotFound(_) => Status::not_found(message),
             ServiceError::FailedPrecondition(_) => Status::failed_precondition(message),

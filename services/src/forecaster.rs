@@ -313,7 +313,9 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         tokio::time::sleep(coalesce).await;
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
+        let started = std::time::Instant::now();
         let pass = tokio::task::spawn_blocking(move || refresh_pass(store.as_ref(), &config, crate::convert::now_ms())).await;
+        crate::metrics::forecast_refresh(started.elapsed().as_secs_f64());
         match pass {
             Ok(Ok((changes, remaining))) => {
                 for change in changes {

@@ -4,7 +4,9 @@
 //! the wire contract in `brakeledger-proto`.
 //!
 //! # Layout
-//! - [`auth`]: bearer-token access to the brakeledger services.
+//! - [`auth`]: access control: fleet-scoped tokens with roles, checked for every surface.
+//! - [`limits`]: per-token ingest rate limits.
+//! - [`metrics`]: Prometheus metrics and the layer that counts every call.
 //! - [`config`]: typed settings (defaults, TOML file, environment).
 //! - [`store`]: the [`store::Store`] trait, its records and the sled engine.
 //! - [`convert`]: wire ⇄ domain conversions with field-level validation.
@@ -30,6 +32,8 @@ pub mod drain;
 pub mod error;
 pub mod forecaster;
 pub mod grpc;
+pub mod limits;
+pub mod metrics;
 pub mod server;
 pub mod state;
 pub mod store;

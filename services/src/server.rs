@@ -5,13 +5,13 @@
 use std::future::Future;
 
 use brakeledger_proto::v1::{
-    fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
+    access_service_server::AccessServiceServer, fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
     maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
 };
 use tokio::net::TcpListener;
 
 use crate::{drain, forecaster, write_health};
-use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
+use crate::grpc::{access_api::AccessApi, fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
 use crate::state::AppState;
 
 /// Failures that stop the server.
@@ -32,6 +32,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     health_reporter.set_serving::<TelemetryServiceServer<TelemetryApi>>().await;
     health_reporter.set_serving::<MaintenanceServiceServer<MaintenanceApi>>().await;
     health_reporter.set_serving::<ForecastServiceServer<ForecastApi>>().await;
+    health_reporter.set_serving::<AccessServiceServer<AccessApi>>().await;
 
     let reflection_v1 = tonic_reflection::server::Builder::configure()
         .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
@@ -44,6 +45,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
 
     let forecaster_task = tokio::spawn(forecaster::run(state.clone(), state.stopping.subscribe()));
     tokio::spawn(write_health::run(state.clone(), health_reporter.clone()));
+    tokio::spawn(sample_gauges(state.clone()));
     let drain_state = state.clone();
     let shutdown = async move {
         shutdown.await;
@@ -54,7 +56,14 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     let address = listener.local_addr().ok();
     tracing::info!(?address, token_required = state.access.requires_token(), "serving brakeledger.v1");
     let http2 = &state.serving.http2;
-    let serve = tonic::transport::Server::builder()
+    let limits = &state.serving.limits;
+    let (max_in, max_out) = (limits.max_request_bytes, limits.max_response_bytes);
+    let mut builder = tonic::transport::Server::builder();
+    if limits.max_call_seconds > 0 {
+        // A client's shorter grpc-timeout is honoured by tonic in any case.
+        builder = builder.timeout(std::time::Duration::from_secs(limits.max_call_seconds));
+    }
+    let serve = builder
         // Flow control sized so that h2's budget for small DATA frames (half the connection
         // window) covers every stream window filled with small trip messages while ingest waits
         // for a disk flush; hyper's defaults made that budget run out and h2 answered with
@@ -65,13 +74,18 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         // A window that adapts to the measured bandwidth-delay product would grow the stream
         // window past what the budget above assumes.
         .http2_adaptive_window(Some(false))
+        .layer(crate::metrics::RequestMetricsLayer)
         .add_service(health_service)
         .add_service(reflection_v1)
         .add_service(reflection_v1alpha)
-        .add_service(FleetServiceServer::with_interceptor(FleetApi::new(state.clone()), state.access.clone()))
-        .add_service(TelemetryServiceServer::with_interceptor(TelemetryApi::new(state.clone()), state.access.clone()))
-        .add_service(MaintenanceServiceServer::with_interceptor(MaintenanceApi::new(state.clone()), state.access.clone()))
-        .add_service(ForecastServiceServer::with_interceptor(ForecastApi::new(state.clone()), state.access.clone()))
+        .add_service(tonic::service::interceptor::InterceptedService::new(FleetServiceServer::new(FleetApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out), state.access.clone()))
+        .add_service(tonic::service::interceptor::InterceptedService::new(TelemetryServiceServer::new(TelemetryApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out), state.access.clone()))
+        .add_service(tonic::service::interceptor::InterceptedService::new(MaintenanceServiceServer::new(MaintenanceApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out), state.access.clone()))
+        .add_service(tonic::service::interceptor::InterceptedService::new(ForecastServiceServer::new(ForecastApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out), state.access.clone()))
+        .add_service(tonic::service::interceptor::InterceptedService::new(
+            AccessServiceServer::new(AccessApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out),
+            state.access.clone(),
+        ))
         .serve_with_incoming_shutdown(
             // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
             tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),
@@ -92,4 +106,26 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     }
     result.transpose()?;
     Ok(())
+}
+
+/// Every few seconds, the gauges that are read from the store: forecast queue and store size.
+async fn sample_gauges(state: AppState) {
+    let mut stopping = state.stopping.subscribe();
+    let mut pending_since: Option<std::time::Instant> = None;
+    loop {
+        let store = std::sync::Arc::clone(&state.store);
+        if let Ok(Ok((stale, bytes))) = tokio::task::spawn_blocking(move || -> crate::store::StoreResult<(u64, u64)> {
+            Ok((store.stale_vehicles(1_000_000)?.len() as u64, store.size_on_disk()?))
+        })
+        .await
+        {
+            pending_since = if stale == 0 { None } else { pending_since.or_else(|| Some(std::time::Instant::now())) };
+            crate::metrics::forecast_queue(stale, pending_since.map_or(0.0, |since| since.elapsed().as_secs_f64()));
+            crate::metrics::store_bytes(bytes);
+        }
+        tokio::select! {
+            _ = stopping.wait_for(|stop| *stop) => return,
+            _ = tokio::time::sleep(std::time::Duration::from_secs(2)) => {}
+        }
+    }
 }

@@ -4,10 +4,11 @@ use std::sync::Arc;
 
 use tokio::sync::{broadcast, watch, Notify};
 
-use crate::auth::AccessPolicy;
+use crate::auth::{AccessPolicy, Caller, Role};
 use crate::config::{ForecastConfig, ServingConfig};
 use crate::error::{ServiceError, ServiceResult};
-use crate::store::{Store, VehicleForecasts, VehicleRecord};
+use crate::limits::IngestLimiter;
+use crate::store::{AuditRecord, Store, VehicleForecasts, VehicleRecord};
 
 /// A change of one vehicle's materialised forecasts, for WatchDue streams.
 #[derive(Debug, Clone)]
@@ -37,8 +38,10 @@ pub struct AppState {
     /// Turns true when open ingest streams must end: the shutdown drain deadline passed (or a
     /// second signal arrived). Streams write what they have read, then end with UNAVAILABLE.
     pub ingest_cutoff: Arc<watch::Sender<bool>>,
-    /// HTTP/2, ingest, shutdown and queue settings.
+    /// HTTP/2, ingest, shutdown, queue and limit settings.
     pub serving: ServingConfig,
+    /// Per-token ingest rate limits.
+    pub limiter: Arc<IngestLimiter>,
 }
 
 impl AppState {
@@ -54,6 +57,7 @@ impl AppState {
             access: AccessPolicy::open(),
             stopping: Arc::new(stopping),
             ingest_cutoff: Arc::new(watch::channel(false).0),
+            limiter: Arc::new(IngestLimiter::new(&ServingConfig::default().limits)),
             serving: ServingConfig::default(),
         }
     }
@@ -62,6 +66,7 @@ impl AppState {
     pub fn with_serving(mut self, serving: ServingConfig) -> Self {
         let (changes, _) = broadcast::channel(serving.storage.change_feed_capacity.max(1));
         self.changes = changes;
+        self.limiter = Arc::new(IngestLimiter::new(&serving.limits));
         self.serving = serving;
         self
     }
@@ -82,6 +87,27 @@ impl AppState {
         tokio::task::spawn_blocking(move || work(store.as_ref()))
             .await
             .map_err(|e| ServiceError::Internal(format!("background task failed: {e}")))?
+    }
+
+    /// Appends a write to the fleet's audit trail when the caller's role is audited (workshop,
+    /// fleet-admin, operator; ingest writes are counted in metrics instead). The write itself
+    /// is already durable: a failure here is logged, not returned, so a client never resends a
+    /// write that was stored.
+    pub async fn audit(&self, caller: &Caller, fleet_id: &str, action: &str, subject: String) {
+        if !matches!(caller.role, Role::Workshop | Role::FleetAdmin | Role::Operator) {
+            return;
+        }
+        let entry = AuditRecord {
+            at_ms: crate::convert::now_ms(),
+            fleet_id: fleet_id.to_owned(),
+            token_id: caller.token_id.clone(),
+            role: caller.role,
+            action: action.to_owned(),
+            subject,
+        };
+        if let Err(error) = self.blocking(move |store| Ok(store.append_audit(&entry)?)).await {
+            tracing::error!(%error, fleet_id, action, "could not append to the audit trail");
+        }
     }
 
     /// Reads a vehicle or fails with NOT_FOUND.

@@ -12,7 +12,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use brakeledger::auth::AccessPolicy;
-use brakeledger::config::ForecastConfig;
+use brakeledger::config::{AuthConfig, ForecastConfig, ServingConfig};
 use brakeledger::state::AppState;
 use brakeledger::store::sled_store::SledStore;
 use brakeledger_proto::v1 as pb;
@@ -43,28 +43,38 @@ impl TestServer {
         server
     }
 
-    /// Starts a server with a fresh temporary data directory that requires one of `tokens`.
-    pub async fn start_with_tokens(tokens: &[&str]) -> Self {
+    /// Starts a server with a fresh temporary data directory that requires tokens, its first
+    /// operator token being `operator` (as if read from `[auth] operator_token_file`).
+    pub async fn start_with_operator(operator: &str) -> Self {
         let dir = tempfile::tempdir().expect("temp dir");
-        let access = AccessPolicy::with_tokens(tokens.iter().map(|t| (*t).to_owned()));
-        let mut server = Self::start_with(dir.path(), fast_forecasts(), access).await;
+        let mut server = Self::start_with(dir.path(), fast_forecasts(), Some(operator), ServingConfig::default()).await;
         server.data_dir = Some(dir);
         server
     }
 
     /// Starts a server on an existing data directory.
     pub async fn start_on(dir: &Path, forecast: ForecastConfig) -> Self {
-        Self::start_with(dir, forecast, AccessPolicy::open()).await
+        Self::start_with(dir, forecast, None, ServingConfig::default()).await
     }
 
-    /// Starts a server on an existing data directory with an access policy.
-    pub async fn start_with(dir: &Path, forecast: ForecastConfig, access: AccessPolicy) -> Self {
+    /// Starts a server on an existing data directory; with `operator`, tokens are required and
+    /// `operator` is the first operator token.
+    pub async fn start_with(dir: &Path, forecast: ForecastConfig, operator: Option<&str>, serving: ServingConfig) -> Self {
         let store = SledStore::open(dir).expect("open store");
         let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
         let addr = listener.local_addr().expect("addr");
         let store: Arc<dyn brakeledger::store::Store> = Arc::new(store);
         let weak_store = Arc::downgrade(&store);
-        let state = AppState::new(store, forecast).with_access(access);
+        let access = match operator {
+            None => AccessPolicy::open(),
+            Some(secret) => {
+                let file = tempfile::NamedTempFile::new().expect("token file");
+                std::fs::write(file.path(), secret).expect("write token file");
+                let config = AuthConfig { operator_token_file: Some(file.path().to_owned()), insecure_no_auth: false };
+                brakeledger::auth::bootstrap::set_up(&config, addr, Arc::clone(&store), None, brakeledger::convert::now_ms()).expect("access set-up").policy
+            }
+        };
+        let state = AppState::new(store, forecast).with_access(access).with_serving(serving);
         let (stop, stopped) = oneshot::channel::<()>();
         let task = tokio::spawn(async move {
             brakeledger::server::run(listener, state, async {
@@ -160,6 +170,8 @@ impl ServerProcess {
             .arg(data_dir)
             .args(extra)
             .env("BRAKELEDGER_LOG", "warn")
+            // A client token in the developer's shell is not the server's business.
+            .env_remove("BRAKELEDGER_TOKEN")
             .stdout(std::process::Stdio::piped())
             .stderr(std::process::Stdio::piped())
             .spawn()

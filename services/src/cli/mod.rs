@@ -122,7 +122,7 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
     let server = client::ServerTarget { url: cli.server, token: cli.token };
     let out = &mut *out;
     match cli.command {
-        Command::Serve(args) => serve::serve(args).await,
+        Command::Serve(args) => serve::serve(args, server.token).await,
         Command::PushTrips(args) => trips::push_trips(&server, &args, out).await,
         Command::AddVehicle(args) => vehicle_file::add_vehicle(&server, &args, out).await,
         Command::RecordInspection(args) => maintenance::record_inspection(&server, &args, out).await,
@@ -152,6 +152,14 @@ pub struct ServeArgs {
     /// Log lines as JSON objects.
     #[arg(long)]
     pub json_logs: bool,
+    /// File holding the first operator token ([auth] operator_token_file); tokens are then
+    /// required. Other tokens are created with `brakeledger token create`.
+    #[arg(long)]
+    pub operator_token_file: Option<PathBuf>,
+    /// Serve without tokens on a non-loopback address (anyone reaching the port may read and
+    /// change every fleet); logged as a warning at every start.
+    #[arg(long)]
+    pub insecure_no_auth: bool,
 }
 
 #[cfg(test)]

@@ -5,7 +5,6 @@ use std::sync::Arc;
 use anyhow::Context;
 use tokio::net::TcpListener;
 
-use crate::auth::AccessPolicy;
 use crate::cli::ServeArgs;
 use crate::config::{LogFormat, Settings};
 use crate::server;
@@ -76,8 +75,16 @@ pub async fn shutdown_signal(mut signals: Signals, state: AppState) {
     });
 }
 
-/// Runs the server until a signal.
-pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
+/// Runs the server until a signal. `client_token` is the client's `--token` /
+/// `BRAKELEDGER_TOKEN`, which a server never uses: given as a flag it is refused, and from the
+/// environment it is refused when the server would otherwise run without tokens.
+pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Result<()> {
+    let token_from_env = std::env::var("BRAKELEDGER_TOKEN").ok();
+    if client_token.is_some() && client_token != token_from_env {
+        anyhow::bail!(
+            "--token is a client option (the token a client presents); a server takes its first operator token from [auth] operator_token_file (or BRAKELEDGER_OPERATOR_TOKEN_FILE)"
+        );
+    }
     let mut settings = Settings::load(args.config.as_deref(), |name| std::env::var(name).ok())?;
     if let Some(data) = args.data {
         settings.data_dir = data;
@@ -88,20 +95,40 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     if args.json_logs {
         settings.log_format = LogFormat::Json;
     }
+    if let Some(file) = args.operator_token_file {
+        settings.auth.operator_token_file = Some(file);
+    }
+    if args.insecure_no_auth {
+        settings.auth.insecure_no_auth = true;
+    }
     init_logging(settings.log_format, &settings.log_filter);
     let data_dir = settings.data_dir.clone();
     let options = StoreOptions::from(&settings.storage);
     let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
         .await?
         .with_context(|| format!("opening the database in {}", settings.data_dir.display()))?;
+    let store: Arc<dyn crate::store::Store> = Arc::new(store);
+    let access = crate::auth::bootstrap::set_up(&settings.auth, settings.listen, Arc::clone(&store), client_token.as_deref(), crate::convert::now_ms())?;
+    if let Some(warning) = &access.warning {
+        tracing::warn!(listen = %settings.listen, "{warning}");
+    }
     let listener = TcpListener::bind(settings.listen).await.with_context(|| format!("listening on {}", settings.listen))?;
     // Tests and scripts read this line to learn the port when listening on :0.
     println!("brakeledger listening on {}", listener.local_addr()?);
-    let access = AccessPolicy::with_tokens(settings.auth_tokens.clone());
-    if !access.requires_token() && !settings.listen.ip().is_loopback() {
-        tracing::warn!(listen = %settings.listen, "listening beyond loopback with no auth_tokens: any caller can read and write");
+    let state = AppState::new(store, settings.forecast.clone()).with_access(access.policy).with_serving(settings.serving());
+    if let Some(address) = settings.metrics.listen {
+        let metrics_listener = TcpListener::bind(address).await.with_context(|| format!("metrics listener on {address}"))?;
+        println!("brakeledger metrics on http://{}/metrics", metrics_listener.local_addr()?);
+        let mut stopping = state.stopping.subscribe();
+        tokio::spawn(async move {
+            let stopped = async move {
+                let _ = stopping.wait_for(|stop| *stop).await;
+            };
+            if let Err(error) = crate::metrics::serve(metrics_listener, stopped).await {
+                tracing::error!(%error, "metrics listener failed");
+            }
+        });
     }
-    let state = AppState::new(Arc::new(store), settings.forecast.clone()).with_access(access).with_serving(settings.serving());
     let signals = Signals::install();
     server::run(listener, state.clone(), shutdown_signal(signals, state)).await?;
     Ok(())

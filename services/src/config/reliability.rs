@@ -150,4 +150,6 @@ pub struct ServingConfig {
     pub shutdown: ShutdownConfig,
     /// Storage settings (the queue sizes are read at run time).
     pub storage: StorageConfig,
+    /// Per-token limits.
+    pub limits: super::LimitsConfig,
 }

@@ -4,6 +4,7 @@ use brakeledger_proto::v1 as pb;
 use pb::fleet_service_server::FleetService;
 use tonic::{Request, Response, Status};
 
+use crate::auth::{Caller, Permission};
 use crate::convert::{check_id, ms_timestamp, require_ids};
 use crate::error::ServiceError;
 use crate::grpc::due_queries::known_fleet;
@@ -26,15 +27,21 @@ impl FleetApi {
 #[tonic::async_trait]
 impl FleetService for FleetApi {
     async fn upsert_fleet(&self, request: Request<pb::UpsertFleetRequest>) -> Result<Response<pb::UpsertFleetResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let fleet = request.into_inner().fleet.ok_or_else(|| ServiceError::invalid("fleet", "is required"))?;
+        caller.require(&fleet.fleet_id, Permission::AdministerFleet)?;
         let record = FleetRecord::try_from(fleet)?;
         let stored = record.clone();
         let created = self.state.blocking(move |store| Ok(store.upsert_fleet(&stored)?)).await?;
+        let subject = format!("fleet settings: time zone {}, name '{}'", record.time_zone, record.display_name);
+        self.state.audit(&caller, &record.fleet_id, "brakeledger.v1.FleetService/UpsertFleet", subject).await;
         Ok(Response::new(pb::UpsertFleetResponse { fleet: Some(record.into()), created }))
     }
 
     async fn get_fleet(&self, request: Request<pb::GetFleetRequest>) -> Result<Response<pb::GetFleetResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let fleet_id = request.into_inner().fleet_id;
+        caller.require(&fleet_id, Permission::ReadFleet)?;
         require_ids(&[("fleet_id", &fleet_id)])?;
         let response = self
             .state
@@ -51,16 +58,22 @@ impl FleetService for FleetApi {
     }
 
     async fn upsert_vehicle(&self, request: Request<pb::UpsertVehicleRequest>) -> Result<Response<pb::UpsertVehicleResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let vehicle = request.into_inner().vehicle.ok_or_else(|| ServiceError::invalid("vehicle", "is required"))?;
+        caller.require(&vehicle.fleet_id, Permission::AdministerFleet)?;
         let record = VehicleRecord::try_from(vehicle)?;
         let stored = record.clone();
         let created = self.state.blocking(move |store| Ok(store.upsert_vehicle(&stored)?)).await?;
         self.state.wake_forecaster.notify_one();
+        let subject = format!("vehicle {} ({}, {} axles){}", record.vehicle_id, record.spec.vehicle_class, record.spec.axles.len(), if created { " registered" } else { " replaced" });
+        self.state.audit(&caller, &record.fleet_id, "brakeledger.v1.FleetService/UpsertVehicle", subject).await;
         Ok(Response::new(pb::UpsertVehicleResponse { vehicle: Some(record.into()), created }))
     }
 
     async fn get_vehicle(&self, request: Request<pb::GetVehicleRequest>) -> Result<Response<pb::GetVehicleResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let request = request.into_inner();
+        caller.require(&request.fleet_id, Permission::ReadFleet)?;
         require_ids(&[("fleet_id", &request.fleet_id), ("vehicle_id", &request.vehicle_id)])?;
         let vehicle = self.state.vehicle(&request.fleet_id, &request.vehicle_id).await?;
         let totals = self
@@ -77,7 +90,9 @@ impl FleetService for FleetApi {
     }
 
     async fn list_vehicles(&self, request: Request<pb::ListVehiclesRequest>) -> Result<Response<pb::ListVehiclesResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let request = request.into_inner();
+        caller.require(&request.fleet_id, Permission::ReadFleet)?;
         check_id("fleet_id", &request.fleet_id).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
         let after = if request.page_token.is_empty() {
             None

@@ -10,6 +10,7 @@ use pb::forecast_service_server::ForecastService;
 use tokio_stream::Stream;
 use tonic::{Request, Response, Status};
 
+use crate::auth::{Caller, Permission};
 use crate::convert::{check_id, component_from_wire, component_to_wire, ms_timestamp, now_ms, require_ids};
 use crate::error::{ServiceError, ServiceResult};
 use crate::forecaster::{materialise, vehicle_forecast_now};
@@ -57,7 +58,9 @@ impl ForecastService for ForecastApi {
     type WatchDueStream = WatchStream;
 
     async fn get_vehicle_forecast(&self, request: Request<pb::GetVehicleForecastRequest>) -> Result<Response<pb::GetVehicleForecastResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::ReadFleet)?;
         require_ids(&[("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id)])?;
         let level = band_level("band_level", r.band_level)?;
         let config = self.state.forecast.clone();
@@ -100,7 +103,9 @@ impl ForecastService for ForecastApi {
     }
 
     async fn list_due(&self, request: Request<pb::ListDueRequest>) -> Result<Response<pb::ListDueResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::ReadFleet)?;
         check_id("fleet_id", &r.fleet_id).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
         let due_before_ms = required_time("due_before", r.due_before.as_ref())?;
         let level = indexed_band_level("band_level", r.band_level)?;
@@ -151,7 +156,9 @@ impl ForecastService for ForecastApi {
     }
 
     async fn watch_due(&self, request: Request<pb::WatchDueRequest>) -> Result<Response<Self::WatchDueStream>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::ReadFleet)?;
         check_id("fleet_id", &r.fleet_id).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
         let due_before_ms = required_time("due_before", r.due_before.as_ref())?;
         let level = indexed_band_level("band_level", r.band_level)?;
@@ -160,7 +167,9 @@ impl ForecastService for ForecastApi {
     }
 
     async fn get_wear_trajectory(&self, request: Request<pb::GetWearTrajectoryRequest>) -> Result<Response<pb::GetWearTrajectoryResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::ReadFleet)?;
         require_ids(&[("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id)])?;
         let component = component_from_wire("component", r.component).map_err(|v| ServiceError::InvalidArgument(vec![v]))?;
         let level = band_level("band_level", r.band_level)?;
@@ -238,7 +247,9 @@ impl ForecastService for ForecastApi {
     }
 
     async fn plan_visits(&self, request: Request<pb::PlanVisitsRequest>) -> Result<Response<pb::PlanVisitsResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::ReadFleet)?;
         let mut violations = Vec::new();
         if let Err(v) = check_id("fleet_id", &r.fleet_id) {
             violations.push(v);

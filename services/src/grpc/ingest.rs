@@ -21,6 +21,7 @@ use tokio_stream::{Stream, StreamExt};
 use tonic::Status;
 
 use super::refusals::Refusals;
+use crate::auth::{Caller, Permission};
 use crate::convert::{check_id, now_ms, trip_record};
 use crate::error::{ServiceError, ServiceResult};
 use crate::state::AppState;
@@ -48,6 +49,10 @@ struct AckDelta {
 /// Validates and stores trips of one call, and counts what became of them.
 pub struct Ingestor {
     state: AppState,
+    caller: Caller,
+    /// The call's trips were taken from the rate limit as a whole (PushTrips).
+    rate_taken: bool,
+    earliest_ms: i64,
     vehicles: HashMap<(String, String), Option<VehicleRecord>>,
     chunk: Vec<TripRecord>,
     in_flight: Option<InFlight>,
@@ -62,13 +67,17 @@ pub struct Ingestor {
 }
 
 impl Ingestor {
-    /// A fresh ingest call.
-    pub fn new(state: AppState) -> Self {
+    /// A fresh ingest call by `caller`.
+    pub fn new(state: AppState, caller: Caller) -> Self {
         let ingest = &state.serving.ingest;
+        let earliest_ms = state.serving.limits.earliest_record_ms().unwrap_or(i64::MIN);
         let refusals = Refusals::new(ingest.max_listed_rejections, ingest.max_rejection_groups);
         let chunk = Vec::with_capacity(ingest.chunk_trips.max(1));
         Self {
             state,
+            caller,
+            rate_taken: false,
+            earliest_ms,
             vehicles: HashMap::new(),
             chunk,
             in_flight: None,
@@ -83,7 +92,14 @@ impl Ingestor {
         }
     }
 
+    /// The same ingestor for a call whose trips were already taken from the rate limit.
+    pub fn with_rate_taken(mut self) -> Self {
+        self.rate_taken = true;
+        self
+    }
+
     fn refuse(&mut self, index: u64, trip_id: String, violations: Vec<FieldViolation>) {
+        crate::metrics::trip_refused(violations.first().map_or("", |v| v.field.as_str()));
         self.delta.rejected_count += 1;
         if let Some(listed) = self.refusals.refuse(index, trip_id, violations) {
             self.delta.rejected.push(listed.clone());
@@ -116,6 +132,11 @@ impl Ingestor {
             self.refuse(index, trip.trip_id, ids);
             return Ok(());
         }
+        // Before any lookup: a refusal never says whether another fleet's vehicle exists.
+        self.caller.require(&trip.fleet_id, Permission::WriteTrips)?;
+        if !self.rate_taken {
+            self.state.limiter.take(&self.caller.token_id, 1)?;
+        }
         let Some(vehicle) = self.vehicle(&trip.fleet_id, &trip.vehicle_id).await? else {
             let reason = format!("vehicle '{}' is not registered in fleet '{}'", trip.vehicle_id, trip.fleet_id);
             self.refuse(index, trip.trip_id, vec![FieldViolation::new("vehicle_id", reason)]);
@@ -123,6 +144,13 @@ impl Ingestor {
         };
         let trip_id = trip.trip_id.clone();
         match trip_record(trip, &vehicle, self.now_ms) {
+            Ok(record) if record.start_ms < self.earliest_ms => {
+                let reason = format!(
+                    "is before {}, the earliest date this server accepts ([limits] earliest_record_date)",
+                    self.state.serving.limits.earliest_record_date
+                );
+                self.refuse(index, trip_id, vec![FieldViolation::new("start_time", reason)]);
+            }
             Ok(record) => {
                 self.chunk.push(record);
                 if self.chunk.len() >= self.state.serving.ingest.chunk_trips.max(1) {
@@ -142,6 +170,8 @@ impl Ingestor {
         let settles_through = in_flight.settles_through;
         self.in_flight = None;
         let outcomes = joined.map_err(|e| ServiceError::Internal(format!("ingest task failed: {e}")))??;
+        let stored = outcomes.iter().filter(|o| **o == IngestOutcome::Stored).count() as u64;
+        crate::metrics::trips(stored, outcomes.len() as u64 - stored);
         for outcome in outcomes {
             match outcome {
                 IngestOutcome::Stored => {
@@ -292,10 +322,16 @@ where
                 None => break Ok(StreamEnd::Closed),
                 Some(Err(status)) => break Err(status),
                 Some(Ok(batch)) => {
+                    let mut refused = None;
                     for trip in batch {
                         if let Err(error) = ingestor.add(trip).await {
-                            return Err(error.into_status());
+                            refused = Some(error);
+                            break;
                         }
+                    }
+                    // A refused call (permission, rate limit) still writes what it read before.
+                    if let Some(error) = refused {
+                        break Err(error.into_status());
                     }
                     // A full chunk settles the previous write while the batch is read.
                     if acks && ingestor.settled > ingestor.acked_settled {

@@ -5,6 +5,7 @@ use brakeledger_proto::v1 as pb;
 use pb::maintenance_service_server::MaintenanceService;
 use tonic::{Request, Response, Status};
 
+use crate::auth::{Caller, Permission};
 use crate::convert::{check_id, component_from_wire, now_ms, required_time_ms};
 use crate::error::{ServiceError, ServiceResult};
 use crate::state::AppState;
@@ -65,6 +66,18 @@ fn check_part_fields(
     }
 }
 
+/// Refuses a record dated before `[limits] earliest_record_date`.
+fn check_not_before(field: &str, at_ms: i64, state: &AppState) -> ServiceResult<()> {
+    let limits = &state.serving.limits;
+    match limits.earliest_record_ms() {
+        Ok(earliest) if at_ms < earliest => Err(ServiceError::invalid(
+            field,
+            format!("is before {}, the earliest date this server accepts ([limits] earliest_record_date)", limits.earliest_record_date),
+        )),
+        _ => Ok(()),
+    }
+}
+
 /// Checks the axle exists on the vehicle and the thickness is within its new thickness (with a
 /// 2 mm allowance for gauge error and oversize parts).
 fn check_against_vehicle(vehicle: &VehicleRecord, fields: &PartRecordFields, thickness_field: &str, thickness_mm: f64) -> ServiceResult<()> {
@@ -84,7 +97,9 @@ fn check_against_vehicle(vehicle: &VehicleRecord, fields: &PartRecordFields, thi
 #[tonic::async_trait]
 impl MaintenanceService for MaintenanceApi {
     async fn record_inspection(&self, request: Request<pb::RecordInspectionRequest>) -> Result<Response<pb::RecordInspectionResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::WriteWorkshopRecords)?;
         let fields = check_part_fields(
             [("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id), ("inspection_id", &r.inspection_id)],
             r.axle_index,
@@ -103,13 +118,22 @@ impl MaintenanceService for MaintenanceApi {
             thickness_mm: r.thickness_mm,
             measured_at_ms: fields.at_ms,
         };
+        check_not_before("measured_at", fields.at_ms, &self.state)?;
+        let subject = format!("vehicle {} axle {} {:?} inspection {}: {} mm", record.vehicle_id, record.axle_index, record.component, record.inspection_id, record.thickness_mm);
+        let fleet_id = record.fleet_id.clone();
         let inserted = self.state.blocking(move |store| Ok(store.record_inspection(&record)?)).await?;
+        crate::metrics::workshop_record("inspection", inserted);
         self.state.wake_forecaster.notify_one();
+        if inserted {
+            self.state.audit(&caller, &fleet_id, "brakeledger.v1.MaintenanceService/RecordInspection", subject).await;
+        }
         Ok(Response::new(pb::RecordInspectionResponse { duplicate: !inserted }))
     }
 
     async fn record_replacement(&self, request: Request<pb::RecordReplacementRequest>) -> Result<Response<pb::RecordReplacementResponse>, Status> {
+        let caller = Caller::of(&request)?;
         let r = request.into_inner();
+        caller.require(&r.fleet_id, Permission::WriteWorkshopRecords)?;
         let fields = check_part_fields(
             [("fleet_id", &r.fleet_id), ("vehicle_id", &r.vehicle_id), ("replacement_id", &r.replacement_id)],
             r.axle_index,
@@ -136,8 +160,15 @@ impl MaintenanceService for MaintenanceApi {
             new_thickness_mm,
             replaced_at_ms: fields.at_ms,
         };
+        check_not_before("replaced_at", fields.at_ms, &self.state)?;
+        let subject = format!("vehicle {} axle {} {:?} replacement {}: new {} mm", record.vehicle_id, record.axle_index, record.component, record.replacement_id, record.new_thickness_mm);
+        let fleet_id = record.fleet_id.clone();
         let inserted = self.state.blocking(move |store| Ok(store.record_replacement(&record)?)).await?;
+        crate::metrics::workshop_record("replacement", inserted);
         self.state.wake_forecaster.notify_one();
+        if inserted {
+            self.state.audit(&caller, &fleet_id, "brakeledger.v1.MaintenanceService/RecordReplacement", subject).await;
+        }
         Ok(Response::new(pb::RecordReplacementResponse { duplicate: !inserted }))
     }
 }

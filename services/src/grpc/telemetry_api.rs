@@ -14,6 +14,7 @@ use tokio_stream::StreamExt;
 use tonic::{Request, Response, Status, Streaming};
 
 use super::ingest::{drive, Ingestor, StreamEnd};
+use crate::auth::{Caller, Permission};
 use crate::error::ServiceError;
 use crate::state::AppState;
 
@@ -44,8 +45,9 @@ fn cut_off(ingestor: &Ingestor) -> Status {
 #[tonic::async_trait]
 impl TelemetryService for TelemetryApi {
     async fn stream_trips(&self, request: Request<Streaming<pb::TripSummary>>) -> Result<Response<pb::IngestReport>, Status> {
+        let caller = Caller::of(&request)?;
         let trips = request.into_inner().map(|trip| trip.map(|t| vec![t]));
-        let mut ingestor = Ingestor::new(self.state.clone());
+        let mut ingestor = Ingestor::new(self.state.clone(), caller);
         if let StreamEnd::Cutoff = drive(&mut ingestor, trips, false, |_| {}).await? {
             return Err(cut_off(&ingestor));
         }
@@ -56,7 +58,12 @@ impl TelemetryService for TelemetryApi {
     }
 
     async fn push_trips(&self, request: Request<pb::PushTripsRequest>) -> Result<Response<pb::IngestReport>, Status> {
+        let caller = Caller::of(&request)?;
         let trips = request.into_inner().trips;
+        // The whole batch is checked before anything is stored: refused as a whole or not at all.
+        for trip in &trips {
+            caller.require(&trip.fleet_id, Permission::WriteTrips)?;
+        }
         if trips.len() > MAX_BATCH_TRIPS {
             return Err(ServiceError::invalid(
                 "trips",
@@ -64,7 +71,8 @@ impl TelemetryService for TelemetryApi {
             )
             .into());
         }
-        let mut ingestor = Ingestor::new(self.state.clone());
+        self.state.limiter.take(&caller.token_id, trips.len() as u64)?;
+        let mut ingestor = Ingestor::new(self.state.clone(), caller).with_rate_taken();
         for trip in trips {
             ingestor.add(trip).await?;
         }
@@ -74,11 +82,12 @@ impl TelemetryService for TelemetryApi {
     type IngestTripsStream = ReceiverStream<Result<pb::IngestAck, Status>>;
 
     async fn ingest_trips(&self, request: Request<Streaming<pb::IngestTripsRequest>>) -> Result<Response<Self::IngestTripsStream>, Status> {
+        let caller = Caller::of(&request)?;
         let trips = request.into_inner().map(|message| message.map(|m| m.trips));
         let (sender, receiver) = mpsc::channel(ACK_QUEUE);
         let state = self.state.clone();
         tokio::spawn(async move {
-            let mut ingestor = Ingestor::new(state);
+            let mut ingestor = Ingestor::new(state, caller);
             let acks = sender.clone();
             let end = drive(&mut ingestor, trips, true, move |ack| {
                 // A client that stops reading acks is still written for; a full queue drops

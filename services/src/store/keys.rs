@@ -18,6 +18,8 @@
 //! | `due_index` | fleet 0 level due_ms vehicle 0 axle component | empty |
 //! | `stale` | fleet 0 vehicle | generation |
 //! | `priors` | fleet | [`FleetPriors`](super::FleetPriors) |
+//! | `tokens` | SHA-256 of the secret | [`TokenRecord`](super::TokenRecord) |
+//! | `audit` | fleet 0 at_ms sequence | [`AuditRecord`](super::AuditRecord) |
 //! | `meta` | name | value (`schema_version`) |
 
 use brakeledger_models::domain::Component;
@@ -179,4 +181,19 @@ mod tests {
             }
         }
     }
+}
+
+/// `fleet 0 at_ms sequence` (audit trail).
+pub fn audit_key(fleet_id: &str, cursor: super::AuditCursor) -> Vec<u8> {
+    let mut key = fleet_prefix(fleet_id);
+    key.extend_from_slice(&ordered_i64(cursor.at_ms));
+    key.extend_from_slice(&cursor.sequence.to_be_bytes());
+    key
+}
+
+/// The cursor of an audit key whose fleet prefix is `prefix_len` bytes.
+pub fn audit_cursor_of_key(key: &[u8], prefix_len: usize) -> StoreResult<super::AuditCursor> {
+    let rest = key.get(prefix_len..).filter(|rest| rest.len() == 16).ok_or_else(|| StoreError::Corrupt("audit key".into()))?;
+    let sequence: [u8; 8] = rest[8..].try_into().map_err(|_| StoreError::Corrupt("audit key".into()))?;
+    Ok(super::AuditCursor { at_ms: read_ordered_i64(&rest[..8])?, sequence: u64::from_be_bytes(sequence) })
 }

@@ -108,6 +108,18 @@ pub trait Store: Send + Sync + 'static {
     fn put_priors(&self, fleet_id: &str, priors: &FleetPriors) -> StoreResult<()>;
     /// Reads a fleet's pooled wear-rate priors.
     fn get_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriors>>;
+    /// Stores (creates or replaces) an access token durably.
+    fn put_token(&self, token: &TokenRecord) -> StoreResult<()>;
+    /// The token whose secret hashes to `secret_sha256`.
+    fn token_by_hash(&self, secret_sha256: &[u8; 32]) -> StoreResult<Option<TokenRecord>>;
+    /// Every stored token (revoked ones too), in no particular order.
+    fn list_tokens(&self) -> StoreResult<Vec<TokenRecord>>;
+    /// Appends an entry to a fleet's audit trail durably.
+    fn append_audit(&self, entry: &AuditRecord) -> StoreResult<()>;
+    /// A fleet's audit trail, oldest first, strictly after `after`, at most `limit`.
+    fn list_audit(&self, fleet_id: &str, after: Option<AuditCursor>, limit: usize) -> StoreResult<Vec<(AuditCursor, AuditRecord)>>;
+    /// Size of the store on disk, bytes.
+    fn size_on_disk(&self) -> StoreResult<u64>;
     /// Flushes everything to disk.
     fn flush(&self) -> StoreResult<()>;
 }

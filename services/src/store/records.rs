@@ -294,3 +294,50 @@ pub fn days_to_ms(days: f64) -> i64 {
         ms.clamp(-8.0e15, 8.0e15) as i64
     }
 }
+
+/// One access token as stored: never the secret, only its SHA-256 (see `auth::tokens`).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct TokenRecord {
+    /// Identifier for listing and revoking (not a secret).
+    pub token_id: String,
+    /// SHA-256 of the secret.
+    pub secret_sha256: [u8; 32],
+    /// Fleet the token acts on; `None` for an operator token.
+    pub fleet_id: Option<String>,
+    /// What the token may do.
+    pub role: crate::auth::roles::Role,
+    /// Whose token it is, for people.
+    pub label: String,
+    /// Creation time, ms.
+    pub created_at_ms: i64,
+    /// token_id of the creator.
+    pub created_by: String,
+    /// Revocation time, ms; `None` while valid.
+    pub revoked_at_ms: Option<i64>,
+}
+
+/// One audited write (made with a workshop, fleet-admin or operator token).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct AuditRecord {
+    /// When the write was acknowledged, ms.
+    pub at_ms: i64,
+    /// Fleet written to.
+    pub fleet_id: String,
+    /// token_id of the caller.
+    pub token_id: String,
+    /// Role of the caller.
+    pub role: crate::auth::roles::Role,
+    /// The RPC path without the leading slash.
+    pub action: String,
+    /// What was written, for people.
+    pub subject: String,
+}
+
+/// Position in a fleet's audit trail: (time ms, sequence number).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub struct AuditCursor {
+    /// Time of the entry, ms.
+    pub at_ms: i64,
+    /// Store-wide sequence number breaking ties.
+    pub sequence: u64,
+}

@@ -88,6 +88,8 @@ pub struct Engine {
     due_index: sled::Tree,
     stale: sled::Tree,
     priors: sled::Tree,
+    tokens: sled::Tree,
+    audit: sled::Tree,
 }
 
 impl Engine {
@@ -150,6 +152,8 @@ impl Engine {
             due_index: db.open_tree("due_index")?,
             stale: db.open_tree("stale")?,
             priors: db.open_tree("priors")?,
+            tokens: db.open_tree("tokens")?,
+            audit: db.open_tree("audit")?,
             db,
         })
     }
@@ -458,6 +462,57 @@ impl Engine {
     /// See [`Store`].
     pub fn get_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriors>> {
         Self::get_value(&self.priors, fleet_id.as_bytes())
+    }
+
+    /// See [`Store`].
+    pub fn put_token(&self, token: &TokenRecord) -> StoreResult<()> {
+        self.tokens.insert(token.secret_sha256, encode(token)?)?;
+        self.db.flush()?;
+        Ok(())
+    }
+
+    /// See [`Store`].
+    pub fn token_by_hash(&self, secret_sha256: &[u8; 32]) -> StoreResult<Option<TokenRecord>> {
+        Self::get_value(&self.tokens, secret_sha256)
+    }
+
+    /// See [`Store`].
+    pub fn list_tokens(&self) -> StoreResult<Vec<TokenRecord>> {
+        self.tokens.iter().values().map(|bytes| decode(&bytes?)).collect()
+    }
+
+    /// See [`Store`].
+    pub fn append_audit(&self, entry: &AuditRecord) -> StoreResult<()> {
+        let cursor = AuditCursor { at_ms: entry.at_ms, sequence: self.db.generate_id()? };
+        self.audit.insert(keys::audit_key(&entry.fleet_id, cursor), encode(entry)?)?;
+        self.db.flush()?;
+        Ok(())
+    }
+
+    /// See [`Store`].
+    pub fn list_audit(&self, fleet_id: &str, after: Option<AuditCursor>, limit: usize) -> StoreResult<Vec<(AuditCursor, AuditRecord)>> {
+        let prefix = fleet_prefix(fleet_id);
+        let start = match after {
+            Some(cursor) => {
+                let mut key = keys::audit_key(fleet_id, cursor);
+                key.push(0);
+                key
+            }
+            None => prefix.clone(),
+        };
+        self.audit
+            .range(start..prefix_end(&prefix))
+            .take(limit)
+            .map(|entry| {
+                let (key, value) = entry?;
+                Ok((keys::audit_cursor_of_key(&key, prefix.len())?, decode(&value)?))
+            })
+            .collect()
+    }
+
+    /// See [`Store`].
+    pub fn size_on_disk(&self) -> StoreResult<u64> {
+        Ok(self.db.size_on_disk()?)
     }
 
     /// See [`Store`].

@@ -267,6 +267,30 @@ impl Store for SledStore {
         self.read(|e| e.get_priors(fleet_id))
     }
 
+    fn put_token(&self, token: &TokenRecord) -> StoreResult<()> {
+        self.write(|e| e.put_token(token))
+    }
+
+    fn token_by_hash(&self, secret_sha256: &[u8; 32]) -> StoreResult<Option<TokenRecord>> {
+        self.read(|e| e.token_by_hash(secret_sha256))
+    }
+
+    fn list_tokens(&self) -> StoreResult<Vec<TokenRecord>> {
+        self.read(|e| e.list_tokens())
+    }
+
+    fn append_audit(&self, entry: &AuditRecord) -> StoreResult<()> {
+        self.write(|e| e.append_audit(entry))
+    }
+
+    fn list_audit(&self, fleet_id: &str, after: Option<AuditCursor>, limit: usize) -> StoreResult<Vec<(AuditCursor, AuditRecord)>> {
+        self.read(|e| e.list_audit(fleet_id, after, limit))
+    }
+
+    fn size_on_disk(&self) -> StoreResult<u64> {
+        self.read(|e| e.size_on_disk())
+    }
+
     fn flush(&self) -> StoreResult<()> {
         self.read(|e| e.flush())
     }
