@@ -14,4 +14,5 @@ mod ingest;
 mod long_stream;
 mod maintenance;
 mod report_size;
+mod safe_defaults;
 mod shutdown;
