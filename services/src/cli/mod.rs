@@ -17,7 +17,9 @@
 //! - [`chart`]: `chart`, the SVG wear chart of one part.
 //! - [`summarise`]: `summarise`, a speed trace into a trip summary.
 //! - [`demo`], [`demo_feed`], [`demo_accuracy`]: `demo`.
+//! - [`access`]: `token` and `audit`.
 
+pub mod access;
 pub mod chart;
 pub mod client;
 pub mod dates;
@@ -94,6 +96,12 @@ pub enum Command {
     /// Turn a speed-trace CSV into a trip summary (JSON), using the braking physics. No server.
     #[command(long_about = summarise::SUMMARISE_LONG_ABOUT, after_help = summarise::SUMMARISE_EXAMPLES)]
     Summarise(summarise::SummariseArgs),
+    /// Create, list and revoke access tokens (each belongs to a fleet and has a role).
+    #[command(subcommand, after_help = access::TOKEN_EXAMPLES)]
+    Token(access::TokenCommand),
+    /// List a fleet's audit trail: writes made with workshop, fleet-admin and operator tokens.
+    #[command(after_help = access::AUDIT_EXAMPLES)]
+    Audit(access::AuditArgs),
     /// Run an invented fleet through an in-process server and show every answer it gives.
     #[command(long_about = demo::DEMO_LONG_ABOUT, after_help = demo::DEMO_EXAMPLES)]
     Demo(demo::DemoArgs),
@@ -132,6 +140,8 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::Plan(args) => plan_view::plan(&server, &args, out).await,
         Command::Chart(args) => chart::chart(&server, &args, out).await,
         Command::Summarise(args) => summarise::summarise(&args, out),
+        Command::Token(command) => access::token(&server, &command, out).await,
+        Command::Audit(args) => access::audit(&server, &args, out).await,
         Command::Demo(args) => demo::demo(&args, out).await,
     }
 }
