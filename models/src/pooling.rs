@@ -42,7 +42,9 @@
 //! mean = μ_rotor,₋ᵢ + β·(m_p − μ_p),   variance = τ_rotor²·(1 − ρ_pr²) + β²·v_p + 1/W₋ᵢ
 //! ```
 //! so a rotor whose own change is still within gauge noise is forecast from the fleet and from
-//! its own pad's rate.
+//! its own pad's rate. One group's ρ_pr rests on some thirty vehicles and scatters widely by
+//! chance, so the groups of a fleet are pooled on Fisher's z scale and each group's ρ_pr is
+//! shrunk toward the fleet's ([`pool_pad_rotor_correlations`]); β follows the shrunk ρ_pr.
 //!
 //! A vehicle's estimate is then combined with its prior by precision weighting (the conjugate
 //! normal update; Gebraeel et al. 2005, IIE Transactions 37:543):
@@ -318,6 +320,42 @@ pub fn estimate_pad_coupling(pad: &WearPrior, rotor: &WearPrior, settings: &Fore
     }
     let correlation = (cov / (tp * tr)).clamp(-MAX_PAD_ROTOR_CORRELATION, MAX_PAD_ROTOR_CORRELATION);
     Some(PadCoupling { correlation, slope: correlation * tr / tp, vehicles: n as u32 })
+}
+
+/// Shrinks each rotor (drum) group's pad–rotor correlation toward the fleet's, given each
+/// group's `(correlation, vehicles)`; returns the shrunk correlations in the same order.
+///
+/// One group of thirty vehicles estimates a correlation with a standard error of about 0.15,
+/// so groups sharing one mechanism (pad and rotor of one brake share the vehicle's duty) show
+/// correlations scattered from 0.2 to 0.9 by chance. The groups are therefore pooled as a
+/// random-effects meta-analysis of correlations on Fisher's z scale: `zᵍ = atanh(rᵍ)` with
+/// sampling variance `1/(nᵍ − 3)` (Hedges & Olkin 1985, *Statistical Methods for
+/// Meta-Analysis*, ch. 11), the between-group variance τ_z² and the pooled ẑ by Paule–Mandel
+/// ([`crate::random_effects`]), and each group's z replaced by its posterior mean
+/// `(zᵍ/vᵍ + ẑ/τ_z²)/(1/vᵍ + 1/τ_z²)` (ẑ itself when τ_z² = 0), back-transformed by tanh and
+/// clamped to ±0.9. A single group, or groups of three vehicles or fewer, keep their own.
+pub fn pool_pad_rotor_correlations(groups: &[(f64, u32)]) -> Vec<f64> {
+    let bound = MAX_PAD_ROTOR_CORRELATION;
+    let clamp = |r: f64| r.clamp(-bound, bound);
+    let usable: Vec<(usize, f64, f64)> = groups
+        .iter()
+        .enumerate()
+        .filter(|(_, (r, n))| r.is_finite() && *n > 3)
+        .map(|(i, (r, n))| (i, r.clamp(-0.95, 0.95).atanh(), 1.0 / (f64::from(*n) - 3.0)))
+        .collect();
+    let z: Vec<f64> = usable.iter().map(|u| u.1).collect();
+    let v: Vec<f64> = usable.iter().map(|u| u.2).collect();
+    let mut out: Vec<f64> = groups.iter().map(|(r, _)| clamp(*r)).collect();
+    let Some(pm) = paule_mandel(&z, &v) else { return out };
+    for &(i, zi, vi) in &usable {
+        let shrunk = if pm.between_variance > 0.0 {
+            (zi / vi + pm.mean / pm.between_variance) / (1.0 / vi + 1.0 / pm.between_variance)
+        } else {
+            pm.mean
+        };
+        out[i] = clamp(shrunk.tanh());
+    }
+    out
 }
 
 /// Precision-weighted combination of an estimate `(mean, variance)` with a prior; returns the

@@ -4,7 +4,8 @@
 //! property a wrong implementation breaks.
 
 use brakeledger_models::pooling::{
-    combine, estimate_pad_coupling, estimate_prior, own_rate_variance, rate_variance_inflation, vehicle_key, RatePrior,
+    combine, estimate_pad_coupling, estimate_prior, own_rate_variance, pool_pad_rotor_correlations, rate_variance_inflation, vehicle_key,
+    RatePrior,
 };
 use brakeledger_models::{fit_part, ForecastSettings, WearFit};
 
@@ -139,4 +140,29 @@ fn residuals_in_streaks_widen_the_rate() {
     // The t-type spread: few degrees of freedom widen more than many.
     assert!(rate_variance_inflation(3.0, 0.0, &settings) > rate_variance_inflation(30.0, 0.0, &settings));
     assert!((rate_variance_inflation(30.0, 0.0, &settings) - 30.0 / 28.0).abs() < 1e-12);
+}
+
+/// The pad–rotor correlations of several groups are pooled on Fisher's z scale (Hedges &
+/// Olkin 1985, *Statistical Methods for Meta-Analysis*, ch. 11: z = atanh r, variance
+/// 1/(n − 3)). Expected values worked from those formulas outside this code (Python 3 `math`:
+/// atanh, tanh and the closed form of Paule–Mandel for equal variances).
+#[test]
+fn pad_rotor_correlations_are_pooled_on_fishers_z() {
+    // Homogeneous: r = 0.6 and 0.7 from 8 vehicles each. z = 0.693147, 0.867301, v = 0.2;
+    // Q(0) = 2·0.087077²/0.2 = 0.0758 ≤ 1, so τ_z² = 0 and both take tanh(0.780224) = 0.652835.
+    let pooled = pool_pad_rotor_correlations(&[(0.6, 8), (0.7, 8)]);
+    for r in &pooled {
+        assert!((r - 0.652835).abs() < 1e-5, "{pooled:?}");
+    }
+    // Heterogeneous: r = 0.2 and 0.8 from 33 vehicles each: z = 0.202733, 1.098612, v = 1/30.
+    // Paule–Mandel with equal variances: Σ(z − z̄)²/(v + τ²) = 1 gives
+    // v + τ² = 2·0.447940² = 0.401300, τ² = 0.367967; each z moves toward z̄ = 0.650672 by
+    // v/(v + τ²) = 0.083063: 0.239940 and 1.061405, i.e. r = 0.235439 and 0.786201.
+    let pooled = pool_pad_rotor_correlations(&[(0.2, 33), (0.8, 33)]);
+    assert!((pooled[0] - 0.235439).abs() < 1e-5 && (pooled[1] - 0.786201).abs() < 1e-5, "{pooled:?}");
+    // A lone group keeps its own value (clamped to ±0.9); so does a group of three vehicles.
+    assert_eq!(pool_pad_rotor_correlations(&[(0.95, 40)]), vec![0.9]);
+    let mixed = pool_pad_rotor_correlations(&[(0.1, 3), (0.6, 8), (0.7, 8)]);
+    assert_eq!(mixed[0], 0.1);
+    assert!((mixed[1] - 0.652835).abs() < 1e-5);
 }
