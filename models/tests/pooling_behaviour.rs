@@ -175,7 +175,7 @@ fn lognormal_test_prior(mean: f64, sd: f64) -> RatePrior {
 /// Posterior moments by direct integration over k (not log k) with Simpson's rule, the
 /// lognormal density written out (σ_l² = ln(1 + v/m²), μ_l = ln m − σ_l²/2): an independent
 /// route to the same integral.
-fn simpson_posterior(own: f64, own_sd: f64, mean: f64, sd: f64) -> (f64, f64) {
+pub fn simpson_posterior(own: f64, own_sd: f64, mean: f64, sd: f64) -> (f64, f64) {
     let s2 = (1.0 + (sd / mean).powi(2)).ln();
     let mu = mean.ln() - 0.5 * s2;
     let density = |k: f64| {
