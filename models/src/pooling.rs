@@ -399,20 +399,26 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
     if !(step > 0.0) || step > 0.25 * own_sd / own_mean.max(m) {
         return None;
     }
-    let log_density: Vec<f64> = (0..=LOG_RATE_GRID_POINTS)
-        .map(|j| {
-            let u = low + step * j as f64;
-            -(u - log_mean).powi(2) / (2.0 * log_var) - (own_mean - u.exp()).powi(2) / (2.0 * own_variance)
-        })
-        .collect();
-    let top = log_density.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    // k on the grid by repeated multiplication (one exp for the whole grid), log densities on
+    // the stack, then weights relative to the largest.
+    let ratio = step.exp();
+    let mut log_density = [0.0; LOG_RATE_GRID_POINTS + 1];
+    let mut k = low.exp();
+    let mut top = f64::NEG_INFINITY;
+    for (j, ld) in log_density.iter_mut().enumerate() {
+        let u = low + step * j as f64;
+        *ld = -(u - log_mean).powi(2) / (2.0 * log_var) - (own_mean - k).powi(2) / (2.0 * own_variance);
+        top = top.max(*ld);
+        k *= ratio;
+    }
     let (mut w0, mut w1, mut w2) = (0.0, 0.0, 0.0);
-    for (j, ld) in log_density.iter().enumerate() {
-        let k = (low + step * j as f64).exp();
+    let mut k = low.exp();
+    for ld in &log_density {
         let w = (ld - top).exp();
         w0 += w;
         w1 += w * k;
         w2 += w * k * k;
+        k *= ratio;
     }
     let mean = w1 / w0;
     let variance = (w2 / w0 - mean * mean).max(0.0);
