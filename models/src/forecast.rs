@@ -9,8 +9,9 @@
 //! the line no longer describes the part and the anchor becomes that inspection (variance: the
 //! gauge noise), with a note: a fresh measurement outranks an extrapolation. The wear rate `k` (mm/MJ)
 //! is normal with the posterior mean and variance from [`crate::pooling`] (own fit, fleet
-//! prior, or both; own fit and lognormal prior combined by [`crate::pooling::combine_lognormal`]). The residual SD σ used to scale the own fit's rate variance is shrunk
-//! toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
+//! prior, or both; both combined under a lognormal prior by
+//! [`crate::pooling::combine_lognormal`]). The residual SD σ used to scale the own fit's rate
+//! variance is shrunk toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
 //! `σ² = (ν·s² + ν₀·σ₀²)/(ν + ν₀)`.
 //!
 //! The remaining energy is `R = (T_now − T_min)/k`; the days to dissipate it are inverse

@@ -373,11 +373,10 @@ const LOG_RATE_GRID_POINTS: usize = 400;
 /// Wear rates are positive and spread multiplicatively between vehicles (a vehicle factor times
 /// a part factor), so a lognormal prior fits them better than a normal one: it puts no mass
 /// at or below zero (a negative own slope within gauge noise is combined without truncation),
-/// and its right tail is heavier, so a part that really wears fast is pulled down less (its
-/// left tail is lighter: a slow part is pulled up a little more than by a normal prior of the
-/// same mean and spread) (random-parameter degradation models with lognormal rates:
-/// Meeker & Escobar, *Statistical Methods for Reliability Data*, 1998, ch. 13, recalled from
-/// memory).
+/// and its right tail is heavier, so a part that really wears fast is pulled down less; its
+/// left tail is lighter, so a slow part is pulled up a little more than by a normal prior of
+/// the same mean and spread. Random-parameter degradation models with lognormal rates: Meeker
+/// & Escobar, *Statistical Methods for Reliability Data*, 1998, ch. 13 (recalled from memory).
 ///
 /// `None` when an input is not finite or not positive where it must be, or when the own
 /// estimate is so precise that the grid cannot resolve it (the prior's shape is then
@@ -396,7 +395,7 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
     let high = (log_mean + 6.0 * log_sd).max((own_mean + 6.0 * own_sd).max(f64::MIN_POSITIVE).ln());
     let step = (high - low) / LOG_RATE_GRID_POINTS as f64;
     // Four grid steps per likelihood SD at the larger of the two centres, or the grid is too coarse.
-    if !(step > 0.0) || step > 0.25 * own_sd / own_mean.max(m) {
+    if step.is_nan() || step <= 0.0 || step > 0.25 * own_sd / own_mean.max(m) {
         return None;
     }
     // k on the grid by repeated multiplication (one exp for the whole grid), log densities on
