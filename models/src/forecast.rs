@@ -9,8 +9,9 @@
 //! the line no longer describes the part and the anchor becomes that inspection (variance: the
 //! gauge noise), with a note: a fresh measurement outranks an extrapolation. The wear rate `k` (mm/MJ)
 //! is normal with the posterior mean and variance from [`crate::pooling`] (own fit, fleet
-//! prior, or both). The residual SD σ used to scale the own fit's rate variance is shrunk
-//! toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
+//! prior, or both; both combined under a lognormal prior by
+//! [`crate::pooling::combine_lognormal`]). The residual SD σ used to scale the own fit's rate
+//! variance is shrunk toward the group's pooled value (or the gauge noise, 0.3 mm, common practice, no source):
 //! `σ² = (ν·s² + ν₀·σ₀²)/(ν + ν₀)`.
 //!
 //! The remaining energy is `R = (T_now − T_min)/k`; the days to dissipate it are inverse
@@ -34,7 +35,7 @@ use statrs::distribution::{ContinuousCDF, Normal};
 pub use crate::settings::ForecastSettings;
 use crate::energy_rate::{estimate_energy_rate, EnergyRate};
 use crate::first_passage::FirstPassage;
-use crate::pooling::{combine, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
+use crate::pooling::{combine, combine_lognormal, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
 use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -214,8 +215,9 @@ fn choose_rate(
     let from_pad = |p: &RatePrior| if p.from_pad { " and this axle's own pad (lining) rate" } else { "" };
     let rate = match (own, prior) {
         (Some((k, v, inspections)), Some(p)) => {
-            // A wear rate cannot be negative: the posterior is the normal update truncated at 0.
-            let (mean, variance) = truncated_at_zero(combine(k, v, p));
+            // A wear rate cannot be negative: the prior is lognormal (positive), or, where the
+            // own estimate is too sharp for that to matter, the normal update truncated at 0.
+            let (mean, variance) = combine_lognormal(k, v, p).unwrap_or_else(|| truncated_at_zero(combine(k, v, p)));
             if k <= 0.0 {
                 notes.push(format!(
                     "the vehicle's own inspections show no wear yet ({k:.3e} mm/MJ); combined with the fleet prior of {} vehicles{}",

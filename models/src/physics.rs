@@ -294,14 +294,19 @@ mod tests {
         assert!((trip.friction_energy_j - 1.05 * 578_703.7).abs() < 1.0);
     }
 
-    /// Bulk rotor temperature rise ΔT = share·E/(m·c) with grey cast iron's specific heat of
-    /// about 490 J/(kg·K) (typical materials-handbook value for grey iron, value recalled from
-    /// memory). Front axle 70 % of 578.7 kJ over two 7 kg rotors, 90 % into the rotor:
-    /// ΔT = 0.9·(0.35·578 703.7)/(7·490) = 53.1 K.
+    /// Bulk rotor temperature rise against a published worked example, "How hot do brakes
+    /// get?" (an article reproduced at scribd.com, document 12801615): a 3000 lb car stopping
+    /// from 60 mph puts 469.7 BTU into four 10 lb cast-iron rotors of specific heat
+    /// 0.130 BTU/(lb·°F) and they warm by 90.3 °F. In SI units (1 BTU = 1055.056 J,
+    /// 1 lb = 0.45359237 kg, 1 BTU/(lb·°F) = 4186.8 J/(kg·K), a rise of 1 °F = 5/9 K):
+    /// 495 559.8 J into 18.143695 kg at 544.284 J/(kg·K), a rise of 90.3·5/9 = 50.17 K.
     #[test]
     fn rotor_temperature_rise_of_a_single_stop() {
-        let rise = bulk_temperature_rise_k(0.9, 0.35 * 578_703.7, 7.0, 490.0);
-        assert!((rise - 53.14).abs() < 0.01, "{rise}");
+        let rise = bulk_temperature_rise_k(1.0, 469.7 * 1055.056, 4.0 * 10.0 * 0.453_592_37, 0.130 * 4186.8);
+        assert!((rise * 9.0 / 5.0 - 90.3).abs() < 0.05, "{} °F", rise * 9.0 / 5.0);
+        // The heat share into the rotor scales the rise in proportion.
+        let shared = bulk_temperature_rise_k(0.9, 469.7 * 1055.056, 4.0 * 10.0 * 0.453_592_37, 0.130 * 4186.8);
+        assert!((shared / rise - 0.9).abs() < 1e-12);
         // The stop is not hot at a 100 K threshold but is at 50 K.
         let mut v = car();
         assert_eq!(summarise_trace(&stop(100.0 / 3.6, 10), &v).hot_energy_j, 0.0);
@@ -396,12 +401,17 @@ mod tests {
         assert!((trip.friction_energy_j + trip.regen_energy_j - total).abs() < 1.0);
     }
 
-    /// Weight transfer: front share rises by a·h/(g·L). Braking at 0.5 g with h/L = 0.2 moves
-    /// 0.1 of the load to the front (Gillespie ch. 3 load-transfer formula, evaluated by hand).
+    /// Weight transfer against a published worked example (the weight-transfer calculator of
+    /// machinecalcs.com, "Worked example"): a 1500 kg vehicle with 55 % of its weight on the
+    /// front axle, its centre of gravity 520 mm high and a 2700 mm wheelbase transfers about
+    /// 260 kg of axle load to the front when braking at 0.9 g, so the front carries
+    /// 0.55·1500 + 260 = 1085 kg, a share of 0.7233.
     #[test]
     fn dynamic_split_moves_share_to_the_front() {
-        let shares = dynamic_axle_shares(&[0.6, 0.4], 0.5 * 9.806_65, 0.6, 3.0);
-        assert!((shares[0] - 0.7).abs() < 1e-12 && (shares[1] - 0.3).abs() < 1e-12, "{shares:?}");
+        let shares = dynamic_axle_shares(&[0.55, 0.45], 0.9 * 9.806_65, 0.52, 2.7);
+        let transferred_kg = (shares[0] - 0.55) * 1500.0;
+        assert!((transferred_kg - 260.0).abs() < 0.5, "{transferred_kg} kg");
+        assert!((shares[0] + shares[1] - 1.0).abs() < 1e-12, "{shares:?}");
         let three = dynamic_axle_shares(&[0.4, 0.3, 0.3], 0.3 * 9.806_65, 1.0, 5.0);
         assert!((three[0] - 0.46).abs() < 1e-12);
         assert!((three[1] - three[2]).abs() < 1e-12);

@@ -11,7 +11,7 @@ use std::collections::{BTreeMap, HashMap};
 
 use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
-use crate::pooling::{estimate_pad_coupling, estimate_prior, vehicle_key, PadCoupling, WearPrior};
+use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::vehicle_forecast::{forecast_vehicle, PartData};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
@@ -74,9 +74,14 @@ pub fn estimate_group_priors(
             estimate_pad_coupling(pad, rotor, settings).map(|c| (k.clone(), c))
         })
         .collect();
-    for (k, c) in couplings {
+    // Each group's correlation shrunk toward the fleet's (pooling docs); β follows it.
+    let pooled = pool_pad_rotor_correlations(&couplings.iter().map(|(_, c)| (c.correlation, c.vehicles)).collect::<Vec<_>>());
+    for ((k, c), correlation) in couplings.into_iter().zip(pooled) {
+        let pad_key = GroupKey { component: Component::Friction, ..k.clone() };
+        let pad_sd = priors.get(&pad_key).map_or(f64::NAN, |p| p.between_sd_mm_per_mj);
         if let Some(p) = priors.get_mut(&k) {
-            p.pad_coupling = Some(c);
+            let slope = correlation * p.between_sd_mm_per_mj / pad_sd;
+            p.pad_coupling = Some(if slope.is_finite() { PadCoupling { correlation, slope, ..c } } else { c });
         }
     }
     priors

@@ -42,11 +42,16 @@
 //! mean = μ_rotor,₋ᵢ + β·(m_p − μ_p),   variance = τ_rotor²·(1 − ρ_pr²) + β²·v_p + 1/W₋ᵢ
 //! ```
 //! so a rotor whose own change is still within gauge noise is forecast from the fleet and from
-//! its own pad's rate.
+//! its own pad's rate. One group's ρ_pr rests on some thirty vehicles and scatters widely by
+//! chance, so the groups of a fleet are pooled on Fisher's z scale and each group's ρ_pr is
+//! shrunk toward the fleet's ([`pool_pad_rotor_correlations`]); β follows the shrunk ρ_pr.
 //!
-//! A vehicle's estimate is then combined with its prior by precision weighting (the conjugate
-//! normal update; Gebraeel et al. 2005, IIE Transactions 37:543):
-//! `k_post = (k̂/s² + m/v)/(1/s² + 1/v)`, `Var = 1/(1/s² + 1/v)`.
+//! A vehicle's estimate is then combined with its prior (Bayesian updating of a degradation
+//! rate; Gebraeel et al. 2005, IIE Transactions 37:543). Rates spread multiplicatively between
+//! vehicles, so the prior is taken as lognormal with the prior's mean and variance and the
+//! posterior integrated on a grid of log k ([`combine_lognormal`]); where the own estimate is
+//! too precise for that grid, the prior's shape does not matter and the conjugate normal update
+//! is used ([`combine`]): `k_post = (k̂/s² + m/v)/(1/s² + 1/v)`, `Var = 1/(1/s² + 1/v)`.
 
 use serde::{Deserialize, Serialize};
 
@@ -318,6 +323,105 @@ pub fn estimate_pad_coupling(pad: &WearPrior, rotor: &WearPrior, settings: &Fore
     }
     let correlation = (cov / (tp * tr)).clamp(-MAX_PAD_ROTOR_CORRELATION, MAX_PAD_ROTOR_CORRELATION);
     Some(PadCoupling { correlation, slope: correlation * tr / tp, vehicles: n as u32 })
+}
+
+/// Shrinks each rotor (drum) group's pad–rotor correlation toward the fleet's, given each
+/// group's `(correlation, vehicles)`; returns the shrunk correlations in the same order.
+///
+/// One group of thirty vehicles estimates a correlation with a standard error of about 0.15,
+/// so groups sharing one mechanism (pad and rotor of one brake share the vehicle's duty) show
+/// correlations scattered from 0.2 to 0.9 by chance. The groups are therefore pooled as a
+/// random-effects meta-analysis of correlations on Fisher's z scale: `zᵍ = atanh(rᵍ)` with
+/// sampling variance `1/(nᵍ − 3)` (Hedges & Olkin 1985, *Statistical Methods for
+/// Meta-Analysis*, ch. 11), the between-group variance τ_z² and the pooled ẑ by Paule–Mandel
+/// ([`crate::random_effects`]), and each group's z replaced by its posterior mean
+/// `(zᵍ/vᵍ + ẑ/τ_z²)/(1/vᵍ + 1/τ_z²)` (ẑ itself when τ_z² = 0), back-transformed by tanh and
+/// clamped to ±0.9. A single group, or groups of three vehicles or fewer, keep their own.
+pub fn pool_pad_rotor_correlations(groups: &[(f64, u32)]) -> Vec<f64> {
+    let bound = MAX_PAD_ROTOR_CORRELATION;
+    let clamp = |r: f64| r.clamp(-bound, bound);
+    let usable: Vec<(usize, f64, f64)> = groups
+        .iter()
+        .enumerate()
+        .filter(|(_, (r, n))| r.is_finite() && *n > 3)
+        .map(|(i, (r, n))| (i, r.clamp(-0.95, 0.95).atanh(), 1.0 / (f64::from(*n) - 3.0)))
+        .collect();
+    let z: Vec<f64> = usable.iter().map(|u| u.1).collect();
+    let v: Vec<f64> = usable.iter().map(|u| u.2).collect();
+    let mut out: Vec<f64> = groups.iter().map(|(r, _)| clamp(*r)).collect();
+    let Some(pm) = paule_mandel(&z, &v) else { return out };
+    for &(i, zi, vi) in &usable {
+        let shrunk = if pm.between_variance > 0.0 {
+            (zi / vi + pm.mean / pm.between_variance) / (1.0 / vi + 1.0 / pm.between_variance)
+        } else {
+            pm.mean
+        };
+        out[i] = clamp(shrunk.tanh());
+    }
+    out
+}
+
+/// Points of the log-rate grid of [`combine_lognormal`].
+const LOG_RATE_GRID_POINTS: usize = 400;
+
+/// Posterior `(mean, variance)` of a rate whose prior is lognormal and whose own estimate is
+/// normal: the prior's mean `m` and variance `v` are matched by a lognormal (σ_l² = ln(1 +
+/// v/m²), μ_l = ln m − σ_l²/2), the own estimate `k̂ ~ N(k, s²)` is the likelihood, and the
+/// posterior moments of `k` are integrated on an even grid of `u = ln k` spanning both
+/// (posterior density in u ∝ N(u; μ_l, σ_l²)·N(k̂; eᵘ, s²)).
+///
+/// Wear rates are positive and spread multiplicatively between vehicles (a vehicle factor times
+/// a part factor), so a lognormal prior fits them better than a normal one: it puts no mass
+/// at or below zero (a negative own slope within gauge noise is combined without truncation),
+/// and its right tail is heavier, so a part that really wears fast is pulled down less; its
+/// left tail is lighter, so a slow part is pulled up a little more than by a normal prior of
+/// the same mean and spread. Random-parameter degradation models with lognormal rates: Meeker
+/// & Escobar, *Statistical Methods for Reliability Data*, 1998, ch. 13 (recalled from memory).
+///
+/// `None` when an input is not finite or not positive where it must be, or when the own
+/// estimate is so precise that the grid cannot resolve it (the prior's shape is then
+/// immaterial; use [`combine`]).
+pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) -> Option<(f64, f64)> {
+    let (m, v) = (prior.mean_mm_per_mj, prior.variance);
+    if !(own_mean.is_finite() && own_variance > 0.0 && own_variance.is_finite() && m > 0.0 && v > 0.0 && m.is_finite() && v.is_finite()) {
+        return None;
+    }
+    let log_var = (v / (m * m)).ln_1p();
+    let log_sd = log_var.sqrt();
+    let log_mean = m.ln() - 0.5 * log_var;
+    let own_sd = own_variance.sqrt();
+    // The grid spans ±6 prior SDs and the likelihood's ±6 SDs (where positive).
+    let low = (log_mean - 6.0 * log_sd).min((own_mean - 6.0 * own_sd).max((log_mean - 12.0 * log_sd).exp()).ln());
+    let high = (log_mean + 6.0 * log_sd).max((own_mean + 6.0 * own_sd).max(f64::MIN_POSITIVE).ln());
+    let step = (high - low) / LOG_RATE_GRID_POINTS as f64;
+    // Four grid steps per likelihood SD at the larger of the two centres, or the grid is too coarse.
+    if step.is_nan() || step <= 0.0 || step > 0.25 * own_sd / own_mean.max(m) {
+        return None;
+    }
+    // k on the grid by repeated multiplication (one exp for the whole grid), log densities on
+    // the stack, then weights relative to the largest.
+    let ratio = step.exp();
+    let mut log_density = [0.0; LOG_RATE_GRID_POINTS + 1];
+    let mut k = low.exp();
+    let mut top = f64::NEG_INFINITY;
+    for (j, ld) in log_density.iter_mut().enumerate() {
+        let u = low + step * j as f64;
+        *ld = -(u - log_mean).powi(2) / (2.0 * log_var) - (own_mean - k).powi(2) / (2.0 * own_variance);
+        top = top.max(*ld);
+        k *= ratio;
+    }
+    let (mut w0, mut w1, mut w2) = (0.0, 0.0, 0.0);
+    let mut k = low.exp();
+    for ld in &log_density {
+        let w = (ld - top).exp();
+        w0 += w;
+        w1 += w * k;
+        w2 += w * k * k;
+        k *= ratio;
+    }
+    let mean = w1 / w0;
+    let variance = (w2 / w0 - mean * mean).max(0.0);
+    (mean.is_finite() && mean > 0.0 && variance.is_finite()).then_some((mean, variance))
 }
 
 /// Precision-weighted combination of an estimate `(mean, variance)` with a prior; returns the

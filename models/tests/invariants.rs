@@ -1,7 +1,7 @@
 //! Property tests of the model's invariants.
 
 use brakeledger_models::forecast::DueDistribution;
-use brakeledger_models::{fit_part, forecast_part, ForecastSettings};
+use brakeledger_models::{fit_part, forecast_part, ForecastSettings, RatePrior};
 use proptest::prelude::*;
 
 use crate::forecast_behaviour::{energy, inspection, pad, prior, replacement};
@@ -46,17 +46,48 @@ proptest! {
         }
     }
 
-    /// The forecast's due quantiles are non-decreasing and the band widens with the level.
+    /// The band is read off the right percentiles: at level L the 50 ∓ 100·L/2 th, linearly
+    /// between whole percentiles (the quantiles are sorted by construction, so nesting of bands
+    /// would prove nothing; reading the wrong positions fails here).
     #[test]
-    fn forecast_band_widens_with_level(t1 in 10.0f64..20.0, wear in 1.0f64..6.0, level in 0.5f64..0.9) {
-        let h = pad(vec![replacement(19_700.0, 0.0), inspection(19_800.0, 8000.0, t1), inspection(19_900.0, 16_000.0, t1 - wear)]);
-        let o = forecast_part(&h, None, Some(&prior()), &energy(), 20_000.0, 20_000.0, &few_draws());
-        let due = o.due.expect("date");
-        prop_assert!(due.quantile_days.windows(2).all(|w| w[0] <= w[1]));
-        let (l1, _, h1) = due.band(level);
-        let (l2, _, h2) = due.band((level + 0.08).min(0.98));
-        prop_assert!(l2 <= l1 && h1 <= h2);
-        prop_assert!(o.current_thickness_low_mm <= o.current_thickness_mm && o.current_thickness_mm <= o.current_thickness_high_mm);
+    fn the_band_reads_the_right_percentiles(draws in proptest::collection::vec(0.0f64..1e4, 100..300), level in 0.02f64..0.98) {
+        let due = DueDistribution::from_draws(draws).expect("draws");
+        let q = &due.quantile_days;
+        let (low, median, high) = due.band(level);
+        let at = |p: f64| {
+            let pos = p * 100.0 - 1.0;
+            let i = pos.floor() as usize;
+            let frac = pos - i as f64;
+            if frac == 0.0 { q[i] } else { q[i] + frac * (q[i + 1] - q[i]) }
+        };
+        prop_assert_eq!(median, q[49]);
+        prop_assert!((low - at(0.5 - level / 2.0)).abs() <= 1e-9 * low.abs().max(1.0), "{} vs {}", low, at(0.5 - level / 2.0));
+        prop_assert!((high - at(0.5 + level / 2.0)).abs() <= 1e-9 * high.abs().max(1.0), "{} vs {}", high, at(0.5 + level / 2.0));
+    }
+
+    /// A part resting on the fleet prior alone (fitted, not inspected since): today's thickness
+    /// is `new − k·d` with SD `sd(k)·d`, so its 80 % band is the mean ∓ z₀.₉·sd(k)·d with
+    /// z₀.₉ = 1.2816 (standard normal table, NIST/SEMATECH e-Handbook of Statistical Methods,
+    /// §1.3.6.7.1, recalled from memory); and a wider prior widens the due band.
+    #[test]
+    fn a_prior_only_part_has_the_normal_thickness_band_and_a_wider_prior_a_wider_due_band(energy_since in 2_000.0f64..20_000.0, relative_sd in 0.05f64..0.15) {
+        let h = pad(vec![replacement(19_900.0, 10_000.0)]);
+        let mean = 5e-4;
+        let narrow = RatePrior { variance: (relative_sd * mean).powi(2), ..prior() };
+        let wide = RatePrior { variance: (3.0 * relative_sd * mean).powi(2), ..prior() };
+        let settings = few_draws();
+        let o = forecast_part(&h, None, Some(&narrow), &energy(), 20_000.0, 10_000.0 + energy_since, &settings);
+        let expected_mean = 22.0 - mean * energy_since;
+        let half_width = 1.2816 * relative_sd * mean * energy_since;
+        prop_assert!((o.current_thickness_mm - expected_mean).abs() < 1e-9);
+        prop_assert!((o.current_thickness_high_mm - (expected_mean + half_width)).abs() < 1e-3 * half_width);
+        prop_assert!((o.current_thickness_low_mm - (expected_mean - half_width).max(0.0)).abs() < 1e-3 * half_width);
+        let w = forecast_part(&h, None, Some(&wide), &energy(), 20_000.0, 10_000.0 + energy_since, &settings);
+        if let (Some(a), Some(b)) = (o.due.filter(|_| !o.due_now), w.due.filter(|_| !w.due_now)) {
+            let (al, _, ah) = a.band(0.8);
+            let (bl, _, bh) = b.band(0.8);
+            prop_assert!(bh - bl > 1.5 * (ah - al), "three times the rate SD: band {} vs {} days", bh - bl, ah - al);
+        }
     }
 
     /// Thinner measured pads (same wear between inspections) fall due no later.

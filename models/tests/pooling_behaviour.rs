@@ -4,7 +4,8 @@
 //! property a wrong implementation breaks.
 
 use brakeledger_models::pooling::{
-    combine, estimate_pad_coupling, estimate_prior, own_rate_variance, rate_variance_inflation, vehicle_key, RatePrior,
+    combine, combine_lognormal, estimate_pad_coupling, estimate_prior, own_rate_variance, pool_pad_rotor_correlations, rate_variance_inflation, vehicle_key,
+    RatePrior,
 };
 use brakeledger_models::{fit_part, ForecastSettings, WearFit};
 
@@ -139,4 +140,84 @@ fn residuals_in_streaks_widen_the_rate() {
     // The t-type spread: few degrees of freedom widen more than many.
     assert!(rate_variance_inflation(3.0, 0.0, &settings) > rate_variance_inflation(30.0, 0.0, &settings));
     assert!((rate_variance_inflation(30.0, 0.0, &settings) - 30.0 / 28.0).abs() < 1e-12);
+}
+
+/// The pad–rotor correlations of several groups are pooled on Fisher's z scale (Hedges &
+/// Olkin 1985, *Statistical Methods for Meta-Analysis*, ch. 11: z = atanh r, variance
+/// 1/(n − 3)). Expected values worked from those formulas outside this code (Python 3 `math`:
+/// atanh, tanh and the closed form of Paule–Mandel for equal variances).
+#[test]
+fn pad_rotor_correlations_are_pooled_on_fishers_z() {
+    // Homogeneous: r = 0.6 and 0.7 from 8 vehicles each. z = 0.693147, 0.867301, v = 0.2;
+    // Q(0) = 2·0.087077²/0.2 = 0.0758 ≤ 1, so τ_z² = 0 and both take tanh(0.780224) = 0.652835.
+    let pooled = pool_pad_rotor_correlations(&[(0.6, 8), (0.7, 8)]);
+    for r in &pooled {
+        assert!((r - 0.652835).abs() < 1e-5, "{pooled:?}");
+    }
+    // Heterogeneous: r = 0.2 and 0.8 from 33 vehicles each: z = 0.202733, 1.098612, v = 1/30.
+    // Paule–Mandel with equal variances: Σ(z − z̄)²/(v + τ²) = 1 gives
+    // v + τ² = 2·0.447940² = 0.401300, τ² = 0.367967; each z moves toward z̄ = 0.650672 by
+    // v/(v + τ²) = 0.083063: 0.239940 and 1.061405, i.e. r = 0.235439 and 0.786201.
+    let pooled = pool_pad_rotor_correlations(&[(0.2, 33), (0.8, 33)]);
+    assert!((pooled[0] - 0.235439).abs() < 1e-5 && (pooled[1] - 0.786201).abs() < 1e-5, "{pooled:?}");
+    // A lone group keeps its own value (clamped to ±0.9); so does a group of three vehicles.
+    assert_eq!(pool_pad_rotor_correlations(&[(0.95, 40)]), vec![0.9]);
+    let mixed = pool_pad_rotor_correlations(&[(0.1, 3), (0.6, 8), (0.7, 8)]);
+    assert_eq!(mixed[0], 0.1);
+    assert!((mixed[1] - 0.652835).abs() < 1e-5);
+}
+
+/// A prior for the lognormal-combination checks (invented values).
+fn lognormal_test_prior(mean: f64, sd: f64) -> RatePrior {
+    RatePrior { mean_mm_per_mj: mean, variance: sd * sd, vehicles: 20, residual_sd_mm: 0.3, residual_autocorrelation: 0.0, from_pad: false, rate_drift_sd: 0.0 }
+}
+
+/// Posterior moments by direct integration over k (not log k) with Simpson's rule, the
+/// lognormal density written out (σ_l² = ln(1 + v/m²), μ_l = ln m − σ_l²/2): an independent
+/// route to the same integral.
+pub fn simpson_posterior(own: f64, own_sd: f64, mean: f64, sd: f64) -> (f64, f64) {
+    let s2 = (1.0 + (sd / mean).powi(2)).ln();
+    let mu = mean.ln() - 0.5 * s2;
+    let density = |k: f64| {
+        let prior = (-(k.ln() - mu).powi(2) / (2.0 * s2)).exp() / k;
+        prior * (-(own - k).powi(2) / (2.0 * own_sd * own_sd)).exp()
+    };
+    let (a, b, n) = (1e-9 * mean, 20.0 * mean, 200_000);
+    let h = (b - a) / n as f64;
+    let (mut z0, mut z1, mut z2) = (0.0, 0.0, 0.0);
+    for i in 0..=n {
+        let k = a + h * i as f64;
+        let w = if i == 0 || i == n { 1.0 } else if i % 2 == 1 { 4.0 } else { 2.0 };
+        let f = density(k);
+        z0 += w * f;
+        z1 += w * f * k;
+        z2 += w * f * k * k;
+    }
+    (z1 / z0, z2 / z0 - (z1 / z0).powi(2))
+}
+
+#[test]
+fn a_lognormal_prior_is_combined_with_the_own_rate_as_its_integral_says() {
+    let prior = lognormal_test_prior(4e-4, 1.6e-4);
+    // A slow part, a negative own slope within noise, and a fast part.
+    for (own, own_sd) in [(2e-4, 5e-5), (-1e-4, 1.5e-4), (7e-4, 1e-4)] {
+        let (mean, variance) = combine_lognormal(own, own_sd * own_sd, &prior).expect("resolvable");
+        let (reference_mean, reference_variance) = simpson_posterior(own, own_sd, 4e-4, 1.6e-4);
+        assert!((mean / reference_mean - 1.0).abs() < 2e-3, "own {own}: mean {mean} vs {reference_mean}");
+        assert!((variance / reference_variance - 1.0).abs() < 1e-2, "own {own}: variance {variance} vs {reference_variance}");
+        assert!(mean > 0.0);
+    }
+    // Own data that say nothing leave the prior's own mean and variance (the moment matching).
+    let (mean, variance) = combine_lognormal(4e-4, 1.0, &prior).expect("resolvable");
+    assert!((mean / 4e-4 - 1.0).abs() < 1e-3 && (variance.sqrt() / 1.6e-4 - 1.0).abs() < 1e-2, "{mean} {variance}");
+    // Its right tail is heavier than a normal prior's of the same mean and SD: a fast part is
+    // pulled down less; its left tail is lighter: a slow part is pulled up more.
+    let (fast_lognormal, _) = combine_lognormal(8e-4, (1.5e-4f64).powi(2), &prior).expect("resolvable");
+    let (fast_normal, _) = combine(8e-4, (1.5e-4f64).powi(2), &prior);
+    assert!(fast_lognormal > fast_normal, "{fast_lognormal} vs {fast_normal}");
+    let (slow_lognormal, _) = combine_lognormal(1.5e-4, (6e-5f64).powi(2), &prior).expect("resolvable");
+    let (slow_normal, _) = combine(1.5e-4, (6e-5f64).powi(2), &prior);
+    assert!(slow_lognormal > slow_normal, "{slow_lognormal} vs {slow_normal}");
+    // An own rate far sharper than the grid can resolve is left to the normal update.
+    assert!(combine_lognormal(4e-4, (1e-9f64).powi(2), &prior).is_none());
 }
