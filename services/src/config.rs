@@ -31,6 +31,8 @@ pub struct Settings {
     pub limits: LimitsConfig,
     /// Prometheus metrics listener.
     pub metrics: MetricsConfig,
+    /// TLS on the gRPC listener.
+    pub tls: TlsConfig,
     /// Forecast settings.
     pub forecast: ForecastConfig,
     /// HTTP/2 flow control (see [`Http2Config`] for why these values).
@@ -85,6 +87,7 @@ impl Default for Settings {
             auth: AuthConfig::default(),
             limits: LimitsConfig::default(),
             metrics: MetricsConfig::default(),
+            tls: TlsConfig::default(),
             forecast: ForecastConfig::default(),
             http2: Http2Config::default(),
             ingest: IngestConfig::default(),

@@ -17,6 +17,7 @@
 //! - [`server`]: the one entry point, [`server::run`].
 //! - [`drain`]: the shutdown drain (deadline for open ingest streams, then UNAVAILABLE).
 //! - [`write_health`]: gRPC health of the write services follows whether writes are accepted.
+//! - [`tls`]: TLS on the gRPC listener, reloaded on SIGHUP.
 //! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
@@ -37,6 +38,7 @@ pub mod metrics;
 pub mod server;
 pub mod state;
 pub mod store;
+pub mod tls;
 pub mod write_health;
 
 /// The caution printed with every forecast and plan.

@@ -54,7 +54,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     };
 
     let address = listener.local_addr().ok();
-    tracing::info!(?address, token_required = state.access.requires_token(), "serving brakeledger.v1");
+    tracing::info!(?address, token_required = state.access.requires_token(), tls = state.tls.is_some(), "serving brakeledger.v1");
     let http2 = &state.serving.http2;
     let limits = &state.serving.limits;
     let (max_in, max_out) = (limits.max_request_bytes, limits.max_response_bytes);
@@ -86,11 +86,12 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
             AccessServiceServer::new(AccessApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out),
             state.access.clone(),
         ))
-        .serve_with_incoming_shutdown(
-            // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
-            tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),
-            shutdown,
-        );
+        ;
+    let serve: std::pin::Pin<Box<dyn Future<Output = Result<(), tonic::transport::Error>> + Send>> = match state.tls.clone() {
+        Some(tls) => Box::pin(serve.serve_with_incoming_shutdown(crate::tls::incoming(listener, tls), shutdown)),
+        // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
+        None => Box::pin(serve.serve_with_incoming_shutdown(tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)), shutdown)),
+    };
     let result = drain::bounded(&state, serve).await;
     tracing::info!("stopped serving; flushing the store");
     state.stopping.send_replace(true);

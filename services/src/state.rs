@@ -42,6 +42,8 @@ pub struct AppState {
     pub serving: ServingConfig,
     /// Per-token ingest rate limits.
     pub limiter: Arc<IngestLimiter>,
+    /// TLS of the gRPC listener; `None` serves plain HTTP/2.
+    pub tls: Option<Arc<crate::tls::TlsReloader>>,
 }
 
 impl AppState {
@@ -59,7 +61,14 @@ impl AppState {
             ingest_cutoff: Arc::new(watch::channel(false).0),
             limiter: Arc::new(IngestLimiter::new(&ServingConfig::default().limits)),
             serving: ServingConfig::default(),
+            tls: None,
         }
+    }
+
+    /// The same state serving TLS.
+    pub fn with_tls(mut self, tls: Arc<crate::tls::TlsReloader>) -> Self {
+        self.tls = Some(tls);
+        self
     }
 
     /// The same state with reliability settings (the change feed is sized from them).

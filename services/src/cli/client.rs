@@ -13,10 +13,40 @@ use tonic_types::StatusExt;
 /// Where client subcommands connect, and the bearer token they present (if any).
 #[derive(Clone, PartialEq, Eq)]
 pub struct ServerTarget {
-    /// Server URL, e.g. `http://127.0.0.1:50051`.
+    /// Server URL, e.g. `http://127.0.0.1:50051` (or `https://` for a TLS server).
     pub url: String,
     /// Bearer token for servers that require one.
     pub token: Option<String>,
+    /// TLS settings for `https://` servers.
+    pub tls: ClientTls,
+}
+
+/// How a client checks a TLS server and proves itself to one that asks.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct ClientTls {
+    /// PEM CA certificate(s) to trust for the server; default: the public web PKI roots.
+    pub ca_file: Option<std::path::PathBuf>,
+    /// PEM client certificate, for servers that require one.
+    pub cert_file: Option<std::path::PathBuf>,
+    /// PEM key of the client certificate.
+    pub key_file: Option<std::path::PathBuf>,
+}
+
+impl ClientTls {
+    /// The tonic TLS settings for a server named `domain`.
+    fn tonic_config(&self, domain: &str) -> anyhow::Result<tonic::transport::ClientTlsConfig> {
+        let read = |path: &std::path::Path| std::fs::read(path).with_context(|| format!("reading {}", path.display()));
+        let mut config = tonic::transport::ClientTlsConfig::new().domain_name(domain);
+        config = match &self.ca_file {
+            Some(ca) => config.ca_certificate(tonic::transport::Certificate::from_pem(read(ca)?)),
+            None => config.with_webpki_roots(),
+        };
+        match (&self.cert_file, &self.key_file) {
+            (Some(cert), Some(key)) => Ok(config.identity(tonic::transport::Identity::from_pem(read(cert)?, read(key)?))),
+            (None, None) => Ok(config),
+            _ => anyhow::bail!("--client-cert and --client-key go together"),
+        }
+    }
 }
 
 impl std::fmt::Debug for ServerTarget {
@@ -29,7 +59,7 @@ impl std::fmt::Debug for ServerTarget {
 impl ServerTarget {
     /// A server that needs no token.
     pub fn open(url: impl Into<String>) -> Self {
-        Self { url: url.into(), token: None }
+        Self { url: url.into(), token: None, tls: ClientTls::default() }
     }
 }
 
@@ -80,9 +110,13 @@ impl Connection {
             ),
             None => None,
         };
-        let endpoint = Endpoint::from_shared(server.to_owned())
+        let mut endpoint = Endpoint::from_shared(server.to_owned())
             .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051)"))?
             .connect_timeout(std::time::Duration::from_secs(10));
+        if endpoint.uri().scheme_str() == Some("https") {
+            let domain = endpoint.uri().host().unwrap_or("localhost").to_owned();
+            endpoint = endpoint.tls_config(target.tls.tonic_config(&domain)?).context("TLS settings")?;
+        }
         let channel = endpoint
             .connect()
             .await

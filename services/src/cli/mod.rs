@@ -57,6 +57,15 @@ pub struct Cli {
     /// Bearer token for a server that requires one (sent as `authorization: Bearer <token>`).
     #[arg(long, global = true, env = "BRAKELEDGER_TOKEN", hide_env_values = true)]
     pub token: Option<String>,
+    /// PEM CA certificate to trust for an https:// server (default: the public web roots).
+    #[arg(long, global = true, env = "BRAKELEDGER_CA_FILE")]
+    pub ca_file: Option<PathBuf>,
+    /// PEM client certificate, for a server that requires one (mutual TLS).
+    #[arg(long, global = true, env = "BRAKELEDGER_CLIENT_CERT")]
+    pub client_cert: Option<PathBuf>,
+    /// PEM key of --client-cert.
+    #[arg(long, global = true, env = "BRAKELEDGER_CLIENT_KEY")]
+    pub client_key: Option<PathBuf>,
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
@@ -127,7 +136,8 @@ pub fn exit_code(outcome: anyhow::Result<()>) -> std::process::ExitCode {
 /// Runs a parsed command line, writing the answers (tables, JSON, reports) to `out`; progress
 /// and logs still go to stderr. Tests pass a buffer.
 pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<()> {
-    let server = client::ServerTarget { url: cli.server, token: cli.token };
+    let tls = client::ClientTls { ca_file: cli.ca_file, cert_file: cli.client_cert, key_file: cli.client_key };
+    let server = client::ServerTarget { url: cli.server, token: cli.token, tls };
     let out = &mut *out;
     match cli.command {
         Command::Serve(args) => serve::serve(args, server.token).await,

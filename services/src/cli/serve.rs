@@ -75,6 +75,25 @@ pub async fn shutdown_signal(mut signals: Signals, state: AppState) {
     });
 }
 
+/// Re-reads the TLS files at every SIGHUP (certificate renewal without a restart).
+fn reload_tls_on_hangup(tls: Arc<crate::tls::TlsReloader>) {
+    #[cfg(unix)]
+    tokio::spawn(async move {
+        let Ok(mut hangups) = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::hangup()) else {
+            tracing::warn!("cannot listen for SIGHUP: TLS files are read only at start");
+            return;
+        };
+        while hangups.recv().await.is_some() {
+            match tls.reload() {
+                Ok(()) => tracing::info!("SIGHUP: TLS certificate and key reloaded"),
+                Err(error) => tracing::error!(%error, "SIGHUP: TLS reload failed; the previous certificate stays in use"),
+            }
+        }
+    });
+    #[cfg(not(unix))]
+    drop(tls);
+}
+
 /// Runs the server until a signal. `client_token` is the client's `--token` /
 /// `BRAKELEDGER_TOKEN`, which a server never uses: given as a flag it is refused, and from the
 /// environment it is refused when the server would otherwise run without tokens.
@@ -115,7 +134,14 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     let listener = TcpListener::bind(settings.listen).await.with_context(|| format!("listening on {}", settings.listen))?;
     // Tests and scripts read this line to learn the port when listening on :0.
     println!("brakeledger listening on {}", listener.local_addr()?);
-    let state = AppState::new(store, settings.forecast.clone()).with_access(access.policy).with_serving(settings.serving());
+    let mut state = AppState::new(store, settings.forecast.clone()).with_access(access.policy).with_serving(settings.serving());
+    if settings.tls.enabled() {
+        let tls = Arc::new(crate::tls::TlsReloader::new(settings.tls.clone()).context("setting up TLS")?);
+        reload_tls_on_hangup(Arc::clone(&tls));
+        state = state.with_tls(tls);
+    } else if !settings.listen.ip().is_loopback() {
+        tracing::warn!(listen = %settings.listen, "serving plain HTTP/2 beyond loopback: tokens cross the network in clear unless a TLS proxy is in front ([tls] cert_file, key_file)");
+    }
     if let Some(address) = settings.metrics.listen {
         let metrics_listener = TcpListener::bind(address).await.with_context(|| format!("metrics listener on {address}"))?;
         println!("brakeledger metrics on http://{}/metrics", metrics_listener.local_addr()?);

@@ -78,3 +78,24 @@ pub struct MetricsConfig {
     /// the gRPC port so it can stay on an internal network. Default: none (no listener).
     pub listen: Option<std::net::SocketAddr>,
 }
+
+/// `[tls]`: TLS on the gRPC listener (rustls). Both files set: TLS on; neither: plain HTTP/2
+/// (for a loopback listener or a terminating proxy in front). SIGHUP re-reads the files.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, Eq)]
+#[serde(default, deny_unknown_fields)]
+pub struct TlsConfig {
+    /// PEM certificate chain of the server, leaf first. Default: none.
+    pub cert_file: Option<PathBuf>,
+    /// PEM private key of the server (PKCS#8, PKCS#1 or SEC1). Default: none.
+    pub key_file: Option<PathBuf>,
+    /// PEM CA certificates; when set, clients must present a certificate signed by one of
+    /// them (mutual TLS). Default: none (no client certificate asked for).
+    pub client_ca_file: Option<PathBuf>,
+}
+
+impl TlsConfig {
+    /// Whether TLS is configured at all.
+    pub fn enabled(&self) -> bool {
+        self.cert_file.is_some() || self.key_file.is_some()
+    }
+}
