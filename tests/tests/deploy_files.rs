@@ -193,9 +193,12 @@ fn the_config_map_config_loads_with_the_server_loader_and_matches_the_pod() {
     // Beyond loopback the server needs tokens: the config names the operator token file.
     assert!(settings.auth.operator_token_file.is_some() && !settings.auth.insecure_no_auth);
 
-    // The server is started with the ConfigMap's file.
-    let args: Vec<&str> = list(container, &["args"]).iter().map(|a| a.as_str().unwrap()).collect();
-    let config_at = args.iter().position(|a| *a == "--config").map(|i| args[i + 1]).expect("args name --config");
+    // The server is started with the ConfigMap's file, by a command that replaces the image's
+    // entrypoint: `args` alone would be appended to it (`serve --config … serve --config …`).
+    assert!(container.get("args").is_none(), "args are appended to the image's entrypoint");
+    let command: Vec<&str> = list(container, &["command"]).iter().map(|a| a.as_str().unwrap()).collect();
+    assert_eq!(command.get(1), Some(&"serve"));
+    let config_at = command.iter().position(|a| *a == "--config").map(|i| command[i + 1]).expect("command names --config");
     assert_eq!(
         file_source(stateful_set, Path::new(config_at)),
         FileSource::ConfigMap { name: text(only(&documents, "ConfigMap"), &["metadata", "name"]).to_owned(), key: "brakeledger.toml".into() }
@@ -486,6 +489,10 @@ fn the_containerfile_builds_in_stages_and_runs_unprivileged() {
     let entrypoint = instructions.iter().find(|(w, _)| w == "ENTRYPOINT").map(|(_, e)| e.clone()).expect("ENTRYPOINT");
     let entrypoint: Vec<String> = serde_norway::from_str(&entrypoint).expect("ENTRYPOINT in exec (JSON) form");
     assert_eq!(entrypoint[1..], ["serve", "--config", "/etc/brakeledger/brakeledger.toml"]);
+    // Kubernetes runs the same command.
+    let documents = manifests();
+    let pod_command: Vec<String> = serde_norway::from_value(at(container(only(&documents, "StatefulSet")), &["command"]).clone()).unwrap();
+    assert_eq!(pod_command, entrypoint);
 
     // The image's config is the example with the sed substitutions of its RUN applied: it loads,
     // and its listeners face the container's interface on the exposed ports.
