@@ -470,7 +470,7 @@ fn containerfile() -> Vec<(String, String)> {
 
 /// The user the image finally runs as.
 fn containerfile_user() -> String {
-    containerfile().into_iter().filter(|(word, _)| word == "USER").map(|(_, user)| user).last().expect("a USER instruction")
+    containerfile().into_iter().filter(|(word, _)| word == "USER").map(|(_, user)| user).next_back().expect("a USER instruction")
 }
 
 #[test]
