@@ -208,8 +208,14 @@ where
     fn call(&mut self, request: http::Request<B>) -> Self::Future {
         let rpc = request.uri().path().trim_start_matches('/').to_owned();
         let started = Instant::now();
-        let response = self.inner.call(request);
-        Box::pin(async move {
+        // One span per call; the access interceptor and the handlers record the token's id
+        // (never the token) and the fleet into it.
+        let span = tracing::info_span!("grpc", rpc = %rpc, token_id = tracing::field::Empty, fleet_id = tracing::field::Empty);
+        let response = {
+            let _entered = span.enter();
+            self.inner.call(request)
+        };
+        Box::pin(tracing::Instrument::instrument(async move {
             let response = response.await?;
             let (parts, body) = response.into_parts();
             // A call that fails before its first message answers with the status in headers.
@@ -219,7 +225,7 @@ where
             }
             let observed = ObservedBody { inner: body, rpc, started, recorded: false };
             Ok(http::Response::from_parts(parts, tonic::body::Body::new(observed)))
-        })
+        }, span))
     }
 }
 

@@ -62,6 +62,7 @@ impl Caller {
     /// Fails with PERMISSION_DENIED unless the caller may act on `fleet_id` with `permission`.
     /// The message names the roles that would do and the caller's own, never anything stored.
     pub fn require(&self, fleet_id: &str, permission: Permission) -> Result<(), ServiceError> {
+        tracing::Span::current().record("fleet_id", fleet_id);
         if self.may(fleet_id, permission) {
             return Ok(());
         }
@@ -162,6 +163,7 @@ impl Interceptor for AccessPolicy {
             crate::metrics::auth_refused(&error);
             error.into_status()
         })?;
+        tracing::Span::current().record("token_id", caller.token_id.as_str());
         request.extensions_mut().insert(caller);
         Ok(request)
     }

@@ -127,17 +127,34 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
         .context("opening the temporary database")?;
     let forecast_config = ForecastConfig::default();
     let energy_window_days = forecast_config.energy_window_days;
-    let state = AppState::new(Arc::new(store), forecast_config);
     let listener = TcpListener::bind("127.0.0.1:0").await.context("binding a loopback port")?;
     let address = listener.local_addr()?;
+    // The demo server requires tokens, like a production one: an operator token from a file,
+    // then a planner token of the demo fleet for every read.
+    let operator = crate::auth::tokens::new_secret();
+    let token_file = data_dir.path().join("operator-token");
+    std::fs::write(&token_file, &operator).context("writing the demo's operator token file")?;
+    let store: Arc<dyn crate::store::Store> = Arc::new(store);
+    let auth = crate::config::AuthConfig { operator_token_file: Some(token_file), insecure_no_auth: false };
+    let access = crate::auth::bootstrap::set_up(&auth, address, Arc::clone(&store), None, crate::convert::now_ms())?;
+    let state = AppState::new(store, forecast_config).with_access(access.policy);
     let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
     let server = tokio::spawn(crate::server::run(listener, state, async {
         let _ = stopped.await;
     }));
-    let mut connection = connect(&format!("http://{address}")).await?;
-    progress.say(format!("server listening on {address}, data in a temporary directory"));
+    let url = format!("http://{address}");
+    let mut feeder = connect(&url, &operator).await?;
+    let planner = feeder
+        .access
+        .create_token(pb::CreateTokenRequest { fleet_id: DEMO_FLEET.into(), role: crate::auth::Role::Planner.to_wire(), label: "demo planner".into() })
+        .await
+        .context("creating the demo's planner token")?
+        .into_inner()
+        .secret;
+    let mut reader = connect(&url, &planner).await?;
+    progress.say(format!("server listening on {address} (tokens required), data in a temporary directory"));
 
-    let result = show(args, &mut connection, &fleet, energy_window_days, &progress, out).await;
+    let result = show(args, &mut feeder, &mut reader, &fleet, energy_window_days, &progress, out).await;
 
     let _ = stop.send(());
     match server.await {
@@ -151,11 +168,12 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// Connects, retrying briefly while the server starts.
-async fn connect(url: &str) -> anyhow::Result<Connection> {
+/// Connects with `token`, retrying briefly while the server starts.
+async fn connect(url: &str, token: &str) -> anyhow::Result<Connection> {
     let mut last = None;
+    let target = ServerTarget { token: Some(token.to_owned()), ..ServerTarget::open(url) };
     for _ in 0..100 {
-        match Connection::open(&ServerTarget::open(url)).await {
+        match Connection::open(&target).await {
             Ok(c) => return Ok(c),
             Err(e) => last = Some(e),
         }
@@ -167,6 +185,7 @@ async fn connect(url: &str) -> anyhow::Result<Connection> {
 /// Feeds the fleet and prints every answer.
 async fn show(
     args: &DemoArgs,
+    feeder: &mut Connection,
     connection: &mut Connection,
     fleet: &brakeledger_models::simulator::SimulatedFleet,
     energy_window_days: usize,
@@ -174,7 +193,7 @@ async fn show(
     out: &mut impl Write,
 ) -> anyhow::Result<()> {
     let mut say = |line: String| progress.say(line);
-    let counts = feed_fleet(connection, DEMO_FLEET, DEMO_TIME_ZONE, fleet, &mut say).await?;
+    let counts = feed_fleet(feeder, DEMO_FLEET, DEMO_TIME_ZONE, fleet, &mut say).await?;
     for refusal in &counts.refusals {
         progress.say(format!("  refused: {refusal}"));
     }

@@ -16,3 +16,4 @@ mod maintenance;
 mod report_size;
 mod safe_defaults;
 mod shutdown;
+mod tls;
