@@ -33,6 +33,8 @@ pub struct Settings {
     pub metrics: MetricsConfig,
     /// TLS on the gRPC listener.
     pub tls: TlsConfig,
+    /// Plain-text health listener for probes.
+    pub health: HealthConfig,
     /// Forecast settings.
     pub forecast: ForecastConfig,
     /// HTTP/2 flow control (see [`Http2Config`] for why these values).
@@ -88,6 +90,7 @@ impl Default for Settings {
             limits: LimitsConfig::default(),
             metrics: MetricsConfig::default(),
             tls: TlsConfig::default(),
+            health: HealthConfig::default(),
             forecast: ForecastConfig::default(),
             http2: Http2Config::default(),
             ingest: IngestConfig::default(),
@@ -142,6 +145,7 @@ impl Settings {
             shutdown: self.shutdown.clone(),
             storage: self.storage.clone(),
             limits: self.limits.clone(),
+            health: self.health.clone(),
         }
     }
 

@@ -20,6 +20,14 @@ pub enum ServerError {
     /// The transport failed.
     #[error("transport: {0}")]
     Transport(#[from] tonic::transport::Error),
+    /// A listener could not be bound.
+    #[error("binding {address}: {source}")]
+    Bind {
+        /// The address.
+        address: std::net::SocketAddr,
+        /// Why.
+        source: std::io::Error,
+    },
     /// Reflection could not be built from the descriptors.
     #[error("reflection: {0}")]
     Reflection(#[from] tonic_reflection::server::Error),
@@ -42,6 +50,25 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
         .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
         .build_v1alpha()?;
+
+    if let Some(address) = state.serving.health.listen {
+        let health_listener = TcpListener::bind(address).await.map_err(|source| ServerError::Bind { address, source })?;
+        tracing::info!(address = ?health_listener.local_addr().ok(), "plain-text gRPC health listener for probes");
+        let mut stopping = state.stopping.subscribe();
+        let health_only = health_service.clone();
+        tokio::spawn(async move {
+            let stopped = async move {
+                let _ = stopping.wait_for(|stop| *stop).await;
+            };
+            let served = tonic::transport::Server::builder()
+                .add_service(health_only)
+                .serve_with_incoming_shutdown(tonic::transport::server::TcpIncoming::from(health_listener), stopped)
+                .await;
+            if let Err(error) = served {
+                tracing::error!(%error, "health listener failed");
+            }
+        });
+    }
 
     let forecaster_task = tokio::spawn(forecaster::run(state.clone(), state.stopping.subscribe()));
     tokio::spawn(write_health::run(state.clone(), health_reporter.clone()));

@@ -99,3 +99,12 @@ impl TlsConfig {
         self.cert_file.is_some() || self.key_file.is_some()
     }
 }
+
+/// `[health]`: a plain-text listener serving only gRPC health, for probes that cannot speak TLS
+/// (Kubernetes' native gRPC probes) when `[tls]` is on.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, Eq)]
+#[serde(default, deny_unknown_fields)]
+pub struct HealthConfig {
+    /// Address of the health-only listener. Default: none (health is served on the gRPC port).
+    pub listen: Option<std::net::SocketAddr>,
+}

@@ -152,4 +152,6 @@ pub struct ServingConfig {
     pub storage: StorageConfig,
     /// Per-token limits.
     pub limits: super::LimitsConfig,
+    /// Plain-text health listener.
+    pub health: super::HealthConfig,
 }
