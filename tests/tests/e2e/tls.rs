@@ -97,3 +97,30 @@ async fn with_a_client_ca_only_clients_with_a_certificate_are_served() {
     let with = ClientTls { ca_file: Some(server_pki.ca), cert_file: Some(client_pki.cert), key_file: Some(client_pki.key) };
     upsert(addr, "https", with).await.expect("client certificate accepted");
 }
+
+#[tokio::test]
+async fn probes_that_cannot_speak_tls_use_the_plain_health_listener() {
+    let dir = tempfile::tempdir().expect("dir");
+    let server_pki = make_pki(dir.path(), "server", &["localhost"]);
+    let config = TlsConfig { cert_file: Some(server_pki.cert.clone()), key_file: Some(server_pki.key.clone()), client_ca_file: None };
+    // A free loopback port for the health listener.
+    let health_addr = std::net::TcpListener::bind("127.0.0.1:0").expect("bind").local_addr().expect("addr");
+    let serving = brakeledger::config::ServingConfig { health: brakeledger::config::HealthConfig { listen: Some(health_addr) }, ..Default::default() };
+    let data = tempfile::tempdir().expect("dir");
+    let store = Arc::new(SledStore::open(data.path()).expect("store"));
+    let tls = Arc::new(TlsReloader::new(config).expect("tls"));
+    let state = AppState::new(store, brakeledger_tests::fast_forecasts()).with_serving(serving).with_tls(tls);
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
+    tokio::spawn(async move {
+        let _ = brakeledger::server::run(listener, state, std::future::pending()).await;
+    });
+    let channel = brakeledger_tests::connect(health_addr).await;
+    let health = tonic_health::pb::health_client::HealthClient::new(channel.clone())
+        .check(tonic_health::pb::HealthCheckRequest { service: "brakeledger.v1.FleetService".into() })
+        .await
+        .expect("plain-text health");
+    assert_eq!(health.into_inner().status, 1, "SERVING");
+    // Only health is there: the brakeledger services stay behind TLS.
+    let refused = pb::fleet_service_client::FleetServiceClient::new(channel).get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect_err("not here");
+    assert_eq!(refused.code(), tonic::Code::Unimplemented);
+}
