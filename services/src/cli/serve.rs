@@ -90,7 +90,7 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     }
     init_logging(settings.log_format, &settings.log_filter);
     let data_dir = settings.data_dir.clone();
-    let options = StoreOptions::from(&settings.storage);
+    let options = StoreOptions { on_mismatch: settings.integrity.on_mismatch, ..StoreOptions::from(&settings.storage) };
     let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
         .await?
         .with_context(|| format!("opening the database in {}", settings.data_dir.display()))?;

@@ -5,7 +5,9 @@
 //! [`sled_store::SledStore`] is the embedded default.
 
 pub mod disk_space;
+pub mod integrity;
 pub mod keys;
+pub mod ledger;
 pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
@@ -35,6 +37,17 @@ pub enum StoreError {
     /// The disk is (nearly) full: writes are refused until space is freed; reads still work.
     #[error("{0}")]
     StorageFull(String),
+    /// The data directory does not hold what was acknowledged (or cannot be opened): the
+    /// store refuses to start. The message names what is missing and how to restore.
+    #[error("{0}")]
+    Damaged(String),
+    /// Start-up verification found damage and the server was configured to serve read-only:
+    /// every write is refused.
+    #[error("{0}")]
+    ReadOnly(String),
+    /// The acknowledged-write ledger could not be written.
+    #[error("{0}")]
+    Ledger(String),
 }
 
 /// Result of storage calls.
