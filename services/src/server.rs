@@ -5,13 +5,13 @@
 use std::future::Future;
 
 use brakeledger_proto::v1::{
-    fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
+    backup_service_server::BackupServiceServer, fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
     maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
 };
 use tokio::net::TcpListener;
 
 use crate::{drain, forecaster, write_health};
-use crate::grpc::{fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
+use crate::grpc::{backup_api::BackupApi, fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
 use crate::state::AppState;
 
 /// Failures that stop the server.
@@ -32,6 +32,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     health_reporter.set_serving::<TelemetryServiceServer<TelemetryApi>>().await;
     health_reporter.set_serving::<MaintenanceServiceServer<MaintenanceApi>>().await;
     health_reporter.set_serving::<ForecastServiceServer<ForecastApi>>().await;
+    health_reporter.set_serving::<BackupServiceServer<BackupApi>>().await;
 
     let reflection_v1 = tonic_reflection::server::Builder::configure()
         .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
@@ -72,6 +73,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .add_service(TelemetryServiceServer::with_interceptor(TelemetryApi::new(state.clone()), state.access.clone()))
         .add_service(MaintenanceServiceServer::with_interceptor(MaintenanceApi::new(state.clone()), state.access.clone()))
         .add_service(ForecastServiceServer::with_interceptor(ForecastApi::new(state.clone()), state.access.clone()))
+        .add_service(BackupServiceServer::with_interceptor(BackupApi::new(state.clone()), state.access.clone()))
         .serve_with_incoming_shutdown(
             // No Nagle delay: small unary responses otherwise wait for the peer's delayed ACK.
             tonic::transport::server::TcpIncoming::from(listener).with_nodelay(Some(true)),

@@ -66,6 +66,8 @@ pub struct Connection {
     pub maintenance: pb::maintenance_service_client::MaintenanceServiceClient<AuthChannel>,
     /// ForecastService.
     pub forecast: pb::forecast_service_client::ForecastServiceClient<AuthChannel>,
+    /// BackupService.
+    pub backup: pb::backup_service_client::BackupServiceClient<AuthChannel>,
 }
 
 impl Connection {
@@ -104,7 +106,8 @@ impl Connection {
             fleet: pb::fleet_service_client::FleetServiceClient::with_interceptor(channel.clone(), token.clone()),
             telemetry: pb::telemetry_service_client::TelemetryServiceClient::with_interceptor(channel.clone(), token.clone()),
             maintenance: pb::maintenance_service_client::MaintenanceServiceClient::with_interceptor(channel.clone(), token.clone()),
-            forecast: pb::forecast_service_client::ForecastServiceClient::with_interceptor(channel, token),
+            forecast: pb::forecast_service_client::ForecastServiceClient::with_interceptor(channel.clone(), token.clone()),
+            backup: pb::backup_service_client::BackupServiceClient::with_interceptor(channel, token),
         }
     }
 

@@ -17,9 +17,11 @@
 //! - [`chart`]: `chart`, the SVG wear chart of one part.
 //! - [`summarise`]: `summarise`, a speed trace into a trip summary.
 //! - [`demo`], [`demo_feed`], [`demo_accuracy`]: `demo`.
+//! - [`data_dir`]: `check`, `backup`, `restore`, `verify-backup`.
 
 pub mod chart;
 pub mod client;
+pub mod data_dir;
 pub mod dates;
 pub mod demo;
 pub mod demo_accuracy;
@@ -94,6 +96,18 @@ pub enum Command {
     /// Turn a speed-trace CSV into a trip summary (JSON), using the braking physics. No server.
     #[command(long_about = summarise::SUMMARISE_LONG_ABOUT, after_help = summarise::SUMMARISE_EXAMPLES)]
     Summarise(summarise::SummariseArgs),
+    /// Verify a data directory offline: every record acknowledged is there, every value sound.
+    #[command(after_help = data_dir::CHECK_EXAMPLES)]
+    Check(data_dir::CheckArgs),
+    /// Write a consistent backup of a running server's whole store to one file.
+    #[command(after_help = data_dir::BACKUP_EXAMPLES)]
+    Backup(data_dir::BackupArgs),
+    /// Restore a backup file into an empty data directory (no server).
+    #[command(after_help = data_dir::RESTORE_EXAMPLES)]
+    Restore(data_dir::RestoreArgs),
+    /// Verify a backup file: every checksum and its own record counts (no server).
+    #[command(after_help = data_dir::VERIFY_EXAMPLES)]
+    VerifyBackup(data_dir::VerifyBackupArgs),
     /// Run an invented fleet through an in-process server and show every answer it gives.
     #[command(long_about = demo::DEMO_LONG_ABOUT, after_help = demo::DEMO_EXAMPLES)]
     Demo(demo::DemoArgs),
@@ -133,6 +147,10 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::Chart(args) => chart::chart(&server, &args, out).await,
         Command::Summarise(args) => summarise::summarise(&args, out),
         Command::Demo(args) => demo::demo(&args, out).await,
+        Command::Check(args) => data_dir::check(&args, out),
+        Command::Backup(args) => data_dir::backup(&server, &args, out).await,
+        Command::Restore(args) => data_dir::restore(&args, out),
+        Command::VerifyBackup(args) => data_dir::verify_backup(&args, out),
     }
 }
 

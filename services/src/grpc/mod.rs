@@ -1,6 +1,7 @@
 //! gRPC handlers, one module per service. Each handler validates, converts the request to
 //! domain values, makes one call into the store or the forecaster, and converts back.
 
+pub mod backup_api;
 pub mod due_queries;
 pub mod due_watch;
 pub mod fleet_api;

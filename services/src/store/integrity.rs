@@ -28,6 +28,8 @@ pub struct Findings {
     pub dir: PathBuf,
     /// Each problem, as a sentence naming what is missing or damaged.
     pub lines: Vec<String>,
+    /// What the database holds, when it could be scanned.
+    pub counted: Option<super::ledger::Tallies>,
 }
 
 impl Findings {
@@ -86,9 +88,15 @@ fn panic_message(payload: Box<dyn std::any::Any + Send>) -> String {
         .unwrap_or_else(|| "a panic without a message".to_owned())
 }
 
-/// Runs `work`, turning a panic inside the storage engine into an error.
+/// Runs `work`, turning a panic inside the storage engine into an error. The default panic
+/// report (a backtrace on stderr) is replaced by a debug log line meanwhile: the refusal says
+/// what happened. Only used while opening and checking, before the server serves.
 fn guarded<T>(doing: &str, work: impl FnOnce() -> StoreResult<T>) -> StoreResult<T> {
-    match catch_unwind(AssertUnwindSafe(work)) {
+    let previous = std::panic::take_hook();
+    std::panic::set_hook(Box::new(|info| tracing::debug!(%info, "storage engine panicked on a damaged database")));
+    let outcome = catch_unwind(AssertUnwindSafe(work));
+    std::panic::set_hook(previous);
+    match outcome {
         Ok(result) => result,
         Err(payload) => Err(StoreError::Corrupt(format!("the storage engine failed while {doing} ({})", panic_message(payload)))),
     }
@@ -113,7 +121,8 @@ fn sled_main_file_len(dir: &Path) -> u64 {
     std::fs::metadata(dir.join(SLED_MAIN_FILE)).map(|m| m.len()).unwrap_or(0)
 }
 
-fn everything_missing(ledger: &LedgerState) -> Vec<String> {
+/// Per fleet: "fleet 'north': acknowledged 1 fleet settings, 6 vehicles, 4200 trips, …".
+fn acknowledged_counts(ledger: &LedgerState) -> Vec<String> {
     let mut lines = Vec::new();
     for (fleet, tally) in &ledger.committed.0 {
         let counts: Vec<String> = super::ledger::RecordKind::ALL
@@ -122,17 +131,21 @@ fn everything_missing(ledger: &LedgerState) -> Vec<String> {
             .map(|k| format!("{} {}", tally.get(*k).count, k.plural()))
             .collect();
         if !counts.is_empty() {
-            lines.push(format!("fleet '{fleet}': all of its acknowledged records are missing ({})", counts.join(", ")));
+            lines.push(format!("fleet '{fleet}': acknowledged {}", counts.join(", ")));
         }
     }
     lines
+}
+
+fn everything_missing(ledger: &LedgerState) -> Vec<String> {
+    acknowledged_counts(ledger).into_iter().map(|line| format!("{line}, all of them missing")).collect()
 }
 
 /// Opens the database in `dir` and checks it against its ledger. In [`Mode::Serve`] a
 /// directory with findings is refused with [`StoreError::Damaged`] (or opened read-only when
 /// so configured); in [`Mode::Check`] the findings are returned with the engine.
 pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(Option<Opened>, Findings)> {
-    let mut findings = Findings { dir: dir.to_owned(), lines: Vec::new() };
+    let mut findings = Findings { dir: dir.to_owned(), lines: Vec::new(), counted: None };
     let has_ledger = Ledger::exists_in(dir);
     let ledger = if has_ledger {
         match Ledger::load(dir) {
@@ -215,9 +228,13 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
         Ok(audit) => audit,
         Err(error) => {
             findings.lines.push(format!("the database cannot be read through: {error}"));
+            if let Some(ledger) = &ledger {
+                findings.lines.extend(acknowledged_counts(ledger.state()).into_iter().map(|line| format!("{line}, none of which can be verified")));
+            }
             return finish_with(engine, None, findings, mode);
         }
     };
+    findings.counted = Some(audit.tallies.clone());
     findings.lines.extend(audit.problems.iter().cloned());
     if audit.problem_count > audit.problems.len() as u64 {
         findings.lines.push(format!("… and {} more damaged or inconsistent records", audit.problem_count - audit.problems.len() as u64));

@@ -4,6 +4,7 @@
 //! method returns only after what it wrote is durable on disk ("acknowledged means durable").
 //! [`sled_store::SledStore`] is the embedded default.
 
+pub mod backup_file;
 pub mod disk_space;
 pub mod integrity;
 pub mod keys;
@@ -123,4 +124,8 @@ pub trait Store: Send + Sync + 'static {
     fn get_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriors>>;
     /// Flushes everything to disk.
     fn flush(&self) -> StoreResult<()>;
+    /// Writes a consistent backup file of every record (see [`backup_file`]) to an unnamed
+    /// temporary file beside the database, holding acknowledged writes while it copies, and
+    /// returns the file rewound to its start.
+    fn export_backup(&self, taken_at_ms: i64) -> StoreResult<(std::fs::File, backup_file::BackupSummary)>;
 }

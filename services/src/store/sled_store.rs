@@ -134,16 +134,6 @@ impl SledStore {
         self.read_only.as_ref()
     }
 
-    /// Runs `work` with acknowledged writes held (the ledger lock), on the current engine:
-    /// backups export a consistent state this way.
-    pub fn with_writes_held<T>(&self, work: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
-        let _held = match &self.ledger {
-            Some(slot) => Some(slot.lock().map_err(lock_error)?),
-            None => None,
-        };
-        work(&*self.engine()?)
-    }
-
     /// An acknowledged write that may add records: `plan` lists the keys it will add, `op`
     /// writes and flushes. The ledger records the delta as pending before `op` and as committed
     /// after it, all under the ledger lock (see [`super::ledger`]).
@@ -152,12 +142,7 @@ impl SledStore {
         self.writable()?;
         let mut slot = slot.lock().map_err(lock_error)?;
         let engine = self.engine()?;
-        if let Some(keys) = slot.unsettled.take() {
-            if let Err(error) = Self::settle(&mut slot.ledger, &engine, &keys) {
-                slot.unsettled = Some(keys);
-                return Err(error);
-            }
-        }
+        Self::settle_unsettled(&mut slot, &engine)?;
         let planned = plan(&engine)?;
         if planned.keys.is_empty() {
             let result = op(&engine);
@@ -172,6 +157,17 @@ impl SledStore {
             slot.unsettled = Some(planned.keys);
         }
         result
+    }
+
+    /// Settles a write whose outcome is not known yet, if any.
+    fn settle_unsettled(slot: &mut LedgerSlot, engine: &Engine) -> StoreResult<()> {
+        if let Some(keys) = slot.unsettled.take() {
+            if let Err(error) = Self::settle(&mut slot.ledger, engine, &keys) {
+                slot.unsettled = Some(keys);
+                return Err(error);
+            }
+        }
+        Ok(())
     }
 
     /// Settles the pending delta of a write that failed: flushed and present → committed;
@@ -385,5 +381,27 @@ impl Store for SledStore {
 
     fn flush(&self) -> StoreResult<()> {
         self.read(|e| e.flush())
+    }
+
+    fn export_backup(&self, taken_at_ms: i64) -> StoreResult<(std::fs::File, super::backup_file::BackupSummary)> {
+        use std::io::{Seek, SeekFrom};
+        let io = |e: std::io::Error| StoreError::from(super::backup_file::BackupError::Io(e));
+        let mut file = match &self.dir {
+            Some(dir) => tempfile::tempfile_in(dir).map_err(io)?,
+            None => tempfile::tempfile().map_err(io)?,
+        };
+        let summary = match &self.ledger {
+            Some(slot) => {
+                let mut slot = slot.lock().map_err(lock_error)?;
+                let engine = self.engine()?;
+                Self::settle_unsettled(&mut slot, &engine)?;
+                super::backup_file::write(&engine, Some(&slot.ledger.state().committed), taken_at_ms, &mut file)?
+            }
+            // A temporary database has no ledger; a read-only one was found damaged, and its
+            // backup holds what is left (writes are refused anyway).
+            None => super::backup_file::write(&*self.engine()?, None, taken_at_ms, &mut file)?,
+        };
+        file.seek(SeekFrom::Start(0)).map_err(io)?;
+        Ok((file, summary))
     }
 }

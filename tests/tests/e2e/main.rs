@@ -4,6 +4,7 @@
 mod acknowledged_ingest;
 mod auth;
 mod bad_bytes;
+mod corruption;
 mod cli;
 mod durability;
 mod forecast;
@@ -13,5 +14,6 @@ mod health;
 mod ingest;
 mod long_stream;
 mod maintenance;
+mod memory_soak;
 mod report_size;
 mod shutdown;
