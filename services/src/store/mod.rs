@@ -3,6 +3,11 @@
 //! The trait is small and synchronous; handlers call it from `spawn_blocking`. Every write
 //! method returns only after what it wrote is durable on disk ("acknowledged means durable").
 //! [`sled_store::SledStore`] is the embedded default.
+//!
+//! Beside the engine: [`ledger`] (the record of what was acknowledged, kept apart from sled's
+//! files), [`integrity`] (start-up and offline verification against it), [`backup_file`] (the
+//! backup file format, verification and restore), [`keys`] (the key layout) and
+//! [`disk_space`] (the free-space gate).
 
 pub mod backup_file;
 pub mod disk_space;

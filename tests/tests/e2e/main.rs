@@ -3,6 +3,7 @@
 
 mod acknowledged_ingest;
 mod auth;
+mod backup;
 mod bad_bytes;
 mod corruption;
 mod cli;
