@@ -30,7 +30,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use super::ledger::{Ledger, LedgerState, RecordKind, Tallies};
-use super::sled_engine::{checked_body, Engine, RECORD_TREES, SCHEMA_VERSION};
+use super::sled_engine::{checked_body, fleet_of_key, Engine, RECORD_TREES, SCHEMA_VERSION};
 use super::StoreError;
 
 /// The first bytes of every backup file.
@@ -134,14 +134,6 @@ fn raw_valued(tree: &str) -> bool {
     tree == "trip_ids"
 }
 
-fn fleet_of(kind: RecordKind, key: &[u8]) -> String {
-    let end = match kind {
-        RecordKind::Fleet => key.len(),
-        _ => key.iter().position(|b| *b == super::keys::SEP).unwrap_or(key.len()),
-    };
-    String::from_utf8_lossy(&key[..end]).into_owned()
-}
-
 /// A writer that keeps the CRC-32 and length of everything written.
 struct Counting<W: Write> {
     inner: W,
@@ -193,7 +185,7 @@ pub fn write(engine: &Engine, expected: Option<&Tallies>, taken_at_ms: i64, out:
         for entry in engine.record_entries(tree)? {
             let (key, value) = entry?;
             if let Some(kind) = kind {
-                tallies.add_key(&fleet_of(kind, &key), kind, &key);
+                tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
             }
             payload.clear();
             payload.push(index as u8);
@@ -297,7 +289,7 @@ fn read(input: impl Read, mut entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Resul
                     checked_body(&value).map_err(|e| BackupError::Damaged(format!("entry {entries} ({tree}): {e}")))?;
                 }
                 if let Some(kind) = record_kind_of_tree(&tree) {
-                    tallies.add_key(&fleet_of(kind, &key), kind, &key);
+                    tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
                 }
                 entries += 1;
                 entry(&tree, key, value)?;

@@ -592,7 +592,7 @@ impl Audit {
 }
 
 /// The fleet a record key belongs to (its first part).
-fn fleet_of_key(kind: RecordKind, key: &[u8]) -> String {
+pub fn fleet_of_key(kind: RecordKind, key: &[u8]) -> String {
     let end = match kind {
         RecordKind::Fleet => key.len(),
         _ => key.iter().position(|b| *b == keys::SEP).unwrap_or(key.len()),
