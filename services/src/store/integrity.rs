@@ -161,7 +161,9 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
     let main_file_len = sled_main_file_len(dir);
     let sled_files_present = dir.join("conf").exists() || dir.join(SLED_MAIN_FILE).exists();
 
-    if has_ledger && main_file_len == 0 {
+    // sled writes `conf` beside `db` when it creates a database: `conf` without a main file
+    // means the main file was lost, not that the directory is new.
+    if main_file_len == 0 && (has_ledger || dir.join("conf").exists()) {
         findings.lines.push(format!("sled's main database file ({}) is missing or empty", dir.join(SLED_MAIN_FILE).display()));
         if let Some(ledger) = &ledger {
             findings.lines.extend(everything_missing(ledger.state()));
@@ -315,5 +317,68 @@ fn finish(opened: Option<Opened>, findings: Findings, mode: Mode) -> StoreResult
             Ok((Some(opened), findings))
         }
         (Mode::Serve(_), _) => Err(StoreError::Damaged(findings.refusal())),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::store::sled_store::SledStore;
+    use crate::store::{FleetRecord, Store};
+
+    fn refusal(dir: &Path) -> String {
+        match SledStore::open(dir) {
+            Err(StoreError::Damaged(message)) => message,
+            Err(other) => panic!("unexpected error {other}"),
+            Ok(_) => panic!("a damaged directory must be refused"),
+        }
+    }
+
+    #[test]
+    fn a_schema_2_directory_gets_checksums_and_its_ledger_once() {
+        let dir = tempfile::tempdir().unwrap();
+        let fleet = FleetRecord::default_for("north");
+        {
+            // A version-2 database: postcard values without checksums, no ledger.
+            let db = sled::open(dir.path()).unwrap();
+            db.open_tree("meta").unwrap().insert(b"schema_version", &2u32.to_be_bytes()).unwrap();
+            db.open_tree("fleets").unwrap().insert(b"north", postcard::to_stdvec(&fleet).unwrap()).unwrap();
+            db.flush().unwrap();
+        }
+        let store = SledStore::open(dir.path()).expect("the one-time migration");
+        assert_eq!(store.get_fleet("north").unwrap(), Some(fleet.clone()));
+        assert_eq!(Ledger::load(dir.path()).unwrap().state().committed.totals().fleet.count, 1);
+        drop(store);
+        let store = SledStore::open(dir.path()).expect("verified against the new ledger");
+        assert_eq!(store.get_fleet("north").unwrap(), Some(fleet));
+    }
+
+    #[test]
+    fn records_without_their_ledger_or_a_ledger_without_records_are_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        SledStore::open(dir.path()).unwrap().upsert_fleet(&FleetRecord::default_for("north")).unwrap();
+        let ledger = std::fs::read(Ledger::path_in(dir.path())).unwrap();
+        std::fs::remove_file(Ledger::path_in(dir.path())).unwrap();
+        assert!(refusal(dir.path()).contains("ledger"), "records without a ledger");
+        std::fs::write(Ledger::path_in(dir.path()), &ledger).unwrap();
+        assert!(SledStore::open(dir.path()).is_ok(), "sound again with its ledger");
+
+        let other = tempfile::tempdir().unwrap();
+        std::fs::write(Ledger::path_in(other.path()), &ledger).unwrap();
+        let message = refusal(other.path());
+        assert!(message.contains("missing or empty") && message.contains("fleet 'north': acknowledged 1 fleet settings, all of them missing"), "{message}");
+        assert!(!other.path().join(SLED_MAIN_FILE).exists(), "no empty database created over the ledger");
+    }
+
+    #[test]
+    fn a_write_cut_between_the_store_and_the_ledger_is_accepted_and_folded() {
+        let dir = tempfile::tempdir().unwrap();
+        SledStore::open(dir.path()).unwrap().upsert_fleet(&FleetRecord::default_for("north")).unwrap();
+        // The ledger of the moment before that write reached it: the fleet only pending.
+        let mut pending = super::super::ledger::Tallies::default();
+        pending.add_key("north", super::super::ledger::RecordKind::Fleet, b"north");
+        Ledger::create(dir.path(), LedgerState { committed: Default::default(), pending: Some(pending.clone()) }).unwrap();
+        drop(SledStore::open(dir.path()).expect("committed + pending is what the store holds"));
+        assert_eq!(Ledger::load(dir.path()).unwrap().state(), &LedgerState { committed: pending, pending: None });
     }
 }

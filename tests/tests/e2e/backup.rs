@@ -7,6 +7,13 @@ use brakeledger_proto::v1 as pb;
 use brakeledger_tests::{now_s, trip, two_axle_vehicle, TestServer};
 use tonic::metadata::MetadataValue;
 
+/// A request carrying the test server's token.
+fn authorised<T>(message: T) -> tonic::Request<T> {
+    let mut request = tonic::Request::new(message);
+    request.metadata_mut().insert("authorization", MetadataValue::from_static("Bearer backup-secret"));
+    request
+}
+
 async fn export(server: &TestServer, token: Option<&str>) -> Result<Vec<u8>, tonic::Status> {
     let mut request = tonic::Request::new(pb::ExportBackupRequest {});
     if let Some(token) = token {
@@ -32,11 +39,6 @@ async fn backup_needs_a_token_and_holds_everything_acknowledged_before_it_while_
     assert_eq!(refused.code(), tonic::Code::Unauthenticated);
     assert_eq!(export(&server, Some("wrong")).await.expect_err("bad token").code(), tonic::Code::Unauthenticated);
 
-    let authorised = |message| {
-        let mut request = tonic::Request::new(message);
-        request.metadata_mut().insert("authorization", MetadataValue::from_static("Bearer backup-secret"));
-        request
-    };
     let mut fleet = pb::fleet_service_client::FleetServiceClient::new(server.channel.clone());
     let mut telemetry = pb::telemetry_service_client::TelemetryServiceClient::new(server.channel.clone());
     fleet.upsert_vehicle(authorised(pb::UpsertVehicleRequest { vehicle: Some(two_axle_vehicle("north", "bus-1")) })).await.expect("vehicle");
@@ -50,9 +52,7 @@ async fn backup_needs_a_token_and_holds_everything_acknowledged_before_it_while_
         let mut accepted = 0;
         for batch in 0..20usize {
             let trips = (0..500).map(|n| trip("north", "bus-1", 100_000 + batch * 500 + n, end)).collect();
-            let mut request = tonic::Request::new(pb::PushTripsRequest { trips });
-            request.metadata_mut().insert("authorization", MetadataValue::from_static("Bearer backup-secret"));
-            accepted += writer.push_trips(request).await.expect("concurrent push").into_inner().accepted;
+            accepted += writer.push_trips(authorised(pb::PushTripsRequest { trips })).await.expect("concurrent push").into_inner().accepted;
         }
         accepted
     });
