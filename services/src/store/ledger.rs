@@ -22,8 +22,9 @@
 //!
 //! # Writing
 //! An acknowledged write that adds records runs under one lock: the ledger is first rewritten
-//! with the write's delta as *pending*, then the store writes and flushes, then the ledger is
-//! rewritten with the delta folded into *committed*, and only then is the write acknowledged. A
+//! with the write's delta as *pending* (and the committed state to follow is prepared in
+//! `acknowledged.ledger.next`), then the store writes and flushes, then the prepared file is
+//! renamed over the ledger, and only then is the write acknowledged. A
 //! crash leaves the store equal to `committed` or to `committed + pending`; start-up accepts both
 //! (and folds a pending delta that reached the store). Anything else is damage.
 
@@ -38,6 +39,7 @@ use serde::{Deserialize, Serialize};
 /// File name of the ledger inside the data directory.
 pub const LEDGER_FILE: &str = "acknowledged.ledger";
 const LEDGER_TMP: &str = "acknowledged.ledger.tmp";
+const LEDGER_NEXT: &str = "acknowledged.ledger.next";
 const FORMAT_LINE: &str = "brakeledger-ledger 1";
 
 /// The kinds of acknowledged records the ledger counts.
@@ -290,18 +292,37 @@ impl Ledger {
         &self.state
     }
 
-    /// Records `delta` as pending (before the store writes it).
+    /// Records `delta` as pending (before the store writes it). The committed state that
+    /// follows is written now too, to `acknowledged.ledger.next`, so that [`Ledger::commit`] is
+    /// a rename that needs no free space: a store write that fills the disk cannot leave an
+    /// acknowledged-to-be write unrecorded.
     pub fn begin(&mut self, delta: Tallies) -> Result<(), LedgerError> {
+        let mut next = self.state.committed.clone();
+        next.add(&delta);
+        write_synced(&self.dir.join(LEDGER_NEXT), &render(&LedgerState { committed: next, pending: None }), &Self::path_in(&self.dir))?;
         self.replace(LedgerState { committed: self.state.committed.clone(), pending: Some(delta) })
     }
 
-    /// Folds the pending delta into committed (after the store flushed it).
+    /// Folds the pending delta into committed (after the store flushed it): renames the file
+    /// [`Ledger::begin`] prepared, or writes it afresh when there is none.
     pub fn commit(&mut self) -> Result<(), LedgerError> {
         let mut committed = self.state.committed.clone();
         if let Some(delta) = &self.state.pending {
             committed.add(delta);
         }
-        self.replace(LedgerState { committed, pending: None })
+        let state = LedgerState { committed, pending: None };
+        let path = Self::path_in(&self.dir);
+        let next = self.dir.join(LEDGER_NEXT);
+        let prepared = fs::read_to_string(&next).map(|text| text == render(&state)).unwrap_or(false);
+        if prepared {
+            let io_error = |source| LedgerError::Io { path: path.clone(), source };
+            fs::rename(&next, &path).map_err(io_error)?;
+            File::open(&self.dir).and_then(|d| d.sync_all()).map_err(io_error)?;
+            self.state = state;
+            Ok(())
+        } else {
+            self.replace(state)
+        }
     }
 
     /// Drops the pending delta (the store does not hold it).
@@ -320,17 +341,19 @@ impl Ledger {
 /// Writes the ledger file of `dir` atomically: temp file, fsync, rename, fsync of the directory.
 fn save(dir: &Path, state: &LedgerState) -> Result<(), LedgerError> {
     let path = Ledger::path_in(dir);
-    let io_error = |source| LedgerError::Io { path: path.clone(), source };
     let tmp = dir.join(LEDGER_TMP);
-    let text = render(state);
-    {
-        let mut file = File::create(&tmp).map_err(io_error)?;
-        file.write_all(text.as_bytes()).map_err(io_error)?;
-        file.sync_all().map_err(io_error)?;
-    }
-    fs::rename(&tmp, &path).map_err(io_error)?;
-    File::open(dir).and_then(|d| d.sync_all()).map_err(io_error)?;
+    write_synced(&tmp, &render(state), &path)?;
+    fs::rename(&tmp, &path).map_err(|source| LedgerError::Io { path: path.clone(), source })?;
+    File::open(dir).and_then(|d| d.sync_all()).map_err(|source| LedgerError::Io { path, source })?;
     Ok(())
+}
+
+/// Writes `text` to `file` and fsyncs it; errors name the ledger file `named`.
+fn write_synced(file: &Path, text: &str, named: &Path) -> Result<(), LedgerError> {
+    let io_error = |source| LedgerError::Io { path: named.to_owned(), source };
+    let mut handle = File::create(file).map_err(io_error)?;
+    handle.write_all(text.as_bytes()).map_err(io_error)?;
+    handle.sync_all().map_err(io_error)
 }
 
 fn render(state: &LedgerState) -> String {

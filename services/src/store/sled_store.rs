@@ -149,10 +149,15 @@ impl SledStore {
             self.note_full_disk(&result);
             return result;
         }
-        slot.ledger.begin(planned.tallies)?;
+        let begun = slot.ledger.begin(planned.tallies).map_err(StoreError::from);
+        // A ledger that cannot be written for lack of space counts as a full disk of the store:
+        // write health reports NOT_SERVING until space is back.
+        self.note_full_disk(&begun);
+        begun?;
         let result = op(&engine);
         self.note_full_disk(&result);
         let result = result.and_then(|value| slot.ledger.commit().map(|()| value).map_err(StoreError::from));
+        self.note_full_disk(&result);
         if result.is_err() {
             slot.unsettled = Some(planned.keys);
         }
