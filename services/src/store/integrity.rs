@@ -176,9 +176,18 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
         return Ok((None, findings));
     }
 
-    let db = guarded("opening the database", || Ok(sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open()?));
+    // An I/O failure that says nothing about the contents (the database locked by another
+    // process, no permission) is an error of its own, not damage.
+    let db = guarded("opening the database", || match sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open() {
+        Ok(db) => Ok(Ok(db)),
+        Err(sled::Error::Io(io)) if !matches!(io.kind(), std::io::ErrorKind::UnexpectedEof | std::io::ErrorKind::InvalidData) => Ok(Err(io)),
+        Err(other) => Err(StoreError::from(other)),
+    });
     let db = match db {
-        Ok(db) => db,
+        Ok(Ok(db)) => db,
+        Ok(Err(io)) => {
+            return Err(StoreError::Engine(format!("cannot open the database in {}: {io} (is another brakeledger process using it?)", dir.display())));
+        }
         Err(error) => {
             findings.lines.push(format!("the database cannot be opened: {error}"));
             if let Some(ledger) = &ledger {
