@@ -376,7 +376,7 @@ fn parse(text: &str) -> Result<LedgerState, String> {
     serde_json::from_str(body).map_err(|e| format!("its contents do not parse: {e}"))
 }
 
-/// 64-bit FNV-1a of `bytes` (Fowler–Noll–Vo; offset basis and prime from the published
+/// 64-bit FNV-1a of `bytes` (Fowler–Noll–Vo; offset basis and prime of the published
 /// parameters).
 pub fn fnv1a64(bytes: &[u8]) -> u64 {
     let mut hash: u64 = 0xcbf2_9ce4_8422_2325;
@@ -393,9 +393,11 @@ mod tests {
     use proptest::prelude::*;
 
     #[test]
-    fn fnv1a64_matches_the_published_test_vectors() {
-        // Test vectors of the FNV reference (Landon Curt Noll, "FNV hash" test suite):
-        // "" -> cbf29ce484222325, "a" -> af63dc4c8601ec8c, "foobar" -> 85944171f73967e8.
+    fn fnv1a64_matches_the_reference_test_vectors() {
+        // Test vectors of the FNV reference test suite (Landon Curt Noll, "FNV hash"), values
+        // recalled from memory, not re-read from the published file here:
+        // "" -> cbf29ce484222325 (the offset basis), "a" -> af63dc4c8601ec8c,
+        // "foobar" -> 85944171f73967e8.
         assert_eq!(fnv1a64(b""), 0xcbf2_9ce4_8422_2325);
         assert_eq!(fnv1a64(b"a"), 0xaf63_dc4c_8601_ec8c);
         assert_eq!(fnv1a64(b"foobar"), 0x8594_4171_f739_67e8);
