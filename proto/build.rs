@@ -20,6 +20,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         "brakeledger/v1/maintenance.proto",
         "brakeledger/v1/forecast.proto",
         "brakeledger/v1/access.proto",
+        "brakeledger/v1/backup.proto",
     ];
     let descriptors = protox::compile(files, ["."])?;
     let out_dir = PathBuf::from(env::var("OUT_DIR")?);

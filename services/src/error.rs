@@ -112,13 +112,17 @@ impl ServiceError {
             ServiceError::FailedPrecondition(_) => Status::failed_precondition(message),
             ServiceError::Unauthenticated(_) => Status::unauthenticated(message),
             ServiceError::ShuttingDown(_) => Status::unavailable(message),
-            ServiceError::Storage(StoreError::NewerSchema { .. }) => Status::failed_precondition(message),
+            ServiceError::Storage(StoreError::NewerSchema { .. }) | ServiceError::Storage(StoreError::Damaged(_)) => Status::failed_precondition(message),
+            // Read-only after failed start-up verification: no retry helps until an operator
+            // restores the directory.
+            ServiceError::Storage(StoreError::ReadOnly(_)) => Status::failed_precondition(message),
             ServiceError::Storage(StoreError::StorageFull(_)) => {
                 tracing::warn!(error = %message, "write refused: disk full");
                 Status::resource_exhausted(message)
             }
             ServiceError::Storage(StoreError::Engine(_))
             | ServiceError::Storage(StoreError::Corrupt(_))
+            | ServiceError::Storage(StoreError::Ledger(_))
             | ServiceError::Storage(StoreError::Conflict) => {
                 tracing::error!(error = %message, "storage failure");
                 Status::internal(message)

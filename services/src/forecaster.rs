@@ -311,6 +311,12 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
             break;
         }
         tokio::time::sleep(coalesce).await;
+        // Forecasts are stored: while writes are refused (a full disk, a read-only store) a
+        // pass could only fail; the next wake-up or timer tries again.
+        if state.blocking(|store| Ok(store.writable())).await.map_or(true, |w| w.is_err()) {
+            more_work = false;
+            continue;
+        }
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
         let started = std::time::Instant::now();

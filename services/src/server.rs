@@ -5,13 +5,13 @@
 use std::future::Future;
 
 use brakeledger_proto::v1::{
-    access_service_server::AccessServiceServer, fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
+    access_service_server::AccessServiceServer, backup_service_server::BackupServiceServer, fleet_service_server::FleetServiceServer, forecast_service_server::ForecastServiceServer,
     maintenance_service_server::MaintenanceServiceServer, telemetry_service_server::TelemetryServiceServer,
 };
 use tokio::net::TcpListener;
 
 use crate::{drain, forecaster, write_health};
-use crate::grpc::{access_api::AccessApi, fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
+use crate::grpc::{access_api::AccessApi, backup_api::BackupApi, fleet_api::FleetApi, forecast_api::ForecastApi, maintenance_api::MaintenanceApi, telemetry_api::TelemetryApi};
 use crate::state::AppState;
 
 /// Failures that stop the server.
@@ -41,6 +41,7 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
     health_reporter.set_serving::<MaintenanceServiceServer<MaintenanceApi>>().await;
     health_reporter.set_serving::<ForecastServiceServer<ForecastApi>>().await;
     health_reporter.set_serving::<AccessServiceServer<AccessApi>>().await;
+    health_reporter.set_serving::<BackupServiceServer<BackupApi>>().await;
 
     let reflection_v1 = tonic_reflection::server::Builder::configure()
         .register_encoded_file_descriptor_set(brakeledger_proto::FILE_DESCRIPTOR_SET)
@@ -111,6 +112,10 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         .add_service(tonic::service::interceptor::InterceptedService::new(ForecastServiceServer::new(ForecastApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out), state.access.clone()))
         .add_service(tonic::service::interceptor::InterceptedService::new(
             AccessServiceServer::new(AccessApi::new(state.clone())).max_decoding_message_size(max_in).max_encoding_message_size(max_out),
+            state.access.clone(),
+        ))
+        .add_service(tonic::service::interceptor::InterceptedService::new(
+            BackupServiceServer::new(BackupApi::new(state.clone())).max_encoding_message_size(max_out),
             state.access.clone(),
         ))
         ;

@@ -103,8 +103,9 @@ impl TestServer {
             task.await.expect("server task");
         }
         // The transport's per-call tasks may still be dropping their handlers (and with them
-        // the store) a moment after the server returned; wait, so the directory can be reopened.
-        for _ in 0..400 {
+        // the store) a moment after the server returned; wait (up to 20 s on a loaded machine), so
+        // the directory can be reopened.
+        for _ in 0..4000 {
             if self.store.strong_count() == 0 {
                 return;
             }

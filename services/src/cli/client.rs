@@ -98,6 +98,8 @@ pub struct Connection {
     pub forecast: pb::forecast_service_client::ForecastServiceClient<AuthChannel>,
     /// AccessService.
     pub access: pb::access_service_client::AccessServiceClient<AuthChannel>,
+    /// BackupService.
+    pub backup: pb::backup_service_client::BackupServiceClient<AuthChannel>,
 }
 
 impl Connection {
@@ -141,7 +143,8 @@ impl Connection {
             telemetry: pb::telemetry_service_client::TelemetryServiceClient::with_interceptor(channel.clone(), token.clone()),
             maintenance: pb::maintenance_service_client::MaintenanceServiceClient::with_interceptor(channel.clone(), token.clone()),
             forecast: pb::forecast_service_client::ForecastServiceClient::with_interceptor(channel.clone(), token.clone()),
-            access: pb::access_service_client::AccessServiceClient::with_interceptor(channel, token),
+            access: pb::access_service_client::AccessServiceClient::with_interceptor(channel.clone(), token.clone()),
+            backup: pb::backup_service_client::BackupServiceClient::with_interceptor(channel, token),
         }
     }
 

@@ -18,10 +18,12 @@
 //! - [`summarise`]: `summarise`, a speed trace into a trip summary.
 //! - [`demo`], [`demo_feed`], [`demo_accuracy`]: `demo`.
 //! - [`access`]: `token` and `audit`.
+//! - [`data_dir`]: `check`, `backup`, `restore`, `verify-backup`.
 
 pub mod access;
 pub mod chart;
 pub mod client;
+pub mod data_dir;
 pub mod dates;
 pub mod demo;
 pub mod demo_accuracy;
@@ -111,6 +113,18 @@ pub enum Command {
     /// List a fleet's audit trail: writes made with workshop, fleet-admin and operator tokens.
     #[command(after_help = access::AUDIT_EXAMPLES)]
     Audit(access::AuditArgs),
+    /// Verify a data directory offline: every record acknowledged is there, every value sound.
+    #[command(after_help = data_dir::CHECK_EXAMPLES)]
+    Check(data_dir::CheckArgs),
+    /// Write a consistent backup of a running server's whole store to one file.
+    #[command(after_help = data_dir::BACKUP_EXAMPLES)]
+    Backup(data_dir::BackupArgs),
+    /// Restore a backup file into an empty data directory (no server).
+    #[command(after_help = data_dir::RESTORE_EXAMPLES)]
+    Restore(data_dir::RestoreArgs),
+    /// Verify a backup file: every checksum and its own record counts (no server).
+    #[command(after_help = data_dir::VERIFY_EXAMPLES)]
+    VerifyBackup(data_dir::VerifyBackupArgs),
     /// Run an invented fleet through an in-process server and show every answer it gives.
     #[command(long_about = demo::DEMO_LONG_ABOUT, after_help = demo::DEMO_EXAMPLES)]
     Demo(demo::DemoArgs),
@@ -153,6 +167,10 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::Token(command) => access::token(&server, &command, out).await,
         Command::Audit(args) => access::audit(&server, &args, out).await,
         Command::Demo(args) => demo::demo(&args, out).await,
+        Command::Check(args) => data_dir::check(&args, out),
+        Command::Backup(args) => data_dir::backup(&server, &args, out).await,
+        Command::Restore(args) => data_dir::restore(&args, out),
+        Command::VerifyBackup(args) => data_dir::verify_backup(&args, out),
     }
 }
 

@@ -122,7 +122,7 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     }
     init_logging(settings.log_format, &settings.log_filter);
     let data_dir = settings.data_dir.clone();
-    let options = StoreOptions::from(&settings.storage);
+    let options = StoreOptions { on_mismatch: settings.integrity.on_mismatch, ..StoreOptions::from(&settings.storage) };
     let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
         .await?
         .with_context(|| format!("opening the database in {}", settings.data_dir.display()))?;

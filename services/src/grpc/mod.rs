@@ -2,6 +2,7 @@
 //! domain values, makes one call into the store or the forecaster, and converts back.
 
 pub mod access_api;
+pub mod backup_api;
 pub mod due_queries;
 pub mod due_watch;
 pub mod fleet_api;

@@ -3,9 +3,17 @@
 //! The trait is small and synchronous; handlers call it from `spawn_blocking`. Every write
 //! method returns only after what it wrote is durable on disk ("acknowledged means durable").
 //! [`sled_store::SledStore`] is the embedded default.
+//!
+//! Beside the engine: [`ledger`] (the record of what was acknowledged, kept apart from sled's
+//! files), [`integrity`] (start-up and offline verification against it), [`backup_file`] (the
+//! backup file format, verification and restore), [`keys`] (the key layout) and
+//! [`disk_space`] (the free-space gate).
 
+pub mod backup_file;
 pub mod disk_space;
+pub mod integrity;
 pub mod keys;
+pub mod ledger;
 pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
@@ -35,6 +43,17 @@ pub enum StoreError {
     /// The disk is (nearly) full: writes are refused until space is freed; reads still work.
     #[error("{0}")]
     StorageFull(String),
+    /// The data directory does not hold what was acknowledged (or cannot be opened): the
+    /// store refuses to start. The message names what is missing and how to restore.
+    #[error("{0}")]
+    Damaged(String),
+    /// Start-up verification found damage and the server was configured to serve read-only:
+    /// every write is refused.
+    #[error("{0}")]
+    ReadOnly(String),
+    /// The acknowledged-write ledger could not be written.
+    #[error("{0}")]
+    Ledger(String),
 }
 
 /// Result of storage calls.
@@ -122,4 +141,8 @@ pub trait Store: Send + Sync + 'static {
     fn size_on_disk(&self) -> StoreResult<u64>;
     /// Flushes everything to disk.
     fn flush(&self) -> StoreResult<()>;
+    /// Writes a consistent backup file of every record (see [`backup_file`]) to an unnamed
+    /// temporary file beside the database, holding acknowledged writes while it copies, and
+    /// returns the file rewound to its start.
+    fn export_backup(&self, taken_at_ms: i64) -> StoreResult<(std::fs::File, backup_file::BackupSummary)>;
 }

@@ -12,13 +12,24 @@ use serde::{de::DeserializeOwned, Serialize};
 use sled::transaction::{ConflictableTransactionError, TransactionError, TransactionalTree};
 use sled::Transactional;
 
+use super::ledger::{RecordKind, Tallies};
 use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, vehicle_key, vehicle_prefix};
 use super::*;
 
 /// Schema version this build writes. Opening a database with a higher version is refused.
 /// Version 2: the stored forecasts and priors carry the leave-one-out pooling and pad coupling
 /// of the wear models; version-1 directories are migrated by `Engine::rebuild_derived`.
-pub const SCHEMA_VERSION: u32 = 2;
+/// Version 3: every postcard value ends with the CRC-32 of its bytes (see [`encode`]); older
+/// directories are migrated by [`Engine::add_value_checksums`], and get their acknowledged-write
+/// ledger (see [`super::ledger`]) from what they hold.
+pub const SCHEMA_VERSION: u32 = 3;
+
+/// Trees whose values are postcard records carrying a checksum.
+const CHECKSUMMED_TREES: [&str; 11] = ["fleets", "vehicles", "totals", "trips", "daily", "inspections", "replacements", "forecasts", "priors", "tokens", "audit"];
+
+/// Trees a backup carries: the records; forecasts, the due index, priors and stale marks are
+/// derived from them and recomputed after a restore.
+pub const RECORD_TREES: [&str; 10] = ["fleets", "vehicles", "totals", "trips", "trip_ids", "daily", "inspections", "replacements", "tokens", "audit"];
 const SCHEMA_KEY: &[u8] = b"schema_version";
 
 impl From<sled::Error> for StoreError {
@@ -41,12 +52,29 @@ impl From<TransactionError<StoreError>> for StoreError {
     }
 }
 
+/// A stored value: the postcard encoding of `value` followed by the CRC-32 (IEEE, little-endian)
+/// of those bytes, so a value damaged on disk is detected when read instead of decoding as
+/// something else.
 fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
-    postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))
+    let mut bytes = postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))?;
+    let crc = crc32fast::hash(&bytes);
+    bytes.extend_from_slice(&crc.to_le_bytes());
+    Ok(bytes)
+}
+
+/// The postcard bytes of a stored value whose checksum matches.
+pub fn checked_body(bytes: &[u8]) -> StoreResult<&[u8]> {
+    let split = bytes.len().checked_sub(4).ok_or_else(|| StoreError::Corrupt(format!("a stored value of {} bytes is too short to carry its checksum", bytes.len())))?;
+    let (body, crc) = bytes.split_at(split);
+    let crc = u32::from_le_bytes([crc[0], crc[1], crc[2], crc[3]]);
+    if crc32fast::hash(body) != crc {
+        return Err(StoreError::Corrupt("a stored value does not match its checksum (damaged on disk)".into()));
+    }
+    Ok(body)
 }
 
 fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
-    postcard::from_bytes(bytes).map_err(|e| StoreError::Corrupt(e.to_string()))
+    postcard::from_bytes(checked_body(bytes)?).map_err(|e| StoreError::Corrupt(e.to_string()))
 }
 
 fn abort(error: StoreError) -> ConflictableTransactionError<StoreError> {
@@ -107,10 +135,14 @@ impl Engine {
                 }
                 if found < SCHEMA_VERSION {
                     let engine = Self::with_trees(db)?;
-                    engine.rebuild_derived()?;
-                    meta.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
+                    if found < 2 {
+                        engine.rebuild_derived()?;
+                    }
+                    engine.add_value_checksums()?;
+                    // The schema version is written by `finish_migration`, once the caller has
+                    // written the ledger: a crash before that runs the (idempotent) migration again.
                     engine.db.flush()?;
-                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: forecasts will be recomputed");
+                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: values now carry checksums");
                     return Ok(engine);
                 }
             }
@@ -136,6 +168,59 @@ impl Engine {
             self.stale.insert(key, &generation.to_be_bytes())?;
         }
         Ok(())
+    }
+
+    /// Migration to version 3: appends a checksum to every postcard value that has none yet.
+    /// Idempotent: a value that already ends with the checksum of its other bytes is left alone
+    /// (an old value does so by chance with probability 2^-32).
+    fn add_value_checksums(&self) -> StoreResult<()> {
+        for name in CHECKSUMMED_TREES {
+            let tree = self.db.open_tree(name)?;
+            let mut batch = sled::Batch::default();
+            let mut pending = 0usize;
+            for entry in tree.iter() {
+                let (key, value) = entry?;
+                if checked_body(&value).is_ok() {
+                    continue;
+                }
+                let mut bytes = value.to_vec();
+                bytes.extend_from_slice(&crc32fast::hash(&value).to_le_bytes());
+                batch.insert(key, bytes);
+                pending += 1;
+                if pending == 10_000 {
+                    tree.apply_batch(std::mem::take(&mut batch))?;
+                    pending = 0;
+                }
+            }
+            tree.apply_batch(batch)?;
+        }
+        Ok(())
+    }
+
+    /// The schema version stored in the database, `None` for a database that holds none (new,
+    /// or emptied by damage).
+    pub fn stored_schema_version(db: &sled::Db) -> StoreResult<Option<u32>> {
+        let meta = db.open_tree("meta")?;
+        match meta.get(SCHEMA_KEY)? {
+            Some(bytes) => {
+                let array: [u8; 4] = bytes.as_ref().try_into().map_err(|_| StoreError::Corrupt("schema version".into()))?;
+                Ok(Some(u32::from_be_bytes(array)))
+            }
+            None => Ok(None),
+        }
+    }
+
+    /// Ends a migration: writes the current schema version, durably.
+    pub fn finish_migration(&self) -> StoreResult<()> {
+        self.db.open_tree("meta")?.insert(SCHEMA_KEY, &SCHEMA_VERSION.to_be_bytes())?;
+        self.db.flush()?;
+        Ok(())
+    }
+
+    /// The engine over a database served read-only after failed verification: nothing is
+    /// written to it (no schema version, no migration).
+    pub fn from_db_read_only(db: sled::Db) -> StoreResult<Self> {
+        Self::with_trees(db)
     }
 
     fn with_trees(db: sled::Db) -> StoreResult<Self> {
@@ -517,6 +602,198 @@ impl Engine {
 
     /// See [`Store`].
     pub fn flush(&self) -> StoreResult<()> {
+        self.db.flush()?;
+        Ok(())
+    }
+}
+
+/// Keys an acknowledged write is about to add, with their tallies for the ledger.
+#[derive(Debug, Default)]
+pub struct PlannedKeys {
+    /// Per fleet and kind.
+    pub tallies: Tallies,
+    /// Each new key and its kind (to check later whether the write reached the store).
+    pub keys: Vec<(RecordKind, Vec<u8>)>,
+}
+
+impl PlannedKeys {
+    fn add(&mut self, fleet_id: &str, kind: RecordKind, key: Vec<u8>) {
+        self.tallies.add_key(fleet_id, kind, &key);
+        self.keys.push((kind, key));
+    }
+}
+
+/// What a scan of the whole store found: the tallies of its records and every problem seen.
+#[derive(Debug, Default)]
+pub struct Audit {
+    /// Records per fleet and kind.
+    pub tallies: Tallies,
+    /// Damaged values and inconsistent indexes, one line each (at most [`Audit::MAX_LISTED`]).
+    pub problems: Vec<String>,
+    /// Problems found, listed or not.
+    pub problem_count: u64,
+}
+
+impl Audit {
+    /// Problems listed one by one; the rest are only counted.
+    pub const MAX_LISTED: usize = 20;
+
+    fn problem(&mut self, line: String) {
+        self.problem_count += 1;
+        if self.problems.len() < Self::MAX_LISTED {
+            self.problems.push(line);
+        }
+    }
+}
+
+/// The fleet a record key belongs to (its first part).
+pub fn fleet_of_key(kind: RecordKind, key: &[u8]) -> String {
+    let end = match kind {
+        RecordKind::Fleet => key.len(),
+        _ => key.iter().position(|b| *b == keys::SEP).unwrap_or(key.len()),
+    };
+    String::from_utf8_lossy(&key[..end]).into_owned()
+}
+
+/// A key for people: its parts separated by '/', bytes that are not text as hex.
+pub fn printable_key(key: &[u8]) -> String {
+    let mut out = String::new();
+    for part in key.split(|b| *b == keys::SEP) {
+        if !out.is_empty() {
+            out.push('/');
+        }
+        match std::str::from_utf8(part) {
+            Ok(text) if text.chars().all(|c| !c.is_control()) => out.push_str(text),
+            _ => out.extend(part.iter().map(|b| format!("{b:02x}"))),
+        }
+    }
+    out
+}
+
+impl Engine {
+    fn tree_of(&self, kind: RecordKind) -> &sled::Tree {
+        match kind {
+            RecordKind::Fleet => &self.fleets,
+            RecordKind::Vehicle => &self.vehicles,
+            RecordKind::Trip => &self.trips,
+            RecordKind::Inspection => &self.inspections,
+            RecordKind::Replacement => &self.replacements,
+        }
+    }
+
+    /// The new keys of a fleet, vehicle, inspection or replacement write (none when the record
+    /// exists already).
+    pub fn plan_one(&self, kind: RecordKind, fleet_id: &str, key: Vec<u8>) -> StoreResult<PlannedKeys> {
+        let mut planned = PlannedKeys::default();
+        if !self.tree_of(kind).contains_key(&key)? {
+            planned.add(fleet_id, kind, key);
+        }
+        Ok(planned)
+    }
+
+    /// The new keys of a trip batch: trips whose id is not stored yet, once each.
+    pub fn plan_trips(&self, trips: &[TripRecord]) -> StoreResult<PlannedKeys> {
+        let mut planned = PlannedKeys::default();
+        let mut seen = HashSet::new();
+        for trip in trips {
+            let id_key = child_key(&trip.fleet_id, &trip.vehicle_id, &trip.trip_id);
+            if self.trip_ids.contains_key(&id_key)? || !seen.insert(id_key) {
+                continue;
+            }
+            planned.add(&trip.fleet_id, RecordKind::Trip, trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id));
+        }
+        Ok(planned)
+    }
+
+    /// How many of `keys` the store holds.
+    pub fn count_present(&self, keys: &[(RecordKind, Vec<u8>)]) -> StoreResult<usize> {
+        let mut present = 0;
+        for (kind, key) in keys {
+            if self.tree_of(*kind).contains_key(key)? {
+                present += 1;
+            }
+        }
+        Ok(present)
+    }
+
+    /// Tallies every record and checks every stored value's checksum and the trip index.
+    pub fn audit(&self) -> StoreResult<Audit> {
+        let mut audit = Audit::default();
+        for kind in RecordKind::ALL {
+            for entry in self.tree_of(kind).iter() {
+                let (key, value) = entry?;
+                audit.tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
+                if let Err(error) = checked_body(&value) {
+                    audit.problem(format!("{} {}: {error}", kind.plural(), printable_key(&key)));
+                }
+            }
+        }
+        let checked = [
+            ("totals", &self.totals),
+            ("daily", &self.daily),
+            ("forecasts", &self.forecasts),
+            ("priors", &self.priors),
+            ("tokens", &self.tokens),
+            ("audit", &self.audit),
+        ];
+        for (name, tree) in checked {
+            for entry in tree.iter() {
+                let (key, value) = entry?;
+                if let Err(error) = checked_body(&value) {
+                    audit.problem(format!("{name} {}: {error}", printable_key(&key)));
+                }
+            }
+        }
+        let mut per_vehicle: BTreeMap<Vec<u8>, u64> = BTreeMap::new();
+        for key in self.trips.iter().keys() {
+            let key = key?;
+            let fleet_end = key.iter().position(|b| *b == keys::SEP).unwrap_or(key.len());
+            let vehicle_end = key[(fleet_end + 1).min(key.len())..].iter().position(|b| *b == keys::SEP).map_or(key.len(), |p| fleet_end + 1 + p);
+            *per_vehicle.entry(key[..vehicle_end].to_vec()).or_default() += 1;
+        }
+        for entry in self.totals.iter() {
+            let (key, value) = entry?;
+            let Ok(totals) = decode::<VehicleTotals>(&value) else { continue };
+            let stored = per_vehicle.get(key.as_ref()).copied().unwrap_or(0);
+            if totals.trips_recorded != stored {
+                audit.problem(format!("vehicle {}: {} trips were recorded, {stored} are stored", printable_key(&key), totals.trips_recorded));
+            }
+        }
+        let mut indexed: BTreeMap<String, u64> = BTreeMap::new();
+        for key in self.trip_ids.iter().keys() {
+            *indexed.entry(fleet_of_key(RecordKind::Trip, &key?)).or_default() += 1;
+        }
+        let empty = Default::default();
+        let fleets: std::collections::BTreeSet<String> = indexed.keys().chain(audit.tallies.0.keys()).cloned().collect();
+        for fleet in fleets {
+            let stored = audit.tallies.0.get(&fleet).unwrap_or(&empty).trips.count;
+            let ids = indexed.get(&fleet).copied().unwrap_or(0);
+            if stored != ids {
+                audit.problem(format!("fleet '{fleet}': the trip-id index lists {ids} trips, {stored} trip records are stored"));
+            }
+        }
+        Ok(audit)
+    }
+
+    /// Every (key, stored value) of one of the [`RECORD_TREES`], in key order.
+    pub fn record_entries(&self, tree: &str) -> StoreResult<impl Iterator<Item = StoreResult<(sled::IVec, sled::IVec)>>> {
+        Ok(self.db.open_tree(tree)?.iter().map(|entry| entry.map_err(StoreError::from)))
+    }
+
+    /// Stores raw entries in one of the [`RECORD_TREES`] (restore into an empty database).
+    pub fn load_entries(&self, tree: &str, entries: Vec<(Vec<u8>, Vec<u8>)>) -> StoreResult<()> {
+        let tree = self.db.open_tree(tree)?;
+        let mut batch = sled::Batch::default();
+        for (key, value) in entries {
+            batch.insert(key, value);
+        }
+        tree.apply_batch(batch)?;
+        Ok(())
+    }
+
+    /// After a restore: marks every vehicle stale so the forecasts are rebuilt, and flushes.
+    pub fn mark_all_stale(&self) -> StoreResult<()> {
+        self.rebuild_derived()?;
         self.db.flush()?;
         Ok(())
     }

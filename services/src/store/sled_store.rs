@@ -9,6 +9,11 @@
 //!   reopened; the store then marks itself *poisoned* and, at the next write or
 //!   [`Store::writable`] check once space is free again, reopens the database in place (waiting
 //!   for calls in flight to finish). Reads keep working throughout.
+//! - **Integrity**: opening verifies the directory against its acknowledged-write ledger
+//!   ([`super::integrity`]); each acknowledged write that adds records goes through
+//!   [`SledStore::acknowledged`], which keeps the ledger in step (see [`super::ledger`]). A
+//!   directory opened read-only after failed verification refuses every write with
+//!   [`StoreError::ReadOnly`].
 
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -17,8 +22,11 @@ use std::time::{Duration, Instant};
 
 pub use super::sled_engine::SCHEMA_VERSION;
 use super::disk_space;
-use super::sled_engine::Engine;
+use super::integrity::{self, Findings, Mode};
+use super::ledger::{Ledger, RecordKind};
+use super::sled_engine::{Engine, PlannedKeys};
 use super::*;
+use crate::config::OnMismatch;
 
 /// How the database is opened.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -27,18 +35,19 @@ pub struct StoreOptions {
     pub cache_capacity_bytes: u64,
     /// Free space below which writes are refused, bytes.
     pub min_free_bytes: u64,
+    /// What to do when start-up verification finds damage.
+    pub on_mismatch: OnMismatch,
 }
 
 impl Default for StoreOptions {
     fn default() -> Self {
-        let defaults = crate::config::StorageConfig::default();
-        Self { cache_capacity_bytes: defaults.cache_capacity_bytes, min_free_bytes: defaults.min_free_bytes }
+        Self::from(&crate::config::StorageConfig::default())
     }
 }
 
 impl From<&crate::config::StorageConfig> for StoreOptions {
     fn from(config: &crate::config::StorageConfig) -> Self {
-        Self { cache_capacity_bytes: config.cache_capacity_bytes, min_free_bytes: config.min_free_bytes }
+        Self { cache_capacity_bytes: config.cache_capacity_bytes, min_free_bytes: config.min_free_bytes, on_mismatch: OnMismatch::Refuse }
     }
 }
 
@@ -60,10 +69,28 @@ pub struct SledStore {
     /// The engine failed a write for lack of space and must be reopened before the next one.
     poisoned: AtomicBool,
     reopening: Mutex<()>,
+    /// The ledger and the keys of a write whose outcome is not known yet; held for the whole of
+    /// every acknowledged write that adds records (and by backups, to hold writes). `None` for a
+    /// temporary database and for a read-only one.
+    ledger: Option<Mutex<LedgerSlot>>,
+    /// Findings of the start-up verification when serving read-only.
+    read_only: Option<Findings>,
+}
+
+/// The ledger and what is not settled in it.
+struct LedgerSlot {
+    ledger: Ledger,
+    /// Keys of a write that failed after its delta was recorded as pending: whether it reached
+    /// the store is settled before the next write.
+    unsettled: Option<Vec<(RecordKind, Vec<u8>)>>,
 }
 
 fn open_engine(dir: &Path, options: &StoreOptions) -> StoreResult<Engine> {
     Engine::from_db(sled::Config::new().path(dir).cache_capacity(options.cache_capacity_bytes).open()?)
+}
+
+fn lock_error<T>(_: T) -> StoreError {
+    StoreError::Engine("a store lock was poisoned by a panic".into())
 }
 
 impl SledStore {
@@ -72,10 +99,16 @@ impl SledStore {
         Self::open_with(dir, &StoreOptions::default())
     }
 
-    /// Opens (or creates) the database in `dir`.
+    /// Opens (or creates) the database in `dir`, verified against its ledger: refused with
+    /// [`StoreError::Damaged`] naming what is missing, or opened read-only, as `options` say.
     pub fn open_with(dir: &Path, options: &StoreOptions) -> StoreResult<Self> {
-        let engine = open_engine(dir, options)?;
-        Ok(Self::around(Some(dir.to_owned()), options.clone(), engine))
+        std::fs::create_dir_all(dir).map_err(|e| StoreError::Engine(format!("creating {}: {e}", dir.display())))?;
+        let (opened, _) = integrity::open(dir, options.cache_capacity_bytes, Mode::Serve(options.on_mismatch))?;
+        let opened = opened.ok_or_else(|| StoreError::Damaged(format!("the database in {} could not be opened", dir.display())))?;
+        let mut store = Self::around(Some(dir.to_owned()), options.clone(), opened.engine);
+        store.ledger = opened.ledger.map(|ledger| Mutex::new(LedgerSlot { ledger, unsettled: None }));
+        store.read_only = opened.read_only;
+        Ok(store)
     }
 
     /// A throw-away database in a temporary location (tests).
@@ -85,7 +118,76 @@ impl SledStore {
     }
 
     fn around(dir: Option<PathBuf>, options: StoreOptions, engine: Engine) -> Self {
-        Self { dir, options, engine: RwLock::new(Some(Arc::new(engine))), poisoned: AtomicBool::new(false), reopening: Mutex::new(()) }
+        Self {
+            dir,
+            options,
+            engine: RwLock::new(Some(Arc::new(engine))),
+            poisoned: AtomicBool::new(false),
+            reopening: Mutex::new(()),
+            ledger: None,
+            read_only: None,
+        }
+    }
+
+    /// The findings when the store serves read-only after failed verification.
+    pub fn read_only_findings(&self) -> Option<&Findings> {
+        self.read_only.as_ref()
+    }
+
+    /// An acknowledged write that may add records: `plan` lists the keys it will add, `op`
+    /// writes and flushes. The ledger records the delta as pending before `op` and as committed
+    /// after it, all under the ledger lock (see [`super::ledger`]).
+    fn acknowledged<T>(&self, plan: impl FnOnce(&Engine) -> StoreResult<PlannedKeys>, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
+        let Some(slot) = &self.ledger else { return self.write(op) };
+        self.writable()?;
+        let mut slot = slot.lock().map_err(lock_error)?;
+        let engine = self.engine()?;
+        Self::settle_unsettled(&mut slot, &engine)?;
+        let planned = plan(&engine)?;
+        if planned.keys.is_empty() {
+            let result = op(&engine);
+            self.note_full_disk(&result);
+            return result;
+        }
+        let begun = slot.ledger.begin(planned.tallies).map_err(StoreError::from);
+        // A ledger that cannot be written for lack of space counts as a full disk of the store:
+        // write health reports NOT_SERVING until space is back.
+        self.note_full_disk(&begun);
+        begun?;
+        let result = op(&engine);
+        self.note_full_disk(&result);
+        let result = result.and_then(|value| slot.ledger.commit().map(|()| value).map_err(StoreError::from));
+        self.note_full_disk(&result);
+        if result.is_err() {
+            slot.unsettled = Some(planned.keys);
+        }
+        result
+    }
+
+    /// Settles a write whose outcome is not known yet, if any.
+    fn settle_unsettled(slot: &mut LedgerSlot, engine: &Engine) -> StoreResult<()> {
+        if let Some(keys) = slot.unsettled.take() {
+            if let Err(error) = Self::settle(&mut slot.ledger, engine, &keys) {
+                slot.unsettled = Some(keys);
+                return Err(error);
+            }
+        }
+        Ok(())
+    }
+
+    /// Settles the pending delta of a write that failed: flushed and present → committed;
+    /// absent → dropped.
+    fn settle(ledger: &mut Ledger, engine: &Engine, keys: &[(RecordKind, Vec<u8>)]) -> StoreResult<()> {
+        engine.flush()?;
+        let present = engine.count_present(keys)?;
+        if present == keys.len() {
+            ledger.commit()?;
+        } else if present == 0 {
+            ledger.abandon()?;
+        } else {
+            return Err(StoreError::Corrupt(format!("a failed write is only partly in the store ({present} of {} records)", keys.len())));
+        }
+        Ok(())
     }
 
     /// Writes a schema version (tests of the refusal to open newer databases).
@@ -115,12 +217,17 @@ impl SledStore {
     fn write<T>(&self, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
         self.writable()?;
         let result = op(&*self.engine()?);
-        if let Err(StoreError::StorageFull(message)) = &result {
+        self.note_full_disk(&result);
+        result
+    }
+
+    /// Marks the engine poisoned when a write failed for lack of space.
+    fn note_full_disk<T>(&self, result: &StoreResult<T>) {
+        if let Err(StoreError::StorageFull(message)) = result {
             if !self.poisoned.swap(true, Ordering::SeqCst) {
                 tracing::error!(error = %message, "write failed for lack of space; the database will be reopened once space is free");
             }
         }
-        result
     }
 
     /// Replaces the engine with a freshly opened one (after a full disk poisoned it).
@@ -161,6 +268,13 @@ impl SledStore {
 
 impl Store for SledStore {
     fn writable(&self) -> StoreResult<()> {
+        if let Some(findings) = &self.read_only {
+            return Err(StoreError::ReadOnly(format!(
+                "this server is read-only: start-up verification found damage ({} finding(s); first: {}); restore the data directory from a backup",
+                findings.lines.len(),
+                findings.lines.first().map(String::as_str).unwrap_or("")
+            )));
+        }
         let Some(dir) = self.dir.as_deref() else { return Ok(()) };
         if self.options.min_free_bytes > 0 {
             let free = disk_space::available_bytes(dir).map_err(|e| StoreError::Engine(format!("free space of {}: {e}", dir.display())))?;
@@ -180,7 +294,7 @@ impl Store for SledStore {
     }
 
     fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool> {
-        self.write(|e| e.upsert_fleet(fleet))
+        self.acknowledged(|e| e.plan_one(RecordKind::Fleet, &fleet.fleet_id, fleet.fleet_id.as_bytes().to_vec()), |e| e.upsert_fleet(fleet))
     }
 
     fn get_fleet(&self, fleet_id: &str) -> StoreResult<Option<FleetRecord>> {
@@ -188,7 +302,8 @@ impl Store for SledStore {
     }
 
     fn upsert_vehicle(&self, vehicle: &VehicleRecord) -> StoreResult<bool> {
-        self.write(|e| e.upsert_vehicle(vehicle))
+        let key = keys::vehicle_key(&vehicle.fleet_id, &vehicle.vehicle_id);
+        self.acknowledged(|e| e.plan_one(RecordKind::Vehicle, &vehicle.fleet_id, key), |e| e.upsert_vehicle(vehicle))
     }
 
     fn get_vehicle(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleRecord>> {
@@ -208,15 +323,17 @@ impl Store for SledStore {
     }
 
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
-        self.write(|e| e.ingest_trips(trips))
+        self.acknowledged(|e| e.plan_trips(trips), |e| e.ingest_trips(trips))
     }
 
     fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool> {
-        self.write(|e| e.record_inspection(inspection))
+        let key = keys::child_key(&inspection.fleet_id, &inspection.vehicle_id, &inspection.inspection_id);
+        self.acknowledged(|e| e.plan_one(RecordKind::Inspection, &inspection.fleet_id, key), |e| e.record_inspection(inspection))
     }
 
     fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool> {
-        self.write(|e| e.record_replacement(replacement))
+        let key = keys::child_key(&replacement.fleet_id, &replacement.vehicle_id, &replacement.replacement_id);
+        self.acknowledged(|e| e.plan_one(RecordKind::Replacement, &replacement.fleet_id, key), |e| e.record_replacement(replacement))
     }
 
     fn daily_energy(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<DailyEnergy>> {
@@ -293,5 +410,27 @@ impl Store for SledStore {
 
     fn flush(&self) -> StoreResult<()> {
         self.read(|e| e.flush())
+    }
+
+    fn export_backup(&self, taken_at_ms: i64) -> StoreResult<(std::fs::File, super::backup_file::BackupSummary)> {
+        use std::io::{Seek, SeekFrom};
+        let io = |e: std::io::Error| StoreError::from(super::backup_file::BackupError::Io(e));
+        let mut file = match &self.dir {
+            Some(dir) => tempfile::tempfile_in(dir).map_err(io)?,
+            None => tempfile::tempfile().map_err(io)?,
+        };
+        let summary = match &self.ledger {
+            Some(slot) => {
+                let mut slot = slot.lock().map_err(lock_error)?;
+                let engine = self.engine()?;
+                Self::settle_unsettled(&mut slot, &engine)?;
+                super::backup_file::write(&engine, Some(&slot.ledger.state().committed), taken_at_ms, &mut file)?
+            }
+            // A temporary database has no ledger; a read-only one was found damaged, and its
+            // backup holds what is left (writes are refused anyway).
+            None => super::backup_file::write(&*self.engine()?, None, taken_at_ms, &mut file)?,
+        };
+        file.seek(SeekFrom::Start(0)).map_err(io)?;
+        Ok((file, summary))
     }
 }

@@ -65,6 +65,7 @@ const RPCS: &[(&str, &[&str])] = &[
     ("ListTokens", &["fleet-admin"]),
     ("RevokeToken", &["fleet-admin"]),
     ("ListAuditEntries", &["fleet-admin"]),
+    ("ExportBackup", &[]),
 ];
 
 /// Makes one RPC on fleet north as `secret`; the status code it ends with.
@@ -207,6 +208,24 @@ async fn call(server: &TestServer, rpc: &str, secret: Option<&str>, serial: usiz
             .list_audit_entries(with_token(pb::ListAuditEntriesRequest { fleet_id: "north".into(), page_size: 10, page_token: String::new() }, secret))
             .await
             .map(drop),
+        "ExportBackup" => match pb::backup_service_client::BackupServiceClient::new(channel).export_backup(with_token(pb::ExportBackupRequest::default(), secret)).await {
+            Err(status) => Err(status),
+            Ok(response) => {
+                let mut chunks = response.into_inner();
+                let mut last = Ok(());
+                loop {
+                    match chunks.message().await {
+                        Ok(Some(_)) => {}
+                        Ok(None) => break,
+                        Err(status) => {
+                            last = Err(status);
+                            break;
+                        }
+                    }
+                }
+                last
+            }
+        },
         other => panic!("no call for {other}"),
     };
     match outcome {

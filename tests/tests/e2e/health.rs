@@ -12,7 +12,7 @@ use tonic_reflection::pb::v1::{
 async fn health_reports_serving_for_the_server_and_each_service() {
     let server = TestServer::start().await;
     let mut health = HealthClient::new(server.channel.clone());
-    for service in ["", "brakeledger.v1.FleetService", "brakeledger.v1.TelemetryService", "brakeledger.v1.MaintenanceService", "brakeledger.v1.ForecastService"] {
+    for service in ["", "brakeledger.v1.FleetService", "brakeledger.v1.TelemetryService", "brakeledger.v1.MaintenanceService", "brakeledger.v1.ForecastService", "brakeledger.v1.BackupService"] {
         let response = health.check(HealthCheckRequest { service: service.into() }).await.expect("health check").into_inner();
         assert_eq!(response.status, ServingStatus::Serving as i32, "service {service:?}");
     }
@@ -32,7 +32,7 @@ async fn reflection_lists_the_four_services() {
         panic!("unexpected reflection response {response:?}");
     };
     let names: Vec<String> = list.service.into_iter().map(|s| s.name).collect();
-    for expected in ["brakeledger.v1.FleetService", "brakeledger.v1.TelemetryService", "brakeledger.v1.MaintenanceService", "brakeledger.v1.ForecastService", "grpc.health.v1.Health"] {
+    for expected in ["brakeledger.v1.FleetService", "brakeledger.v1.TelemetryService", "brakeledger.v1.MaintenanceService", "brakeledger.v1.ForecastService", "brakeledger.v1.BackupService", "grpc.health.v1.Health"] {
         assert!(names.iter().any(|n| n == expected), "{expected} missing from {names:?}");
     }
     server.stop().await;

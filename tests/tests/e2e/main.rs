@@ -3,7 +3,9 @@
 
 mod acknowledged_ingest;
 mod auth;
+mod backup;
 mod bad_bytes;
+mod corruption;
 mod cli;
 mod durability;
 mod forecast;
@@ -13,6 +15,7 @@ mod health;
 mod ingest;
 mod long_stream;
 mod maintenance;
+mod memory_soak;
 mod report_size;
 mod safe_defaults;
 mod shutdown;

@@ -1,0 +1,122 @@
+//! Memory under sustained writes: a real server process takes a long trip stream (many
+//! vehicles, in shuffled order), then half of it again (all duplicates), then an online backup,
+//! while its resident set (VmRSS in /proc/<pid>/status) is sampled. The sled page cache is
+//! `[storage] cache_capacity_bytes` (64 MiB by default) and every queue the server keeps is
+//! bounded by its configuration (see `config::reliability`). What is left grows with the data
+//! stored (sled 0.34 keeps bookkeeping for every page of the database in memory), not with the
+//! number of writes: the test checks a stated bound for this many trips, that the growth does
+//! not accelerate, stops when idle, and that writes of nothing new add nothing.
+//!
+//! `BRAKELEDGER_SOAK_TRIPS` sets the number of trips (default 300,000); the samples are printed
+//! so that the curve can be recorded (README, "Reliability").
+
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use brakeledger_proto::v1 as pb;
+use brakeledger_tests::load::shuffle;
+use brakeledger_tests::{connect, now_s, trip, two_axle_vehicle, ServerProcess};
+
+/// The bound the resident set must stay under for the default 300,000 trips, MiB: the 64 MiB
+/// page cache, the runtime, the HTTP/2 windows of one connection and sled's per-page
+/// bookkeeping (measured about 0.5 MiB per 1,000 trips stored), with room to spare.
+const RSS_BOUND_MIB: f64 = 320.0;
+const VEHICLES: usize = 200;
+
+fn rss_mib(pid: u32) -> Option<f64> {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmRSS:"))?;
+    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib / 1024.0)
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn rss_follows_the_data_stored_not_the_writes_and_stays_under_the_bound() {
+    let total: usize = std::env::var("BRAKELEDGER_SOAK_TRIPS").ok().and_then(|v| v.parse().ok()).unwrap_or(300_000);
+    let dir = tempfile::tempdir().expect("temp dir");
+    let server = ServerProcess::spawn(&std::path::PathBuf::from(env!("CARGO_BIN_EXE_brakeledger-test-server")), dir.path());
+    let pid = server.child.id();
+    let channel = connect(server.addr).await;
+    let mut fleet = pb::fleet_service_client::FleetServiceClient::new(channel.clone());
+    for v in 0..VEHICLES {
+        fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(two_axle_vehicle("north", &format!("soak-{v}"))) }).await.expect("vehicle");
+    }
+    let per_vehicle = total / VEHICLES;
+    let mut order: Vec<(usize, usize)> = (0..VEHICLES).flat_map(|v| (0..per_vehicle).map(move |n| (v, n))).collect();
+    shuffle(&mut order, 0x50a6);
+    let sent = Arc::new(AtomicU64::new(0));
+    let end = now_s() - 3600;
+
+    let sampler_sent = Arc::clone(&sent);
+    let done = Arc::new(std::sync::atomic::AtomicBool::new(false));
+    let sampler_done = Arc::clone(&done);
+    let sampler = std::thread::spawn(move || {
+        let started = Instant::now();
+        let mut samples = Vec::new();
+        while !sampler_done.load(Ordering::SeqCst) {
+            if let Some(rss) = rss_mib(pid) {
+                samples.push((started.elapsed().as_secs_f64(), sampler_sent.load(Ordering::SeqCst), rss));
+            }
+            std::thread::sleep(Duration::from_millis(250));
+        }
+        samples
+    });
+
+    let counter = Arc::clone(&sent);
+    let resend: Vec<(usize, usize)> = order.iter().take(order.len() / 2).copied().collect();
+    let trips = tokio_stream::iter(order.into_iter().map(move |(v, n)| {
+        counter.fetch_add(1, Ordering::SeqCst);
+        trip("north", &format!("soak-{v}"), n, end)
+    }));
+    let mut telemetry = pb::telemetry_service_client::TelemetryServiceClient::new(channel.clone());
+    let report = telemetry.stream_trips(trips).await.expect("stream").into_inner();
+    assert_eq!(report.accepted as usize, per_vehicle * VEHICLES);
+    let stored_at = sent.load(Ordering::SeqCst);
+    // Idle after the load: memory must not keep growing.
+    tokio::time::sleep(Duration::from_secs(3)).await;
+    let idle_end = rss_mib(pid).expect("rss");
+    // Half the trips again: all duplicates, so writes without new data.
+    let counter = Arc::clone(&sent);
+    let again = tokio_stream::iter(resend.into_iter().map(move |(v, n)| {
+        counter.fetch_add(1, Ordering::SeqCst);
+        trip("north", &format!("soak-{v}"), n, end)
+    }));
+    let duplicates = telemetry.stream_trips(again).await.expect("resend").into_inner();
+    assert_eq!(duplicates.accepted, 0);
+    let after_duplicates = rss_mib(pid).expect("rss");
+    // An online backup of everything, timed.
+    let started = Instant::now();
+    let mut chunks = pb::backup_service_client::BackupServiceClient::new(channel.clone()).export_backup(pb::ExportBackupRequest {}).await.expect("backup").into_inner();
+    let mut backup_bytes = 0usize;
+    while let Some(chunk) = chunks.message().await.expect("chunk") {
+        backup_bytes += chunk.data.len();
+    }
+    let backup_time = started.elapsed();
+    let after_backup = rss_mib(pid).expect("rss");
+    done.store(true, Ordering::SeqCst);
+    let samples = sampler.join().expect("sampler");
+    server.kill();
+
+    eprintln!("soak: {} trips stored, then {} resent as duplicates; seconds, trips sent, VmRSS MiB:", report.accepted, duplicates.duplicates);
+    let step = (samples.len() / 30).max(1);
+    for (t, n, rss) in samples.iter().step_by(step) {
+        eprintln!("  {t:6.1} s  {n:8}  {rss:7.1}");
+    }
+    let at_store_end = samples.iter().filter(|s| s.1 >= stored_at as u64).map(|s| s.2).next().unwrap_or(idle_end);
+    let peak = samples.iter().map(|s| s.2).fold(after_backup, f64::max);
+    let stored: Vec<&(f64, u64, f64)> = samples.iter().filter(|s| s.1 < stored_at && s.1 > 0).collect();
+    let quarter = |i: usize| stored[(stored.len() - 1) * i / 4];
+    let per_k = |a: &(f64, u64, f64), b: &(f64, u64, f64)| (b.2 - a.2) / ((b.1 - a.1) as f64 / 1000.0);
+    let (early, late) = (per_k(quarter(1), quarter(2)), per_k(quarter(2), quarter(4)));
+    eprintln!(
+        "soak: peak {peak:.1} MiB; growth while storing {early:.2} then {late:.2} MiB per 1,000 trips; at the end of storing {at_store_end:.1}, after 3 s idle {idle_end:.1}, after the duplicates {after_duplicates:.1}, after a {backup_bytes}-byte backup in {:.2} s {after_backup:.1} MiB",
+        backup_time.as_secs_f64()
+    );
+    assert!(peak < RSS_BOUND_MIB, "RSS peaked at {peak:.1} MiB, over the {RSS_BOUND_MIB} MiB bound");
+    // Growth follows the data stored, not the number of writes: it does not accelerate while
+    // storing, stops when idle, and writes that store nothing new add (almost) nothing.
+    assert!(late < early * 1.5 + 0.05, "RSS growth accelerates: {early:.2} then {late:.2} MiB per 1,000 trips");
+    assert!(idle_end < at_store_end + 8.0, "RSS grows while idle: {at_store_end:.1} then {idle_end:.1} MiB");
+    assert!(after_duplicates < idle_end * 1.1 + 8.0, "duplicates grow RSS: {idle_end:.1} then {after_duplicates:.1} MiB");
+}
