@@ -12,3 +12,4 @@ pub mod paging;
 pub mod part_cycles;
 pub mod refusals;
 pub mod telemetry_api;
+pub mod visit_plans;

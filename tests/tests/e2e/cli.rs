@@ -169,9 +169,17 @@ async fn forecast_due_plan_and_chart_answer_from_the_server() {
     let due_json = brakeledger(&server, &["due", "--fleet", "north", "--within-days", "120", "--json"]).await.expect("due json");
     assert_eq!(due_json.matches("\"vehicle_id\":").count(), listed.len(), "{due_json}");
 
-    let plan = brakeledger(&server, &["plan", "--fleet", "north", "--days", "120", "--hours-per-day", "8"]).await.expect("plan");
-    assert!(plan.starts_with("Workshop plan for fleet north"), "{plan}");
-    assert!(plan.contains("bus-fast") && plan.contains("axle 1 pad"), "the front pad of bus-fast is booked: {plan}");
+    let plan = brakeledger(&server, &["plan", "--fleet", "north", "--days", "120", "--hours-per-day", "8", "--safety-margin-days", "5"]).await.expect("plan");
+    assert!(plan.starts_with("Workshop plan for fleet north") && plan.lines().next().is_some_and(|l| l.ends_with("safety margin 5 day(s)")), "{plan}");
+    assert!(plan.contains("gives up (days)"), "the wear life column: {plan}");
+    // The front pad of bus-fast is booked alone, 1 + 5 days before its due date, and gives up
+    // the days from the visit to its median date.
+    let row = plan.lines().find(|l| l.contains("bus-fast") && l.contains("  1  pad")).unwrap_or_else(|| panic!("front pad of bus-fast booked: {plan}"));
+    let dates = dates_in(row);
+    assert_eq!(dates.len(), 3, "visit, due earliest, due median: {row}");
+    assert_eq!(dates[0], dates[1] - chrono::Duration::days(6), "{row}");
+    let given_up: i64 = row.split_whitespace().nth(6).and_then(|w| w.parse().ok()).unwrap_or_else(|| panic!("no days given up: {row}"));
+    assert_eq!(given_up, (dates[2] - dates[0]).num_days(), "{row}");
     assert!(plan.trim_end().ends_with(brakeledger::SAFETY_CAUTION), "{plan}");
 
     let dir = tempfile::tempdir().expect("temp dir");

@@ -13,5 +13,6 @@ mod health;
 mod ingest;
 mod long_stream;
 mod maintenance;
+mod plan;
 mod report_size;
 mod shutdown;
