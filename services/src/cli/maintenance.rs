@@ -49,7 +49,8 @@ pub struct PartRecordArgs {
 }
 
 impl PartRecordArgs {
-    fn when(&self) -> DateTime<Utc> {
+    /// `--at`, or now.
+    pub fn when(&self) -> DateTime<Utc> {
         self.at.unwrap_or_else(Utc::now)
     }
 
@@ -87,10 +88,9 @@ pub struct ReplacementArgs {
     pub new_thickness_mm: Option<f64>,
 }
 
-/// Runs `record-inspection`.
-pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
-    let when = args.part.when();
-    let request = pb::RecordInspectionRequest {
+/// The RecordInspection request of `record-inspection`'s flags, measured at `when`.
+pub fn inspection_request(args: &InspectionArgs, when: DateTime<Utc>) -> pb::RecordInspectionRequest {
+    pb::RecordInspectionRequest {
         fleet_id: args.part.fleet.clone(),
         vehicle_id: args.part.vehicle.clone(),
         inspection_id: args.part.record_id("inspection", when),
@@ -98,7 +98,26 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
         component: args.part.component.component() as i32,
         thickness_mm: args.thickness_mm,
         measured_at: Some(to_timestamp(when)),
-    };
+    }
+}
+
+/// The RecordReplacement request of `record-replacement`'s flags, replaced at `when`.
+pub fn replacement_request(args: &ReplacementArgs, when: DateTime<Utc>) -> pb::RecordReplacementRequest {
+    pb::RecordReplacementRequest {
+        fleet_id: args.part.fleet.clone(),
+        vehicle_id: args.part.vehicle.clone(),
+        replacement_id: args.part.record_id("replacement", when),
+        axle_index: args.part.axle,
+        component: args.part.component.component() as i32,
+        new_thickness_mm: args.new_thickness_mm.unwrap_or(0.0),
+        replaced_at: Some(to_timestamp(when)),
+    }
+}
+
+/// Runs `record-inspection`.
+pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
+    let when = args.part.when();
+    let request = inspection_request(args, when);
     let id = request.inspection_id.clone();
     let mut connection = Connection::open(server).await?;
     let response = connection
@@ -123,15 +142,7 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
 /// Runs `record-replacement`.
 pub async fn record_replacement(server: &ServerTarget, args: &ReplacementArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let when = args.part.when();
-    let request = pb::RecordReplacementRequest {
-        fleet_id: args.part.fleet.clone(),
-        vehicle_id: args.part.vehicle.clone(),
-        replacement_id: args.part.record_id("replacement", when),
-        axle_index: args.part.axle,
-        component: args.part.component.component() as i32,
-        new_thickness_mm: args.new_thickness_mm.unwrap_or(0.0),
-        replaced_at: Some(to_timestamp(when)),
-    };
+    let request = replacement_request(args, when);
     let id = request.replacement_id.clone();
     let mut connection = Connection::open(server).await?;
     let response = connection

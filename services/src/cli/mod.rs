@@ -20,6 +20,7 @@
 
 pub mod chart;
 pub mod client;
+pub mod corrections;
 pub mod dates;
 pub mod demo;
 pub mod demo_accuracy;
@@ -79,6 +80,18 @@ pub enum Command {
     /// Record that a pad, lining, rotor or drum was replaced.
     #[command(after_help = maintenance::REPLACEMENT_EXAMPLES)]
     RecordReplacement(maintenance::ReplacementArgs),
+    /// Void an inspection or replacement recorded by mistake (kept on file, no longer used).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    VoidRecord(corrections::VoidArgs),
+    /// Replace a mistaken inspection by a corrected one (the original is kept on file).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    SupersedeInspection(corrections::SupersedeInspectionArgs),
+    /// Replace a mistaken replacement record by a corrected one (the original is kept on file).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    SupersedeReplacement(corrections::SupersedeReplacementArgs),
+    /// List a vehicle's inspections and replacements with their status (in force, voided, superseded).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    Records(corrections::RecordsArgs),
     /// Show one vehicle's forecast: every axle's friction part and rotor or drum.
     #[command(after_help = forecast_view::FORECAST_EXAMPLES)]
     Forecast(forecast_view::ForecastArgs),
@@ -127,6 +140,10 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::AddVehicle(args) => vehicle_file::add_vehicle(&server, &args, out).await,
         Command::RecordInspection(args) => maintenance::record_inspection(&server, &args, out).await,
         Command::RecordReplacement(args) => maintenance::record_replacement(&server, &args, out).await,
+        Command::VoidRecord(args) => corrections::void_record(&server, &args, out).await,
+        Command::SupersedeInspection(args) => corrections::supersede_inspection(&server, &args, out).await,
+        Command::SupersedeReplacement(args) => corrections::supersede_replacement(&server, &args, out).await,
+        Command::Records(args) => corrections::records(&server, &args, out).await,
         Command::Forecast(args) => forecast_view::forecast(&server, &args, out).await,
         Command::Due(args) => forecast_view::due(&server, &args, out).await,
         Command::Plan(args) => plan_view::plan(&server, &args, out).await,

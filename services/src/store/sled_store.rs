@@ -211,11 +211,19 @@ impl Store for SledStore {
         self.write(|e| e.ingest_trips(trips))
     }
 
-    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool> {
+    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>> {
         self.write(|e| e.record_inspection(inspection))
     }
 
-    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool> {
+    fn correct_record(&self, correction: &CorrectionRecord, superseding: Option<&ServiceEntry>) -> StoreResult<CorrectionOutcome> {
+        self.write(|e| e.correct_record(correction, superseding))
+    }
+
+    fn service_records(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceRecords> {
+        self.read(|e| e.service_records(fleet_id, vehicle_id))
+    }
+
+    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<InsertOutcome<ReplacementRecord>> {
         self.write(|e| e.record_replacement(replacement))
     }
 

@@ -6,7 +6,7 @@ use brakeledger_tests::{register, seed_vehicle, two_axle_vehicle, wait_for_forec
 use clap::Parser;
 
 /// Runs `brakeledger --server <server> <args...>` and returns what it printed.
-async fn brakeledger(server: &TestServer, args: &[&str]) -> anyhow::Result<String> {
+pub(crate) async fn brakeledger(server: &TestServer, args: &[&str]) -> anyhow::Result<String> {
     let url = format!("http://{}", server.addr);
     let mut argv = vec!["brakeledger", "--server", url.as_str()];
     argv.extend_from_slice(args);
