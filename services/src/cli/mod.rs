@@ -25,6 +25,7 @@ pub mod dates;
 pub mod demo;
 pub mod demo_accuracy;
 pub mod demo_feed;
+pub mod fleet_view;
 pub mod forecast_view;
 pub mod maintenance;
 pub mod parts;
@@ -74,6 +75,18 @@ pub enum Command {
     /// Register (or replace) a vehicle described in a JSON or TOML file.
     #[command(long_about = vehicle_file::ADD_VEHICLE_LONG_ABOUT, after_help = vehicle_file::ADD_VEHICLE_EXAMPLES)]
     AddVehicle(vehicle_file::AddVehicleArgs),
+    /// Create a fleet or change its settings (time zone, name); flags left out keep their value.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    SetFleet(fleet_view::SetFleetArgs),
+    /// Show one fleet's settings and vehicle count.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    ShowFleet(fleet_view::FleetArgs),
+    /// List every fleet with its time zone and vehicle count.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    Fleets(fleet_view::FleetsArgs),
+    /// List a fleet's vehicles with their class, mass and brakes.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    Vehicles(fleet_view::FleetArgs),
     /// Record a measured pad, lining, rotor or drum thickness.
     #[command(after_help = maintenance::INSPECTION_EXAMPLES)]
     RecordInspection(maintenance::InspectionArgs),
@@ -138,6 +151,10 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::Serve(args) => serve::serve(args).await,
         Command::PushTrips(args) => trips::push_trips(&server, &args, out).await,
         Command::AddVehicle(args) => vehicle_file::add_vehicle(&server, &args, out).await,
+        Command::SetFleet(args) => fleet_view::set_fleet(&server, &args, out).await,
+        Command::ShowFleet(args) => fleet_view::show_fleet(&server, &args, out).await,
+        Command::Fleets(args) => fleet_view::fleets(&server, &args, out).await,
+        Command::Vehicles(args) => fleet_view::vehicles(&server, &args, out).await,
         Command::RecordInspection(args) => maintenance::record_inspection(&server, &args, out).await,
         Command::RecordReplacement(args) => maintenance::record_replacement(&server, &args, out).await,
         Command::VoidRecord(args) => corrections::void_record(&server, &args, out).await,

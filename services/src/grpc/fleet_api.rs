@@ -105,4 +105,23 @@ impl FleetService for FleetApi {
             next_page_token,
         }))
     }
+
+    async fn list_fleets(&self, _request: Request<pb::ListFleetsRequest>) -> Result<Response<pb::ListFleetsResponse>, Status> {
+        let fleets = self
+            .state
+            .blocking(move |store| {
+                let mut fleets = Vec::new();
+                for fleet_id in store.list_fleet_ids()? {
+                    let stored = store.get_fleet(&fleet_id)?;
+                    fleets.push(pb::FleetSummary {
+                        set_up: stored.is_some(),
+                        vehicle_count: store.count_vehicles(&fleet_id)?,
+                        fleet: Some(stored.unwrap_or_else(|| FleetRecord::default_for(&fleet_id)).into()),
+                    });
+                }
+                Ok(fleets)
+            })
+            .await?;
+        Ok(Response::new(pb::ListFleetsResponse { fleets }))
+    }
 }

@@ -58,6 +58,8 @@ pub trait Store: Send + Sync + 'static {
     fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool>;
     /// Reads a fleet's settings.
     fn get_fleet(&self, fleet_id: &str) -> StoreResult<Option<FleetRecord>>;
+    /// Every fleet id, in order: fleets set up and fleets holding vehicles.
+    fn list_fleet_ids(&self) -> StoreResult<Vec<String>>;
     /// Creates or replaces a vehicle; returns true when it is new. Marks its forecasts stale.
     fn upsert_vehicle(&self, vehicle: &VehicleRecord) -> StoreResult<bool>;
     /// Reads one vehicle.

@@ -326,6 +326,24 @@ impl Engine {
             .collect()
     }
 
+    /// See [`Store`]: the fleets tree, plus the fleet part of the vehicles' keys (one seek per
+    /// fleet, past all its vehicles).
+    pub fn list_fleet_ids(&self) -> StoreResult<Vec<String>> {
+        let decode_id = |bytes: &[u8]| String::from_utf8(bytes.to_vec()).map_err(|_| StoreError::Corrupt("fleet id".into()));
+        let mut ids = std::collections::BTreeSet::new();
+        for key in self.fleets.iter().keys() {
+            ids.insert(decode_id(&key?)?);
+        }
+        let mut next = self.vehicles.iter().next();
+        while let Some(entry) = next {
+            let (key, _) = entry?;
+            let fleet = key.split(|b| *b == keys::SEP).next().unwrap_or_default();
+            ids.insert(decode_id(fleet)?);
+            next = self.vehicles.range(prefix_end(&fleet_prefix(&decode_id(fleet)?))..).next();
+        }
+        Ok(ids.into_iter().collect())
+    }
+
     /// See [`Store`].
     pub fn count_vehicles(&self, fleet_id: &str) -> StoreResult<u64> {
         Ok(self.vehicles.scan_prefix(fleet_prefix(fleet_id)).keys().count() as u64)

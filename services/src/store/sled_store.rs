@@ -199,6 +199,10 @@ impl Store for SledStore {
         self.read(|e| e.list_vehicles(fleet_id, after, limit))
     }
 
+    fn list_fleet_ids(&self) -> StoreResult<Vec<String>> {
+        self.read(|e| e.list_fleet_ids())
+    }
+
     fn count_vehicles(&self, fleet_id: &str) -> StoreResult<u64> {
         self.read(|e| e.count_vehicles(fleet_id))
     }
