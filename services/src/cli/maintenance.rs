@@ -9,7 +9,7 @@ use chrono::{DateTime, Utc};
 
 use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{parse_instant, to_timestamp};
-use crate::cli::parts::PartArg;
+use crate::cli::parts::{brake_type_of, part_name, PartArg};
 
 /// Examples of `record-inspection`.
 pub const INSPECTION_EXAMPLES: &str = "\
@@ -126,13 +126,14 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
         .await
         .map_err(|s| explain(s, &format!("recording inspection '{id}' of vehicle '{}'", args.part.vehicle)))?
         .into_inner();
+    let part = part_word(&mut connection, &args.part).await;
     let status = if response.duplicate { "already stored, nothing changed" } else { "stored" };
     writeln!(
         out,
         "inspection '{id}' of vehicle '{}', axle {} {}: {} mm at {}: {status}",
         args.part.vehicle,
         args.part.axle,
-        part_word(args.part.component),
+        part,
         args.thickness_mm,
         when.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
     )?;
@@ -151,23 +152,24 @@ pub async fn record_replacement(server: &ServerTarget, args: &ReplacementArgs, o
         .await
         .map_err(|s| explain(s, &format!("recording replacement '{id}' of vehicle '{}'", args.part.vehicle)))?
         .into_inner();
+    let part = part_word(&mut connection, &args.part).await;
     let status = if response.duplicate { "already stored, nothing changed" } else { "stored" };
     writeln!(
         out,
         "replacement '{id}' of vehicle '{}', axle {} {} at {}: {status}",
         args.part.vehicle,
         args.part.axle,
-        part_word(args.part.component),
+        part,
         when.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
     )?;
     Ok(())
 }
 
-fn part_word(part: PartArg) -> &'static str {
-    match part {
-        PartArg::Pad => "pad/lining",
-        PartArg::Rotor => "rotor/drum",
-    }
+/// The part as the trade names it on that axle (pad and rotor on a disc axle, lining and drum
+/// on a drum axle), from the vehicle's brake type.
+async fn part_word(connection: &mut Connection, part: &PartRecordArgs) -> &'static str {
+    let vehicle = connection.vehicle_if_any(&part.fleet, &part.vehicle).await;
+    part_name(part.component.component() as i32, brake_type_of(vehicle.as_ref(), part.axle))
 }
 
 #[cfg(test)]

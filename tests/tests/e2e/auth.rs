@@ -52,5 +52,6 @@ async fn calls_need_an_accepted_token_and_health_stays_open() {
     assert!(listed.contains("cannot be forecast") && listed.contains("van-1"), "{listed}");
     let refused = run(None).await.expect_err("due without a token");
     assert!(format!("{refused:#}").contains("Unauthenticated"), "{refused:#}");
+    assert!(format!("{refused:#}").contains("--token TOKEN or the BRAKELEDGER_TOKEN environment variable"), "the message names both ways: {refused:#}");
     server.stop().await;
 }

@@ -9,7 +9,7 @@ async fn upsert_then_get_a_vehicle() {
     let server = TestServer::start().await;
     let mut fleet = server.fleet();
     let mut vehicle = two_axle_vehicle("north", "van-7");
-    vehicle.vin = Some("WDB9066331S123456".into());
+    vehicle.vin = Some("ZZZEXAMPLE0000001".into());
     let created = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
     assert!(created.created);
     let again = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
