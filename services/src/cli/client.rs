@@ -79,10 +79,9 @@ impl Connection {
             None => None,
         };
         // A bare host:port (no scheme) means plain HTTP/2, as the default does.
-        let server = if server.contains("://") { server.to_owned() } else { format!("http://{server}") };
-        let server = server.as_str();
-        let endpoint = Endpoint::from_shared(server.to_owned())
-            .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051)"))?
+        let url = if server.contains("://") { server.to_owned() } else { format!("http://{server}") };
+        let endpoint = Endpoint::from_shared(url)
+            .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051 or 127.0.0.1:50051)"))?
             .connect_timeout(std::time::Duration::from_secs(10));
         let channel = endpoint
             .connect()
