@@ -15,16 +15,16 @@
 //!    *latest safe day* is `due_day − 1 − safety_margin_days`: booked no later than that, it is
 //!    replaced at least the margin before it may first reach its minimum. In order:
 //!    a. it joins a visit of the same vehicle already booked on or before its latest safe day
-//!       and at most `bundle_within_days` before it (the due-now visit of 1. included);
+//!    and at most `bundle_within_days` before it (the due-now visit of 1. included);
 //!    b. otherwise a new visit carries it and the vehicle's other unbooked parts whose latest
-//!       safe day is within `bundle_within_days` after its own (parts due after the plan ends
-//!       included: booking them now saves a second visit). The visit goes on the **latest**
-//!       day on or before the latest safe day with enough free hours: moved earlier only for
-//!       capacity. If no day has room, the latest-due members are dropped one by one (they are
-//!       planned on their own later);
+//!    safe day is within `bundle_within_days` after its own (parts due after the plan ends
+//!    included: booking them now saves a second visit). The visit goes on the **latest**
+//!    day on or before the latest safe day with enough free hours: moved earlier only for
+//!    capacity. If no day has room, the latest-due members are dropped one by one (they are
+//!    planned on their own later);
 //!    c. if the part alone finds no room on or before its latest safe day, it is booked on the
-//!       first day with room inside the margin (still strictly before `due_day`) and marked
-//!       `inside_safety_margin`; failing that it is listed as unplanned with the reason.
+//!    first day with room inside the margin (still strictly before `due_day`) and marked
+//!    `inside_safety_margin`; failing that it is listed as unplanned with the reason.
 //! 3. Parts due after the plan ends are booked only by joining a visit (2a, 2b).
 //! 4. A disc (rotor or drum) job includes the friction parts of the same axle, so a friction
 //!    job on an axle whose disc job is in the same visit costs no extra hours.
