@@ -22,6 +22,9 @@ pub enum ServiceError {
     /// forecast can be made yet).
     #[error("{0}")]
     FailedPrecondition(String),
+    /// The record's id is already stored with other values (the message names them).
+    #[error("{0}")]
+    AlreadyExists(String),
     /// The storage engine failed.
     #[error("storage: {0}")]
     Storage(#[from] StoreError),
@@ -110,6 +113,7 @@ impl ServiceError {
             }
             ServiceError::NotFound(_) => Status::not_found(message),
             ServiceError::FailedPrecondition(_) => Status::failed_precondition(message),
+            ServiceError::AlreadyExists(_) => Status::already_exists(message),
             ServiceError::Unauthenticated(_) => Status::unauthenticated(message),
             ServiceError::ShuttingDown(_) => Status::unavailable(message),
             ServiceError::Storage(StoreError::NewerSchema { .. }) | ServiceError::Storage(StoreError::Damaged(_)) => Status::failed_precondition(message),

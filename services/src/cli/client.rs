@@ -112,8 +112,10 @@ impl Connection {
             ),
             None => None,
         };
-        let mut endpoint = Endpoint::from_shared(server.to_owned())
-            .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051)"))?
+        // A bare host:port (no scheme) means plain HTTP/2, as the default does.
+        let url = if server.contains("://") { server.to_owned() } else { format!("http://{server}") };
+        let mut endpoint = Endpoint::from_shared(url)
+            .with_context(|| format!("'{server}' is not a server URL (expected e.g. http://127.0.0.1:50051 or 127.0.0.1:50051)"))?
             .connect_timeout(std::time::Duration::from_secs(10));
         if endpoint.uri().scheme_str() == Some("https") {
             let domain = endpoint.uri().host().unwrap_or("localhost").to_owned();
@@ -186,6 +188,9 @@ impl Connection {
 /// An error saying what was being done, the status code and message, and each offending field.
 pub fn explain(status: tonic::Status, doing: &str) -> anyhow::Error {
     let mut message = format!("{doing}: the server answered {:?}: {}", status.code(), status.message());
+    if status.code() == tonic::Code::Unauthenticated {
+        message.push_str("\n  this server requires a token: give it with --token TOKEN or the BRAKELEDGER_TOKEN environment variable");
+    }
     if let Some(bad_request) = status.get_details_bad_request() {
         for violation in bad_request.field_violations {
             message.push_str(&format!("\n  - {}: {}", violation.field, violation.description));

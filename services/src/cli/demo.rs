@@ -251,7 +251,7 @@ async fn show(
 
     // 3. A two-week workshop plan.
     let first_day = today;
-    let settings = PlanSettings { hours_per_day: args.hours_per_day, pad_job_hours: 0.0, rotor_job_hours: 0.0, bundle_days: 0, band_level: BAND_LEVEL };
+    let settings = PlanSettings { hours_per_day: args.hours_per_day, pad_job_hours: 0.0, rotor_job_hours: 0.0, bundle_days: 0, band_level: BAND_LEVEL, safety_margin_days: None };
     let plan = fetch_plan(connection, DEMO_FLEET, zone, first_day, PLAN_DAYS, settings).await?;
     let last_day = first_day + chrono::Duration::days(i64::from(PLAN_DAYS) - 1);
     writeln!(out, "== Workshop plan for the next two weeks ==\n")?;

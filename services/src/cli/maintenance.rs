@@ -9,7 +9,7 @@ use chrono::{DateTime, Utc};
 
 use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::dates::{parse_instant, to_timestamp};
-use crate::cli::parts::PartArg;
+use crate::cli::parts::{brake_type_of, part_name, PartArg};
 
 /// Examples of `record-inspection`.
 pub const INSPECTION_EXAMPLES: &str = "\
@@ -49,7 +49,8 @@ pub struct PartRecordArgs {
 }
 
 impl PartRecordArgs {
-    fn when(&self) -> DateTime<Utc> {
+    /// `--at`, or now.
+    pub fn when(&self) -> DateTime<Utc> {
         self.at.unwrap_or_else(Utc::now)
     }
 
@@ -87,10 +88,9 @@ pub struct ReplacementArgs {
     pub new_thickness_mm: Option<f64>,
 }
 
-/// Runs `record-inspection`.
-pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
-    let when = args.part.when();
-    let request = pb::RecordInspectionRequest {
+/// The RecordInspection request of `record-inspection`'s flags, measured at `when`.
+pub fn inspection_request(args: &InspectionArgs, when: DateTime<Utc>) -> pb::RecordInspectionRequest {
+    pb::RecordInspectionRequest {
         fleet_id: args.part.fleet.clone(),
         vehicle_id: args.part.vehicle.clone(),
         inspection_id: args.part.record_id("inspection", when),
@@ -98,7 +98,26 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
         component: args.part.component.component() as i32,
         thickness_mm: args.thickness_mm,
         measured_at: Some(to_timestamp(when)),
-    };
+    }
+}
+
+/// The RecordReplacement request of `record-replacement`'s flags, replaced at `when`.
+pub fn replacement_request(args: &ReplacementArgs, when: DateTime<Utc>) -> pb::RecordReplacementRequest {
+    pb::RecordReplacementRequest {
+        fleet_id: args.part.fleet.clone(),
+        vehicle_id: args.part.vehicle.clone(),
+        replacement_id: args.part.record_id("replacement", when),
+        axle_index: args.part.axle,
+        component: args.part.component.component() as i32,
+        new_thickness_mm: args.new_thickness_mm.unwrap_or(0.0),
+        replaced_at: Some(to_timestamp(when)),
+    }
+}
+
+/// Runs `record-inspection`.
+pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out: &mut impl Write) -> anyhow::Result<()> {
+    let when = args.part.when();
+    let request = inspection_request(args, when);
     let id = request.inspection_id.clone();
     let mut connection = Connection::open(server).await?;
     let response = connection
@@ -107,13 +126,14 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
         .await
         .map_err(|s| explain(s, &format!("recording inspection '{id}' of vehicle '{}'", args.part.vehicle)))?
         .into_inner();
+    let part = part_word(&mut connection, &args.part).await;
     let status = if response.duplicate { "already stored, nothing changed" } else { "stored" };
     writeln!(
         out,
         "inspection '{id}' of vehicle '{}', axle {} {}: {} mm at {}: {status}",
         args.part.vehicle,
         args.part.axle,
-        part_word(args.part.component),
+        part,
         args.thickness_mm,
         when.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
     )?;
@@ -123,15 +143,7 @@ pub async fn record_inspection(server: &ServerTarget, args: &InspectionArgs, out
 /// Runs `record-replacement`.
 pub async fn record_replacement(server: &ServerTarget, args: &ReplacementArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let when = args.part.when();
-    let request = pb::RecordReplacementRequest {
-        fleet_id: args.part.fleet.clone(),
-        vehicle_id: args.part.vehicle.clone(),
-        replacement_id: args.part.record_id("replacement", when),
-        axle_index: args.part.axle,
-        component: args.part.component.component() as i32,
-        new_thickness_mm: args.new_thickness_mm.unwrap_or(0.0),
-        replaced_at: Some(to_timestamp(when)),
-    };
+    let request = replacement_request(args, when);
     let id = request.replacement_id.clone();
     let mut connection = Connection::open(server).await?;
     let response = connection
@@ -140,23 +152,24 @@ pub async fn record_replacement(server: &ServerTarget, args: &ReplacementArgs, o
         .await
         .map_err(|s| explain(s, &format!("recording replacement '{id}' of vehicle '{}'", args.part.vehicle)))?
         .into_inner();
+    let part = part_word(&mut connection, &args.part).await;
     let status = if response.duplicate { "already stored, nothing changed" } else { "stored" };
     writeln!(
         out,
         "replacement '{id}' of vehicle '{}', axle {} {} at {}: {status}",
         args.part.vehicle,
         args.part.axle,
-        part_word(args.part.component),
+        part,
         when.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
     )?;
     Ok(())
 }
 
-fn part_word(part: PartArg) -> &'static str {
-    match part {
-        PartArg::Pad => "pad/lining",
-        PartArg::Rotor => "rotor/drum",
-    }
+/// The part as the trade names it on that axle (pad and rotor on a disc axle, lining and drum
+/// on a drum axle), from the vehicle's brake type.
+async fn part_word(connection: &mut Connection, part: &PartRecordArgs) -> &'static str {
+    let vehicle = connection.vehicle_if_any(&part.fleet, &part.vehicle).await;
+    part_name(part.component.component() as i32, brake_type_of(vehicle.as_ref(), part.axle))
 }
 
 #[cfg(test)]

@@ -24,10 +24,12 @@ pub mod access;
 pub mod chart;
 pub mod client;
 pub mod data_dir;
+pub mod corrections;
 pub mod dates;
 pub mod demo;
 pub mod demo_accuracy;
 pub mod demo_feed;
+pub mod fleet_view;
 pub mod forecast_view;
 pub mod maintenance;
 pub mod parts;
@@ -73,39 +75,83 @@ pub struct Cli {
     pub command: Command,
 }
 
-/// Subcommands.
+/// Subcommands. Each accepts negative numbers as option values (`--thickness-mm -3` reaches
+/// the server's validation instead of reading as an unknown flag).
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run the gRPC server.
     ///
     /// Example: brakeledger serve --data /var/lib/brakeledger --listen 127.0.0.1:50051
+    #[command(allow_negative_numbers = true)]
+    #[command(after_long_help = serve::SERVE_SETTINGS_HELP, after_help = serve::SERVE_SETTINGS_HELP)]
     Serve(ServeArgs),
     /// Send trip summaries from a CSV or JSON Lines file and print what the server made of them.
     #[command(long_about = trips::PUSH_LONG_ABOUT, after_help = format!("{}{}", trips::PUSH_EXAMPLES, trip_file::COLUMNS_HELP))]
+    #[command(allow_negative_numbers = true)]
     PushTrips(trips::PushTripsArgs),
     /// Register (or replace) a vehicle described in a JSON or TOML file.
     #[command(long_about = vehicle_file::ADD_VEHICLE_LONG_ABOUT, after_help = vehicle_file::ADD_VEHICLE_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     AddVehicle(vehicle_file::AddVehicleArgs),
+    /// Create a fleet or change its settings (time zone, name); flags left out keep their value.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    SetFleet(fleet_view::SetFleetArgs),
+    /// Show one fleet's settings and vehicle count.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    ShowFleet(fleet_view::FleetArgs),
+    /// List every fleet with its time zone and vehicle count.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    Fleets(fleet_view::FleetsArgs),
+    /// List a fleet's vehicles with their class, mass and brakes.
+    #[command(after_help = fleet_view::FLEET_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    Vehicles(fleet_view::FleetArgs),
     /// Record a measured pad, lining, rotor or drum thickness.
     #[command(after_help = maintenance::INSPECTION_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     RecordInspection(maintenance::InspectionArgs),
     /// Record that a pad, lining, rotor or drum was replaced.
     #[command(after_help = maintenance::REPLACEMENT_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     RecordReplacement(maintenance::ReplacementArgs),
+    /// Void an inspection or replacement recorded by mistake (kept on file, no longer used).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    VoidRecord(corrections::VoidArgs),
+    /// Replace a mistaken inspection by a corrected one (the original is kept on file).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    SupersedeInspection(corrections::SupersedeInspectionArgs),
+    /// Replace a mistaken replacement record by a corrected one (the original is kept on file).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    SupersedeReplacement(corrections::SupersedeReplacementArgs),
+    /// List a vehicle's inspections and replacements with their status (in force, voided, superseded).
+    #[command(after_help = corrections::CORRECTION_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
+    Records(corrections::RecordsArgs),
     /// Show one vehicle's forecast: every axle's friction part and rotor or drum.
     #[command(after_help = forecast_view::FORECAST_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Forecast(forecast_view::ForecastArgs),
     /// List the parts of a fleet due before a date, earliest first.
     #[command(after_help = forecast_view::DUE_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Due(forecast_view::DueArgs),
     /// Make a workshop plan that books parts before they are due, within a daily capacity.
     #[command(after_help = plan_view::PLAN_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Plan(plan_view::PlanArgs),
     /// Write an SVG chart of one part: measurements, forecast band and minimum thickness.
     #[command(after_help = chart::CHART_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Chart(chart::ChartArgs),
     /// Turn a speed-trace CSV into a trip summary (JSON), using the braking physics. No server.
     #[command(long_about = summarise::SUMMARISE_LONG_ABOUT, after_help = summarise::SUMMARISE_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Summarise(summarise::SummariseArgs),
     /// Create, list and revoke access tokens (each belongs to a fleet and has a role).
     #[command(subcommand, after_help = access::TOKEN_EXAMPLES)]
@@ -127,6 +173,7 @@ pub enum Command {
     VerifyBackup(data_dir::VerifyBackupArgs),
     /// Run an invented fleet through an in-process server and show every answer it gives.
     #[command(long_about = demo::DEMO_LONG_ABOUT, after_help = demo::DEMO_EXAMPLES)]
+    #[command(allow_negative_numbers = true)]
     Demo(demo::DemoArgs),
 }
 
@@ -140,11 +187,21 @@ pub async fn run(cli: Cli) -> anyhow::Result<()> {
 pub fn exit_code(outcome: anyhow::Result<()>) -> std::process::ExitCode {
     match outcome {
         Ok(()) => std::process::ExitCode::SUCCESS,
+        // The reader went away (`brakeledger due | head`): what it wanted was written.
+        Err(error) if is_broken_pipe(&error) => std::process::ExitCode::SUCCESS,
         Err(error) => {
             eprintln!("error: {error:#}");
             std::process::ExitCode::FAILURE
         }
     }
+}
+
+/// Whether an error comes from writing to a closed pipe.
+fn is_broken_pipe(error: &anyhow::Error) -> bool {
+    error.chain().any(|cause| {
+        cause.downcast_ref::<std::io::Error>().is_some_and(|e| e.kind() == std::io::ErrorKind::BrokenPipe)
+            || cause.downcast_ref::<serde_json::Error>().and_then(|e| e.io_error_kind()) == Some(std::io::ErrorKind::BrokenPipe)
+    })
 }
 
 /// Runs a parsed command line, writing the answers (tables, JSON, reports) to `out`; progress
@@ -157,8 +214,16 @@ pub async fn run_with_output(cli: Cli, out: &mut impl Write) -> anyhow::Result<(
         Command::Serve(args) => serve::serve(args, server.token).await,
         Command::PushTrips(args) => trips::push_trips(&server, &args, out).await,
         Command::AddVehicle(args) => vehicle_file::add_vehicle(&server, &args, out).await,
+        Command::SetFleet(args) => fleet_view::set_fleet(&server, &args, out).await,
+        Command::ShowFleet(args) => fleet_view::show_fleet(&server, &args, out).await,
+        Command::Fleets(args) => fleet_view::fleets(&server, &args, out).await,
+        Command::Vehicles(args) => fleet_view::vehicles(&server, &args, out).await,
         Command::RecordInspection(args) => maintenance::record_inspection(&server, &args, out).await,
         Command::RecordReplacement(args) => maintenance::record_replacement(&server, &args, out).await,
+        Command::VoidRecord(args) => corrections::void_record(&server, &args, out).await,
+        Command::SupersedeInspection(args) => corrections::supersede_inspection(&server, &args, out).await,
+        Command::SupersedeReplacement(args) => corrections::supersede_replacement(&server, &args, out).await,
+        Command::Records(args) => corrections::records(&server, &args, out).await,
         Command::Forecast(args) => forecast_view::forecast(&server, &args, out).await,
         Command::Due(args) => forecast_view::due(&server, &args, out).await,
         Command::Plan(args) => plan_view::plan(&server, &args, out).await,

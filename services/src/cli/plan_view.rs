@@ -22,10 +22,12 @@ Examples:
   brakeledger plan --fleet north --from 2025-04-07 --days 28 --hours-per-day 16 --bundle-days 21
   brakeledger plan --fleet north --pad-job-hours 2 --rotor-job-hours 4 --json
 
-Parts are taken earliest due first and booked on the first day with room that is still
-before their due date; other parts of the same vehicle due soon after ride along in the same
-visit (a rotor or drum job includes that axle's pads or linings). Dates are calendar dates in
-the fleet's time zone.";
+Parts already due (due now, or overdue) are booked first, on the first day with free hours.
+Every other part is booked as late as is safe: on or before the day that leaves
+--safety-margin-days (default 7) before the early end of its due band, earlier only when that
+day is full or to share a visit with the same vehicle's other work (a rotor or drum job
+includes that axle's pads or linings). 'gives up' is the wear life, in days, between the visit
+and the part's median due date. Dates are calendar dates in the fleet's time zone.";
 
 /// Flags of `plan`.
 #[derive(Debug, clap::Args)]
@@ -52,6 +54,10 @@ pub struct PlanArgs {
     /// (default: the server's, 14).
     #[arg(long)]
     pub bundle_days: Option<u32>,
+    /// Days kept between the visit of a part not yet due and the early end of its due band
+    /// (default: the server's, 7).
+    #[arg(long, value_parser = clap::value_parser!(u32).range(0..=366))]
+    pub safety_margin_days: Option<u32>,
     /// Band level: 0.5, 0.8, 0.9 or 0.95.
     #[arg(long, default_value_t = 0.8, value_parser = parse_band_level)]
     pub band_level: f64,
@@ -73,6 +79,8 @@ pub struct PlanSettings {
     pub bundle_days: u32,
     /// Band level.
     pub band_level: f64,
+    /// Safety margin before a part's due date, days; `None` means the server's default.
+    pub safety_margin_days: Option<u32>,
 }
 
 /// Calls PlanVisits for `days` days from `first_day` (calendar days in `zone`).
@@ -96,6 +104,7 @@ pub async fn fetch_plan(
         disc_job_hours: settings.rotor_job_hours,
         bundle_within_days: settings.bundle_days,
         band_level: settings.band_level,
+        safety_margin_days: settings.safety_margin_days,
     };
     Ok(connection
         .forecast
@@ -124,6 +133,7 @@ pub async fn plan(server: &ServerTarget, args: &PlanArgs, out: &mut impl Write) 
         rotor_job_hours: args.rotor_job_hours.unwrap_or(0.0),
         bundle_days: args.bundle_days.unwrap_or(0),
         band_level: args.band_level,
+        safety_margin_days: args.safety_margin_days,
     };
     let response = fetch_plan(&mut connection, &args.fleet, zone, first_day, args.days, settings).await?;
     let vehicles: VehicleIndex =
@@ -134,10 +144,11 @@ pub async fn plan(server: &ServerTarget, args: &PlanArgs, out: &mut impl Write) 
     } else {
         let last_day = first_day + chrono::Duration::days(i64::from(args.days) - 1);
         let heading = format!(
-            "Workshop plan for fleet {}, {first_day} to {last_day} ({}), {} h per day",
+            "Workshop plan for fleet {}, {first_day} to {last_day} ({}), {} h per day, safety margin {} day(s)",
             args.fleet,
             if response.time_zone.is_empty() { "UTC" } else { &response.time_zone },
-            number(args.hours_per_day, 1)
+            number(args.hours_per_day, 1),
+            response.safety_margin_days
         );
         write!(out, "{}", render_plan(&heading, &response, &vehicles))?;
     }
@@ -166,6 +177,14 @@ pub struct JobView {
     pub part: &'static str,
     /// Early end of the part's due band (calendar date).
     pub due_earliest_date: String,
+    /// Median due date (calendar date).
+    pub due_median_date: String,
+    /// Wear life given up by replacing the part on the visit day, days.
+    pub wear_life_given_up_days: u32,
+    /// Already due when the plan starts (due now, or overdue).
+    pub already_due: bool,
+    /// Booked inside the safety margin because every earlier day was full.
+    pub inside_safety_margin: bool,
     /// Hours booked.
     pub hours: f64,
 }
@@ -194,6 +213,8 @@ pub struct PlanView {
     pub visits: Vec<VisitView>,
     /// Parts not booked in time.
     pub unplanned: Vec<UnplannedView>,
+    /// Safety margin applied, days.
+    pub safety_margin_days: u32,
     /// The safety caution.
     pub caution: String,
 }
@@ -216,6 +237,10 @@ pub fn plan_view(response: &pb::PlanVisitsResponse, vehicles: &VehicleIndex) -> 
                         axle_index: j.axle_index,
                         part: part_name(j.component, brake_type_of(vehicles.get(&v.vehicle_id), j.axle_index)),
                         due_earliest_date: j.due_earliest_date.clone(),
+                        due_median_date: j.due_median_date.clone(),
+                        wear_life_given_up_days: j.wear_life_given_up_days,
+                        already_due: j.already_due,
+                        inside_safety_margin: j.inside_safety_margin,
                         hours: j.hours,
                     })
                     .collect(),
@@ -232,31 +257,66 @@ pub fn plan_view(response: &pb::PlanVisitsResponse, vehicles: &VehicleIndex) -> 
                 reason: u.reason.clone(),
             })
             .collect(),
+        safety_margin_days: response.safety_margin_days,
         caution: if response.caution.is_empty() { SAFETY_CAUTION.to_owned() } else { response.caution.clone() },
     }
 }
 
-/// A plan as text: heading, visits (the date shown on each day's first visit), totals, what
-/// could not be booked, the caution.
+/// A plan as text: heading, one row per job (the date on each day's first job, the vehicle on
+/// each visit's first job), totals, what could not be booked, the caution.
 pub fn render_plan(heading: &str, response: &pb::PlanVisitsResponse, vehicles: &VehicleIndex) -> String {
     let view = plan_view(response, vehicles);
     let mut text = format!("{heading}\n\n");
     if view.visits.is_empty() {
         text.push_str("No visit needed in this period.\n");
     } else {
-        let mut table = Table::new(&[("day", Align::Left), ("vehicle", Align::Left), ("jobs (part, due earliest)", Align::Left), ("hours", Align::Right)]);
+        let mut table = Table::new(&[
+            ("day", Align::Left),
+            ("vehicle", Align::Left),
+            ("axle", Align::Right),
+            ("part", Align::Left),
+            ("due earliest", Align::Left),
+            ("due median", Align::Left),
+            ("gives up (days)", Align::Right),
+            ("hours", Align::Right),
+            ("note", Align::Left),
+        ]);
         let mut previous_day = "";
         for visit in &view.visits {
-            let day = if visit.visit_date == previous_day { String::new() } else { visit.visit_date.clone() };
+            for (n, job) in visit.jobs.iter().enumerate() {
+                let day = if n > 0 || visit.visit_date == previous_day { String::new() } else { visit.visit_date.clone() };
+                let vehicle = if n == 0 { visit.vehicle_id.clone() } else { String::new() };
+                let note = if job.already_due {
+                    "already due"
+                } else if job.inside_safety_margin {
+                    "inside the safety margin: earlier days full"
+                } else {
+                    ""
+                };
+                table.row(vec![
+                    day,
+                    vehicle,
+                    job.axle_index.to_string(),
+                    job.part.to_owned(),
+                    job.due_earliest_date.clone(),
+                    job.due_median_date.clone(),
+                    job.wear_life_given_up_days.to_string(),
+                    number(job.hours, 1),
+                    note.to_owned(),
+                ]);
+            }
             previous_day = &visit.visit_date;
-            let jobs: Vec<String> = visit.jobs.iter().map(|j| format!("axle {} {} ({})", j.axle_index, j.part, j.due_earliest_date)).collect();
-            table.row(vec![day, visit.vehicle_id.clone(), jobs.join(", "), number(visit.hours, 1)]);
         }
         text.push_str(&table.render());
         let jobs: usize = view.visits.iter().map(|v| v.jobs.len()).sum();
         let hours: f64 = view.visits.iter().map(|v| v.hours).sum();
+        let given_up: u64 = view.visits.iter().flat_map(|v| &v.jobs).map(|j| u64::from(j.wear_life_given_up_days)).sum();
         let days = view.visits.iter().map(|v| v.visit_date.as_str()).collect::<std::collections::BTreeSet<_>>().len();
-        text.push_str(&format!("\n{} visit(s) on {days} day(s): {jobs} job(s), {} workshop hours.\n", view.visits.len(), number(hours, 1)));
+        text.push_str(&format!(
+            "\n{} visit(s) on {days} day(s): {jobs} job(s), {} workshop hours, {given_up} day(s) of wear life given up in all.\n",
+            view.visits.len(),
+            number(hours, 1)
+        ));
     }
     if !view.unplanned.is_empty() {
         text.push_str(&format!("\n{} part(s) could not be booked before they are due:\n\n", view.unplanned.len()));
@@ -282,43 +342,66 @@ pub fn render_plan(heading: &str, response: &pb::PlanVisitsResponse, vehicles: &
 mod tests {
     use super::*;
 
-    fn job(axle: u32, component: pb::Component, due: &str, hours: f64) -> pb::PlannedJob {
-        pb::PlannedJob { axle_index: axle, component: component as i32, due_earliest_date: due.into(), hours, ..Default::default() }
+    fn job(axle: u32, component: pb::Component, due: &str, median: &str, given_up: u32, hours: f64) -> pb::PlannedJob {
+        pb::PlannedJob {
+            axle_index: axle,
+            component: component as i32,
+            due_earliest_date: due.into(),
+            due_median_date: median.into(),
+            wear_life_given_up_days: given_up,
+            hours,
+            ..Default::default()
+        }
+    }
+
+    /// A vehicle with discs on axle 1 and drums on axle 2.
+    fn vehicle(id: &str) -> (String, pb::Vehicle) {
+        let axle = |index: u32, brake: pb::BrakeType| pb::AxleBrake { axle_index: index, brake_type: brake as i32, ..Default::default() };
+        (id.to_owned(), pb::Vehicle { vehicle_id: id.into(), axles: vec![axle(1, pb::BrakeType::Disc), axle(2, pb::BrakeType::Drum)], ..Default::default() })
     }
 
     #[test]
-    fn visits_are_grouped_by_day_with_totals_and_unbooked_parts() {
+    fn one_row_per_job_with_the_wear_life_given_up_totals_and_unbooked_parts() {
+        let due_now = pb::PlannedJob { already_due: true, ..job(1, pb::Component::Friction, "2025-03-01", "2025-03-01", 0, 1.5) };
         let response = pb::PlanVisitsResponse {
             visits: vec![
                 pb::Visit {
                     vehicle_id: "bus-17".into(),
                     visit_date: "2025-03-03".into(),
-                    jobs: vec![job(1, pb::Component::Friction, "2025-03-05", 1.5), job(2, pb::Component::Disc, "2025-03-12", 3.0)],
+                    jobs: vec![due_now, job(2, pb::Component::Disc, "2025-03-12", "2025-03-30", 27, 3.0)],
                     hours: 4.5,
                 },
-                pb::Visit { vehicle_id: "van-2".into(), visit_date: "2025-03-03".into(), jobs: vec![job(1, pb::Component::Friction, "2025-03-04", 1.5)], hours: 1.5 },
-                pb::Visit { vehicle_id: "van-9".into(), visit_date: "2025-03-04".into(), jobs: vec![job(1, pb::Component::Friction, "2025-03-06", 1.5)], hours: 1.5 },
+                pb::Visit { vehicle_id: "van-2".into(), visit_date: "2025-03-03".into(), jobs: vec![job(1, pb::Component::Friction, "2025-03-11", "2025-03-20", 17, 1.5)], hours: 1.5 },
+                pb::Visit {
+                    vehicle_id: "van-9".into(),
+                    visit_date: "2025-03-04".into(),
+                    jobs: vec![pb::PlannedJob { inside_safety_margin: true, ..job(1, pb::Component::Friction, "2025-03-06", "2025-03-09", 5, 1.5) }],
+                    hours: 1.5,
+                },
             ],
             unplanned: vec![pb::UnplannedPart {
-                vehicle_id: "van-4".into(),
-                axle_index: 1,
+                vehicle_id: "bus-17".into(),
+                axle_index: 2,
                 component: pb::Component::Friction as i32,
                 due_earliest_date: "2025-03-01".into(),
-                reason: "already due before the plan starts".into(),
+                reason: "already due, and every workshop day of the plan is full".into(),
                 ..Default::default()
             }],
             time_zone: "UTC".into(),
             caution: String::new(),
+            safety_margin_days: 7,
         };
-        let text = render_plan("Workshop plan", &response, &VehicleIndex::new());
+        let vehicles: VehicleIndex = ["bus-17", "van-2", "van-9"].into_iter().map(vehicle).collect();
+        let text = render_plan("Workshop plan", &response, &vehicles);
         let lines: Vec<&str> = text.lines().collect();
-        assert_eq!(lines[2], "day         vehicle  jobs (part, due earliest)                                       hours");
-        assert_eq!(lines[4], "2025-03-03  bus-17   axle 1 pad/lining (2025-03-05), axle 2 rotor/drum (2025-03-12)    4.5");
-        assert!(lines[5].starts_with("            van-2"), "same day: the date is not repeated: {text}");
-        assert!(lines[6].starts_with("2025-03-04  van-9"), "{text}");
-        assert!(text.contains("3 visit(s) on 2 day(s): 4 job(s), 7.5 workshop hours."), "{text}");
+        assert!(lines[2].starts_with("day         vehicle  axle  part  due earliest  due median  gives up (days)  hours  note"), "{text}");
+        assert_eq!(lines[4], "2025-03-03  bus-17      1  pad   2025-03-01    2025-03-01                0    1.5  already due");
+        assert_eq!(lines[5], "                        2  drum  2025-03-12    2025-03-30               27    3.0", "{text}");
+        assert!(lines[6].starts_with("            van-2       1  pad"), "same day: the date is not repeated: {text}");
+        assert!(lines[7].starts_with("2025-03-04  van-9") && lines[7].ends_with("inside the safety margin: earlier days full"), "{text}");
+        assert!(text.contains("3 visit(s) on 2 day(s): 4 job(s), 7.5 workshop hours, 49 day(s) of wear life given up in all."), "{text}");
         assert!(text.contains("1 part(s) could not be booked before they are due:"), "{text}");
-        assert!(text.contains("van-4       1  pad/lining  2025-03-01    already due before the plan starts"), "{text}");
+        assert!(text.contains("bus-17      2  lining  2025-03-01    already due"), "{text}");
         assert!(text.trim_end().ends_with(SAFETY_CAUTION), "a plan without a server caution still carries ours");
     }
 }

@@ -11,6 +11,47 @@ use crate::server;
 use crate::state::AppState;
 use crate::store::sled_store::{SledStore, StoreOptions};
 
+/// Every server setting beyond the flags, for `serve --help`.
+pub const SERVE_SETTINGS_HELP: &str = "\
+Settings, layered once at start-up: defaults, then the --config TOML file, then environment
+variables, then the flags above.
+
+  TOML key (section)            environment          default
+  listen                        BRAKELEDGER_LISTEN   127.0.0.1:50051
+  data_dir                      BRAKELEDGER_DATA     ./brakeledger-data
+  log_format                    (--json-logs)        text (or json)
+  log_filter                    BRAKELEDGER_LOG      info (tracing env-filter syntax)
+  auth_tokens                   BRAKELEDGER_TOKENS   none: no token needed
+
+Tokens: with auth_tokens = [\"token-a\", \"token-b\"] in the file, or
+BRAKELEDGER_TOKENS=token-a,token-b (preferred: from a secret store), every brakeledger.v1 call
+must carry `authorization: Bearer <token>`; clients pass it with --token or BRAKELEDGER_TOKEN.
+Health and reflection stay open.
+
+  [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, batch_vehicles
+  [ingest]    chunk_trips, max_listed_rejections, max_rejection_groups, ack_delay_ms
+  [http2]     stream_window_bytes, connection_window_bytes, max_concurrent_streams
+  [shutdown]  drain_deadline_ms
+  [storage]   cache_capacity_bytes, min_free_bytes, space_check_interval_ms,
+              change_feed_capacity, watch_queue_events
+  [integrity] on_mismatch
+
+deploy/brakeledger.toml is a commented example.";
+
+/// What to say when the database cannot be opened: a data directory locked by another
+/// process is named as such (sled holds an exclusive lock on it while open).
+fn open_failure(error: crate::store::StoreError, dir: &std::path::Path) -> anyhow::Error {
+    let text = error.to_string();
+    if text.contains("could not acquire lock") || text.contains("WouldBlock") {
+        anyhow::anyhow!(
+            "the data directory {} is in use by another brakeledger server (or another process holding its database); stop that server or give another --data",
+            dir.display()
+        )
+    } else {
+        anyhow::Error::new(error).context(format!("opening the database in {}", dir.display()))
+    }
+}
+
 /// Sets up `tracing` output once for the process.
 pub fn init_logging(format: LogFormat, filter: &str) {
     let filter = tracing_subscriber::EnvFilter::try_new(filter).unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info"));
@@ -125,7 +166,7 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     let options = StoreOptions { on_mismatch: settings.integrity.on_mismatch, ..StoreOptions::from(&settings.storage) };
     let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
         .await?
-        .with_context(|| format!("opening the database in {}", settings.data_dir.display()))?;
+        .map_err(|e| open_failure(e, &settings.data_dir))?;
     let store: Arc<dyn crate::store::Store> = Arc::new(store);
     let access = crate::auth::bootstrap::set_up(&settings.auth, settings.listen, Arc::clone(&store), client_token.as_deref(), crate::convert::now_ms())?;
     if let Some(warning) = &access.warning {

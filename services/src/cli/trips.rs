@@ -119,6 +119,10 @@ pub async fn push_trips(server: &ServerTarget, args: &PushTripsArgs, out: &mut i
     } else {
         write!(out, "{}", render_report(&report))?;
     }
+    if report.refused > 0 {
+        // The report above says which; the exit status tells scripts that not everything landed.
+        anyhow::bail!("the server refused {} of {} trip(s); the others were stored", report.refused, report.sent);
+    }
     Ok(())
 }
 

@@ -224,13 +224,13 @@ mod tests {
     fn json_lists_and_fleet_flag() {
         let text = r#"{"vehicles": [
             {"vehicle_id": "v1", "mass_kg": 3500, "axles": [{"brake_type": "disc", "energy_share": 1, "friction_new_mm": 12, "friction_min_mm": 2, "disc_new_mm": 28, "disc_min_mm": 26}]},
-            {"fleet_id": "east", "vehicle_id": "v2", "vin": "WDB9066331S123456", "mass_kg": 3500, "axles": []}
+            {"fleet_id": "east", "vehicle_id": "v2", "vin": "ZZZEXAMPLE0000001", "mass_kg": 3500, "axles": []}
         ]}"#;
         let entries = parse_vehicles(Path::new("v.json"), text).expect("parses");
         let wire: Vec<pb::Vehicle> = entries.into_iter().map(|e| e.into_wire(Some("west")).expect("fleet")).collect();
         assert_eq!(wire[0].fleet_id, "west");
         assert_eq!(wire[1].fleet_id, "east", "the file's fleet wins over --fleet");
-        assert_eq!(wire[1].vin.as_deref(), Some("WDB9066331S123456"));
+        assert_eq!(wire[1].vin.as_deref(), Some("ZZZEXAMPLE0000001"));
     }
 
     #[test]

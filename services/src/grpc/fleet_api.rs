@@ -120,4 +120,28 @@ impl FleetService for FleetApi {
             next_page_token,
         }))
     }
+
+    async fn list_fleets(&self, request: Request<pb::ListFleetsRequest>) -> Result<Response<pb::ListFleetsResponse>, Status> {
+        // Operators see every fleet; a fleet token sees its own fleet, when it may read it.
+        let caller = Caller::of(&request)?;
+        let fleets = self
+            .state
+            .blocking(move |store| {
+                let mut fleets = Vec::new();
+                for fleet_id in store.list_fleet_ids()? {
+                    if !caller.may(&fleet_id, Permission::ReadFleet) {
+                        continue;
+                    }
+                    let stored = store.get_fleet(&fleet_id)?;
+                    fleets.push(pb::FleetSummary {
+                        set_up: stored.is_some(),
+                        vehicle_count: store.count_vehicles(&fleet_id)?,
+                        fleet: Some(stored.unwrap_or_else(|| FleetRecord::default_for(&fleet_id)).into()),
+                    });
+                }
+                Ok(fleets)
+            })
+            .await?;
+        Ok(Response::new(pb::ListFleetsResponse { fleets }))
+    }
 }

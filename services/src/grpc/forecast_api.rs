@@ -4,20 +4,21 @@
 use std::pin::Pin;
 
 use brakeledger_models::domain::{BrakeType, Component};
-use brakeledger_models::visit_plan::{plan_visits, PlanLimits, PlanPart};
+use brakeledger_models::visit_plan::{PlanLimits, DEFAULT_SAFETY_MARGIN_DAYS};
 use brakeledger_proto::v1 as pb;
 use pb::forecast_service_server::ForecastService;
 use tokio_stream::Stream;
 use tonic::{Request, Response, Status};
 
 use crate::auth::{Caller, Permission};
-use crate::convert::{check_id, component_from_wire, component_to_wire, ms_timestamp, now_ms, require_ids};
+use crate::convert::{check_id, component_from_wire, ms_timestamp, now_ms, require_ids};
 use crate::error::{ServiceError, ServiceResult};
 use crate::forecaster::{materialise, vehicle_forecast_now};
 use crate::grpc::due_queries::{due_parts, known_fleet, scan_due_filtered, undated_parts};
 use crate::grpc::due_watch;
 use crate::grpc::forecast_views::{band_level, fleet_zone, indexed_band_level, local_date, local_day_number, part_forecast, required_time};
 use crate::grpc::paging::{decode_token, encode_token, page_size};
+use crate::grpc::visit_plans::{plan_for_due_parts, JobHours};
 use crate::grpc::part_cycles::readings_by_cycle;
 use crate::state::AppState;
 use crate::store::{days_to_ms, DueCursor, MS_PER_DAY};
@@ -271,6 +272,9 @@ impl ForecastService for ForecastApi {
                 violations.push(brakeledger_models::domain::FieldViolation::new("to", "a plan covers at most 366 days"));
             }
         }
+        if r.safety_margin_days.is_some_and(|days| days > 366) {
+            violations.push(brakeledger_models::domain::FieldViolation::new("safety_margin_days", "must be at most 366 days"));
+        }
         let level = match indexed_band_level("band_level", r.band_level) {
             Ok(level) => Some(level),
             Err(ServiceError::InvalidArgument(mut more)) => {
@@ -285,6 +289,7 @@ impl ForecastService for ForecastApi {
         let friction_hours = if r.friction_job_hours == 0.0 { 1.5 } else { r.friction_job_hours };
         let disc_hours = if r.disc_job_hours == 0.0 { 3.0 } else { r.disc_job_hours };
         let bundle_days = if r.bundle_within_days == 0 { 14 } else { i64::from(r.bundle_within_days.min(366)) };
+        let margin_days = r.safety_margin_days.map_or(DEFAULT_SAFETY_MARGIN_DAYS, i64::from);
         let capacity = r.capacity_hours_per_day;
         let fleet_id = r.fleet_id.clone();
         let now = now_ms();
@@ -301,68 +306,16 @@ impl ForecastService for ForecastApi {
             })
             .await?;
         let zone = fleet_zone(&fleet);
-        // Parts with a due date, each beside its planner input (same index).
-        let (booked_parts, plan_parts): (Vec<&pb::DuePart>, Vec<PlanPart>) = parts
-            .iter()
-            .filter_map(|due| {
-                let part = due.part.as_ref()?;
-                let earliest = part.due_earliest.as_ref().and_then(crate::convert::timestamp_ms)?;
-                let component = component_from_wire("component", part.component).ok()?;
-                let hours = match component {
-                    Component::Friction => friction_hours,
-                    Component::Disc => disc_hours,
-                };
-                Some((due, PlanPart { vehicle_id: due.vehicle_id.clone(), axle_index: part.axle_index, component, due_day: local_day_number(earliest, zone), hours }))
-            })
-            .unzip();
+        let job_hours = JobHours { friction: friction_hours, disc: disc_hours };
         let limits = PlanLimits {
             from_day: local_day_number(from_ms, zone),
             to_day: local_day_number(to_ms, zone),
             capacity_hours_per_day: capacity,
             bundle_within_days: bundle_days,
+            safety_margin_days: margin_days,
         };
-        let plan = plan_visits(&plan_parts, &limits);
-        let epoch = chrono::NaiveDate::from_ymd_opt(1970, 1, 1).unwrap_or_default();
-        let day_text = |day: i64| (epoch + chrono::Duration::days(day)).to_string();
-        let find = |i: usize| (booked_parts[i], booked_parts[i].part.as_ref());
-        let visits = plan
-            .visits
-            .iter()
-            .map(|visit| pb::Visit {
-                vehicle_id: visit.vehicle_id.clone(),
-                visit_date: day_text(visit.day),
-                hours: visit.hours(),
-                jobs: visit
-                    .jobs
-                    .iter()
-                    .map(|(i, hours)| {
-                        let (_, part) = find(*i);
-                        pb::PlannedJob {
-                            axle_index: plan_parts[*i].axle_index,
-                            component: component_to_wire(plan_parts[*i].component) as i32,
-                            due_earliest: part.and_then(|p| p.due_earliest),
-                            due_earliest_date: part.map(|p| p.due_earliest_date.clone()).unwrap_or_default(),
-                            hours: *hours,
-                        }
-                    })
-                    .collect(),
-            })
-            .collect();
-        let unplanned = plan
-            .unplanned
-            .iter()
-            .map(|(i, reason)| {
-                let (due, part) = find(*i);
-                pb::UnplannedPart {
-                    vehicle_id: due.vehicle_id.clone(),
-                    axle_index: plan_parts[*i].axle_index,
-                    component: component_to_wire(plan_parts[*i].component) as i32,
-                    due_earliest: part.and_then(|p| p.due_earliest),
-                    due_earliest_date: part.map(|p| p.due_earliest_date.clone()).unwrap_or_default(),
-                    reason: reason.describe().to_owned(),
-                }
-            })
-            .collect();
-        Ok(Response::new(pb::PlanVisitsResponse { visits, unplanned, time_zone: fleet.time_zone, caution: crate::SAFETY_CAUTION.to_owned() }))
+        let mut response = plan_for_due_parts(&parts, job_hours, &limits, zone);
+        response.time_zone = fleet.time_zone;
+        Ok(Response::new(response))
     }
 }

@@ -13,4 +13,6 @@ pub mod maintenance_api;
 pub mod paging;
 pub mod part_cycles;
 pub mod refusals;
+pub mod service_records;
 pub mod telemetry_api;
+pub mod visit_plans;

@@ -13,7 +13,8 @@
 //! | `trips` | fleet 0 vehicle 0 end_ms trip | [`TripRecord`](super::TripRecord) |
 //! | `trip_ids` | fleet 0 vehicle 0 trip | end_ms |
 //! | `daily` | fleet 0 vehicle 0 day | [`DailyEnergy`](super::DailyEnergy) |
-//! | `inspections`, `replacements` | fleet 0 vehicle 0 id | record |
+//! | `inspections`, `replacements` | fleet 0 vehicle 0 id | record (kept when voided or superseded) |
+//! | `corrections` | fleet 0 vehicle 0 kind id (kind `i` inspection, `r` replacement) | [`CorrectionRecord`](super::CorrectionRecord) |
 //! | `forecasts` | fleet 0 vehicle | [`VehicleForecasts`](super::VehicleForecasts) |
 //! | `due_index` | fleet 0 level due_ms vehicle 0 axle component | empty |
 //! | `stale` | fleet 0 vehicle | generation |

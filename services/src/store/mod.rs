@@ -77,6 +77,8 @@ pub trait Store: Send + Sync + 'static {
     fn upsert_fleet(&self, fleet: &FleetRecord) -> StoreResult<bool>;
     /// Reads a fleet's settings.
     fn get_fleet(&self, fleet_id: &str) -> StoreResult<Option<FleetRecord>>;
+    /// Every fleet id, in order: fleets set up and fleets holding vehicles.
+    fn list_fleet_ids(&self) -> StoreResult<Vec<String>>;
     /// Creates or replaces a vehicle; returns true when it is new. Marks its forecasts stale.
     fn upsert_vehicle(&self, vehicle: &VehicleRecord) -> StoreResult<bool>;
     /// Reads one vehicle.
@@ -91,13 +93,21 @@ pub trait Store: Send + Sync + 'static {
     /// be validated. Updates per-vehicle totals and the daily per-axle roll-up, and marks the
     /// vehicles' forecasts stale.
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>>;
-    /// Stores an inspection durably; returns false when its id was already stored.
-    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool>;
-    /// Stores a replacement durably; returns false when its id was already stored.
-    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool>;
+    /// Stores an inspection durably and marks the vehicle stale, unless its id is already
+    /// stored (with the same values: `Duplicate`; with others: `Differs`, nothing changed).
+    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>>;
+    /// Stores a replacement durably, as [`Store::record_inspection`].
+    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<InsertOutcome<ReplacementRecord>>;
+    /// Voids (`superseding` = `None`) or supersedes a stored inspection or replacement, in one
+    /// durable transaction that also stores the superseding record and marks the vehicle stale.
+    fn correct_record(&self, correction: &CorrectionRecord, superseding: Option<&ServiceEntry>) -> StoreResult<CorrectionOutcome>;
+    /// Every inspection and replacement of one vehicle, voided and superseded ones included,
+    /// with the corrections.
+    fn service_records(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceRecords>;
     /// The daily roll-up of one vehicle, oldest day first.
     fn daily_energy(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<DailyEnergy>>;
-    /// Inspections and replacements of one vehicle, each sorted by time.
+    /// Inspections and replacements of one vehicle in force (neither voided nor superseded),
+    /// each sorted by time.
     fn service_history(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceHistory>;
     /// Replaces the materialised forecasts of one vehicle and their due-index entries.
     fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()>;

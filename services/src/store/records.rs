@@ -139,6 +139,114 @@ pub struct ReplacementRecord {
     pub replaced_at_ms: i64,
 }
 
+/// Which kind of workshop record.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+pub enum RecordKind {
+    /// An inspection.
+    Inspection,
+    /// A replacement.
+    Replacement,
+}
+
+impl RecordKind {
+    /// Plain word for messages.
+    pub fn word(self) -> &'static str {
+        match self {
+            RecordKind::Inspection => "inspection",
+            RecordKind::Replacement => "replacement",
+        }
+    }
+}
+
+/// An inspection or a replacement.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ServiceEntry {
+    /// An inspection.
+    Inspection(InspectionRecord),
+    /// A replacement.
+    Replacement(ReplacementRecord),
+}
+
+impl ServiceEntry {
+    /// Its kind.
+    pub fn kind(&self) -> RecordKind {
+        match self {
+            ServiceEntry::Inspection(_) => RecordKind::Inspection,
+            ServiceEntry::Replacement(_) => RecordKind::Replacement,
+        }
+    }
+
+    /// Its inspection_id or replacement_id.
+    pub fn record_id(&self) -> &str {
+        match self {
+            ServiceEntry::Inspection(i) => &i.inspection_id,
+            ServiceEntry::Replacement(r) => &r.replacement_id,
+        }
+    }
+}
+
+/// A voided or superseded workshop record: the record itself is kept unchanged; this note,
+/// keyed by its kind and id, takes it out of the forecasts.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CorrectionRecord {
+    /// Fleet identifier.
+    pub fleet_id: String,
+    /// Vehicle identifier.
+    pub vehicle_id: String,
+    /// Kind of the record corrected.
+    pub kind: RecordKind,
+    /// Id of the record corrected.
+    pub record_id: String,
+    /// Why, in plain words.
+    pub reason: String,
+    /// When the correction was stored, ms.
+    pub corrected_at_ms: i64,
+    /// The id of the record that supersedes it (same kind); `None` when voided.
+    pub superseded_by: Option<String>,
+}
+
+impl CorrectionRecord {
+    /// The same correction, ignoring when it was made (a repeated request is a duplicate).
+    pub fn same_as(&self, other: &CorrectionRecord) -> bool {
+        (&self.kind, &self.record_id, &self.reason, &self.superseded_by) == (&other.kind, &other.record_id, &other.reason, &other.superseded_by)
+    }
+}
+
+/// What storing a record with an idempotency key did.
+#[derive(Debug, Clone, PartialEq)]
+pub enum InsertOutcome<T> {
+    /// Stored now.
+    Stored,
+    /// The id was already stored with the same values; nothing changed.
+    Duplicate,
+    /// The id was already stored with other values (returned); nothing changed.
+    Differs(T),
+}
+
+/// What a correction did.
+#[derive(Debug, Clone, PartialEq)]
+pub enum CorrectionOutcome {
+    /// Stored now (with the superseding record, if any).
+    Stored,
+    /// The same correction was already stored; nothing changed.
+    Duplicate,
+    /// No record of that kind and id exists for the vehicle.
+    NoSuchRecord,
+    /// The record was already voided or superseded otherwise (the stored correction).
+    AlreadyCorrected(CorrectionRecord),
+    /// The superseding record's id is already taken by another record.
+    IdTaken,
+}
+
+/// Every inspection and replacement of one vehicle, in force or not, with the corrections.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ServiceRecords {
+    /// Every record, in force or not, each list sorted by time.
+    pub all: ServiceHistory,
+    /// The corrections of the vehicle's records.
+    pub corrections: Vec<CorrectionRecord>,
+}
+
 /// Inspections and replacements of one vehicle, each sorted by time.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct ServiceHistory {

@@ -13,6 +13,7 @@ use sled::transaction::{ConflictableTransactionError, TransactionError, Transact
 use sled::Transactional;
 
 use super::ledger::{RecordKind, Tallies};
+use super::records::RecordKind as ServiceKind;
 use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, vehicle_key, vehicle_prefix};
 use super::*;
 
@@ -25,11 +26,11 @@ use super::*;
 pub const SCHEMA_VERSION: u32 = 3;
 
 /// Trees whose values are postcard records carrying a checksum.
-const CHECKSUMMED_TREES: [&str; 11] = ["fleets", "vehicles", "totals", "trips", "daily", "inspections", "replacements", "forecasts", "priors", "tokens", "audit"];
+const CHECKSUMMED_TREES: [&str; 12] = ["fleets", "vehicles", "totals", "trips", "daily", "inspections", "replacements", "corrections", "forecasts", "priors", "tokens", "audit"];
 
 /// Trees a backup carries: the records; forecasts, the due index, priors and stale marks are
 /// derived from them and recomputed after a restore.
-pub const RECORD_TREES: [&str; 10] = ["fleets", "vehicles", "totals", "trips", "trip_ids", "daily", "inspections", "replacements", "tokens", "audit"];
+pub const RECORD_TREES: [&str; 11] = ["fleets", "vehicles", "totals", "trips", "trip_ids", "daily", "inspections", "replacements", "corrections", "tokens", "audit"];
 const SCHEMA_KEY: &[u8] = b"schema_version";
 
 impl From<sled::Error> for StoreError {
@@ -112,6 +113,7 @@ pub struct Engine {
     daily: sled::Tree,
     inspections: sled::Tree,
     replacements: sled::Tree,
+    corrections: sled::Tree,
     forecasts: sled::Tree,
     due_index: sled::Tree,
     stale: sled::Tree,
@@ -233,6 +235,7 @@ impl Engine {
             daily: db.open_tree("daily")?,
             inspections: db.open_tree("inspections")?,
             replacements: db.open_tree("replacements")?,
+            corrections: db.open_tree("corrections")?,
             forecasts: db.open_tree("forecasts")?,
             due_index: db.open_tree("due_index")?,
             stale: db.open_tree("stale")?,
@@ -258,24 +261,97 @@ impl Engine {
         tree.scan_prefix(prefix).values().map(|bytes| decode(&bytes?)).collect()
     }
 
-    /// Stores a record under an idempotency key; false when the key existed.
-    fn insert_once<T: Serialize>(&self, tree: &sled::Tree, key: Vec<u8>, value: &T, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+    /// Stores a record under an idempotency key, unless the key exists (with the same value:
+    /// `Duplicate`; with another: `Differs` carrying the stored one).
+    fn insert_once<T: Serialize + DeserializeOwned + PartialEq>(
+        &self,
+        tree: &sled::Tree,
+        key: Vec<u8>,
+        value: &T,
+        fleet_id: &str,
+        vehicle_id: &str,
+    ) -> StoreResult<InsertOutcome<T>> {
         let bytes = encode(value)?;
         let stale_key = vehicle_key(fleet_id, vehicle_id);
-        let inserted = (tree, &self.stale).transaction(|(records, stale)| {
-            if records.get(&key)?.is_some() {
-                return Ok(false);
+        let outcome = (tree, &self.stale).transaction(|(records, stale)| {
+            if let Some(stored) = tx_get::<T>(records, &key)? {
+                return Ok(if &stored == value { InsertOutcome::Duplicate } else { InsertOutcome::Differs(stored) });
             }
             records.insert(key.as_slice(), bytes.as_slice())?;
             stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-            Ok(true)
+            Ok(InsertOutcome::Stored)
         });
-        let inserted = inserted.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
-        if inserted {
+        let outcome = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        if outcome == InsertOutcome::Stored {
             self.db.flush()?;
         }
-        Ok(inserted)
+        Ok(outcome)
     }
+
+    /// See [`Store`].
+    pub fn correct_record(&self, correction: &CorrectionRecord, superseding: Option<&ServiceEntry>) -> StoreResult<CorrectionOutcome> {
+        let (fleet_id, vehicle_id) = (&correction.fleet_id, &correction.vehicle_id);
+        let record_key = child_key(fleet_id, vehicle_id, &correction.record_id);
+        let correction_key = correction_key(fleet_id, vehicle_id, correction.kind, &correction.record_id);
+        let correction_bytes = encode(correction)?;
+        let superseding_bytes = match superseding {
+            Some(ServiceEntry::Inspection(i)) => Some(encode(i)?),
+            Some(ServiceEntry::Replacement(r)) => Some(encode(r)?),
+            None => None,
+        };
+        let superseding_key = superseding.map(|s| child_key(fleet_id, vehicle_id, s.record_id()));
+        let stale_key = vehicle_key(fleet_id, vehicle_id);
+        let outcome = (&self.inspections, &self.replacements, &self.corrections, &self.stale).transaction(
+            |(inspections, replacements, corrections, stale)| {
+                let records = match correction.kind {
+                    ServiceKind::Inspection => inspections,
+                    ServiceKind::Replacement => replacements,
+                };
+                if records.get(&record_key)?.is_none() {
+                    return Ok(CorrectionOutcome::NoSuchRecord);
+                }
+                if let Some(stored) = tx_get::<CorrectionRecord>(corrections, &correction_key)? {
+                    return Ok(if stored.same_as(correction) { CorrectionOutcome::Duplicate } else { CorrectionOutcome::AlreadyCorrected(stored) });
+                }
+                if let (Some(key), Some(bytes)) = (&superseding_key, &superseding_bytes) {
+                    if records.get(key)?.is_some() {
+                        return Ok(CorrectionOutcome::IdTaken);
+                    }
+                    records.insert(key.as_slice(), bytes.as_slice())?;
+                }
+                corrections.insert(correction_key.as_slice(), correction_bytes.as_slice())?;
+                stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
+                Ok(CorrectionOutcome::Stored)
+            },
+        );
+        let outcome = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        if outcome == CorrectionOutcome::Stored {
+            self.db.flush()?;
+        }
+        Ok(outcome)
+    }
+
+    /// See [`Store`].
+    pub fn service_records(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceRecords> {
+        let prefix = vehicle_prefix(fleet_id, vehicle_id);
+        let mut inspections: Vec<InspectionRecord> = Self::scan_values(&self.inspections, &prefix)?;
+        let mut replacements: Vec<ReplacementRecord> = Self::scan_values(&self.replacements, &prefix)?;
+        inspections.sort_by(|a, b| (a.measured_at_ms, &a.inspection_id).cmp(&(b.measured_at_ms, &b.inspection_id)));
+        replacements.sort_by(|a, b| (a.replaced_at_ms, &a.replacement_id).cmp(&(b.replaced_at_ms, &b.replacement_id)));
+        let corrections = Self::scan_values(&self.corrections, &prefix)?;
+        Ok(ServiceRecords { all: ServiceHistory { inspections, replacements }, corrections })
+    }
+}
+
+/// `fleet 0 vehicle 0 kind id` in the corrections tree (kind: `i` or `r`).
+fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, record_id: &str) -> Vec<u8> {
+    let mut key = vehicle_prefix(fleet_id, vehicle_id);
+    key.push(match kind {
+        ServiceKind::Inspection => b'i',
+        ServiceKind::Replacement => b'r',
+    });
+    key.extend_from_slice(record_id.as_bytes());
+    key
 }
 
 /// Per-vehicle total changes gathered while ingesting a batch.
@@ -338,6 +414,24 @@ impl Engine {
             .take(limit)
             .map(|bytes| decode(&bytes?))
             .collect()
+    }
+
+    /// See [`Store`]: the fleets tree, plus the fleet part of the vehicles' keys (one seek per
+    /// fleet, past all its vehicles).
+    pub fn list_fleet_ids(&self) -> StoreResult<Vec<String>> {
+        let decode_id = |bytes: &[u8]| String::from_utf8(bytes.to_vec()).map_err(|_| StoreError::Corrupt("fleet id".into()));
+        let mut ids = std::collections::BTreeSet::new();
+        for key in self.fleets.iter().keys() {
+            ids.insert(decode_id(&key?)?);
+        }
+        let mut next = self.vehicles.iter().next();
+        while let Some(entry) = next {
+            let (key, _) = entry?;
+            let fleet = key.split(|b| *b == keys::SEP).next().unwrap_or_default();
+            ids.insert(decode_id(fleet)?);
+            next = self.vehicles.range(prefix_end(&fleet_prefix(&decode_id(fleet)?))..).next();
+        }
+        Ok(ids.into_iter().collect())
     }
 
     /// See [`Store`].
@@ -412,13 +506,13 @@ impl Engine {
     }
 
     /// See [`Store`].
-    pub fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool> {
+    pub fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>> {
         let key = child_key(&inspection.fleet_id, &inspection.vehicle_id, &inspection.inspection_id);
         self.insert_once(&self.inspections, key, inspection, &inspection.fleet_id, &inspection.vehicle_id)
     }
 
     /// See [`Store`].
-    pub fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool> {
+    pub fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<InsertOutcome<ReplacementRecord>> {
         let key = child_key(&replacement.fleet_id, &replacement.vehicle_id, &replacement.replacement_id);
         self.insert_once(&self.replacements, key, replacement, &replacement.fleet_id, &replacement.vehicle_id)
     }
@@ -428,14 +522,14 @@ impl Engine {
         Self::scan_values(&self.daily, &vehicle_prefix(fleet_id, vehicle_id))
     }
 
-    /// See [`Store`].
+    /// See [`Store`]: the records in force, neither voided nor superseded.
     pub fn service_history(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceHistory> {
-        let prefix = vehicle_prefix(fleet_id, vehicle_id);
-        let mut inspections: Vec<InspectionRecord> = Self::scan_values(&self.inspections, &prefix)?;
-        let mut replacements: Vec<ReplacementRecord> = Self::scan_values(&self.replacements, &prefix)?;
-        inspections.sort_by(|a, b| (a.measured_at_ms, &a.inspection_id).cmp(&(b.measured_at_ms, &b.inspection_id)));
-        replacements.sort_by(|a, b| (a.replaced_at_ms, &a.replacement_id).cmp(&(b.replaced_at_ms, &b.replacement_id)));
-        Ok(ServiceHistory { inspections, replacements })
+        let ServiceRecords { all, corrections } = self.service_records(fleet_id, vehicle_id)?;
+        let corrected: HashSet<(ServiceKind, &str)> = corrections.iter().map(|c| (c.kind, c.record_id.as_str())).collect();
+        Ok(ServiceHistory {
+            inspections: all.inspections.into_iter().filter(|i| !corrected.contains(&(ServiceKind::Inspection, i.inspection_id.as_str()))).collect(),
+            replacements: all.replacements.into_iter().filter(|r| !corrected.contains(&(ServiceKind::Replacement, r.replacement_id.as_str()))).collect(),
+        })
     }
 
     /// See [`Store`].

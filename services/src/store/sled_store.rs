@@ -314,6 +314,10 @@ impl Store for SledStore {
         self.read(|e| e.list_vehicles(fleet_id, after, limit))
     }
 
+    fn list_fleet_ids(&self) -> StoreResult<Vec<String>> {
+        self.read(|e| e.list_fleet_ids())
+    }
+
     fn count_vehicles(&self, fleet_id: &str) -> StoreResult<u64> {
         self.read(|e| e.count_vehicles(fleet_id))
     }
@@ -326,12 +330,28 @@ impl Store for SledStore {
         self.acknowledged(|e| e.plan_trips(trips), |e| e.ingest_trips(trips))
     }
 
-    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<bool> {
+    fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>> {
         let key = keys::child_key(&inspection.fleet_id, &inspection.vehicle_id, &inspection.inspection_id);
         self.acknowledged(|e| e.plan_one(RecordKind::Inspection, &inspection.fleet_id, key), |e| e.record_inspection(inspection))
     }
 
-    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<bool> {
+    fn correct_record(&self, correction: &CorrectionRecord, superseding: Option<&ServiceEntry>) -> StoreResult<CorrectionOutcome> {
+        // A superseding record is a new inspection or replacement: the ledger counts it.
+        let planned = superseding.map(|entry| match entry {
+            ServiceEntry::Inspection(r) => (RecordKind::Inspection, r.fleet_id.clone(), keys::child_key(&r.fleet_id, &r.vehicle_id, &r.inspection_id)),
+            ServiceEntry::Replacement(r) => (RecordKind::Replacement, r.fleet_id.clone(), keys::child_key(&r.fleet_id, &r.vehicle_id, &r.replacement_id)),
+        });
+        match planned {
+            Some((kind, fleet_id, key)) => self.acknowledged(|e| e.plan_one(kind, &fleet_id, key), |e| e.correct_record(correction, superseding)),
+            None => self.write(|e| e.correct_record(correction, superseding)),
+        }
+    }
+
+    fn service_records(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceRecords> {
+        self.read(|e| e.service_records(fleet_id, vehicle_id))
+    }
+
+    fn record_replacement(&self, replacement: &ReplacementRecord) -> StoreResult<InsertOutcome<ReplacementRecord>> {
         let key = keys::child_key(&replacement.fleet_id, &replacement.vehicle_id, &replacement.replacement_id);
         self.acknowledged(|e| e.plan_one(RecordKind::Replacement, &replacement.fleet_id, key), |e| e.record_replacement(replacement))
     }

@@ -6,14 +6,24 @@ use brakeledger_tests::{register, seed_vehicle, two_axle_vehicle, wait_for_forec
 use clap::Parser;
 
 /// Runs `brakeledger --server <server> <args...>` and returns what it printed.
-async fn brakeledger(server: &TestServer, args: &[&str]) -> anyhow::Result<String> {
-    let url = format!("http://{}", server.addr);
-    let mut argv = vec!["brakeledger", "--server", url.as_str()];
+pub(crate) async fn brakeledger(server: &TestServer, args: &[&str]) -> anyhow::Result<String> {
+    let (out, outcome) = brakeledger_outcome(server, args).await;
+    outcome.map(|()| out)
+}
+
+/// Runs `brakeledger --server <host:port> <args...>` (an address without a scheme, as people
+/// type it) and returns what it printed beside how it ended.
+async fn brakeledger_outcome(server: &TestServer, args: &[&str]) -> (String, anyhow::Result<()>) {
+    let address = server.addr.to_string();
+    let mut argv = vec!["brakeledger", "--server", address.as_str()];
     argv.extend_from_slice(args);
-    let cli = Cli::try_parse_from(argv)?;
+    let cli = match Cli::try_parse_from(argv) {
+        Ok(cli) => cli,
+        Err(error) => return (String::new(), Err(error.into())),
+    };
     let mut out = Vec::new();
-    run_with_output(cli, &mut out).await?;
-    Ok(String::from_utf8(out)?)
+    let outcome = run_with_output(cli, &mut out).await;
+    (String::from_utf8_lossy(&out).into_owned(), outcome)
 }
 
 /// The ISO 8601 calendar dates in a line of text, in order.
@@ -41,7 +51,9 @@ async fn push_trips_from_csv_reports_each_refusal_by_line_and_is_safe_to_repeat(
     std::fs::write(&path, csv).expect("write csv");
     let file = path.to_string_lossy().into_owned();
 
-    let first = brakeledger(&server, &["push-trips", &file]).await.expect("push");
+    let (first, outcome) = brakeledger_outcome(&server, &["push-trips", &file]).await;
+    let error = outcome.expect_err("refused trips make the command fail");
+    assert_eq!(format!("{error:#}"), "the server refused 2 of 4 trip(s); the others were stored");
     let lines: Vec<&str> = first.lines().collect();
     assert_eq!(lines[0], "sent 4 trips: 2 stored, 0 already stored, 2 refused", "{first}");
     let end_time_row = lines.iter().find(|l| l.contains("end_time")).unwrap_or_else(|| panic!("no end_time refusal: {first}"));
@@ -49,7 +61,8 @@ async fn push_trips_from_csv_reports_each_refusal_by_line_and_is_safe_to_repeat(
     let vehicle_row = lines.iter().find(|l| l.contains("vehicle_id")).unwrap_or_else(|| panic!("no vehicle refusal: {first}"));
     assert!(vehicle_row.trim_start().starts_with("6  t4"), "t4 is on line 6, after a blank line: {first}");
 
-    let again = brakeledger(&server, &["push-trips", &file, "--json"]).await.expect("push again");
+    let (again, outcome) = brakeledger_outcome(&server, &["push-trips", &file, "--json"]).await;
+    assert!(outcome.is_err(), "still two refused");
     assert!(again.contains("\"accepted\": 0,") && again.contains("\"duplicates\": 2,"), "{again}");
     assert_eq!(again.matches("\"trip_id\":").count(), 2, "{again}");
     assert!(again.contains("\"refused\": 2,"), "{again}");
@@ -93,16 +106,16 @@ async fn vehicles_and_workshop_records_go_in_through_the_cli() {
     let at = (chrono::Utc::now() - chrono::Duration::days(1)).format("%Y-%m-%dT08:00:00Z").to_string();
     let inspect = ["record-inspection", "--fleet", "north", "--vehicle", "van-7", "--axle", "2", "--component", "lining", "--thickness-mm", "4.2", "--at", &at];
     let out = brakeledger(&server, &inspect).await.expect("inspection");
-    assert!(out.ends_with(": stored\n") && out.contains("axle 2"), "{out}");
+    assert!(out.ends_with(": stored\n") && out.contains("axle 2 lining:"), "named as the trade names it on a drum axle: {out}");
     let out = brakeledger(&server, &inspect).await.expect("same inspection again");
     assert!(out.ends_with("already stored, nothing changed\n"), "{out}");
 
     let replace = ["record-replacement", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "rotor", "--at", &at];
     let out = brakeledger(&server, &replace).await.expect("replacement");
-    assert!(out.ends_with(": stored\n"), "{out}");
+    assert!(out.ends_with(": stored\n") && out.contains("axle 1 rotor at"), "{out}");
 
     // The server's refusal comes back with the field that is wrong.
-    let error = brakeledger(&server, &["record-inspection", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "pad", "--thickness-mm=-3"])
+    let error = brakeledger(&server, &["record-inspection", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "pad", "--thickness-mm", "-3"])
         .await
         .expect_err("negative thickness");
     let message = format!("{error:#}");
@@ -169,9 +182,17 @@ async fn forecast_due_plan_and_chart_answer_from_the_server() {
     let due_json = brakeledger(&server, &["due", "--fleet", "north", "--within-days", "120", "--json"]).await.expect("due json");
     assert_eq!(due_json.matches("\"vehicle_id\":").count(), listed.len(), "{due_json}");
 
-    let plan = brakeledger(&server, &["plan", "--fleet", "north", "--days", "120", "--hours-per-day", "8"]).await.expect("plan");
-    assert!(plan.starts_with("Workshop plan for fleet north"), "{plan}");
-    assert!(plan.contains("bus-fast") && plan.contains("axle 1 pad"), "the front pad of bus-fast is booked: {plan}");
+    let plan = brakeledger(&server, &["plan", "--fleet", "north", "--days", "120", "--hours-per-day", "8", "--safety-margin-days", "5"]).await.expect("plan");
+    assert!(plan.starts_with("Workshop plan for fleet north") && plan.lines().next().is_some_and(|l| l.ends_with("safety margin 5 day(s)")), "{plan}");
+    assert!(plan.contains("gives up (days)"), "the wear life column: {plan}");
+    // The front pad of bus-fast is booked alone, 1 + 5 days before its due date, and gives up
+    // the days from the visit to its median date.
+    let row = plan.lines().find(|l| l.contains("bus-fast") && l.contains("  1  pad")).unwrap_or_else(|| panic!("front pad of bus-fast booked: {plan}"));
+    let dates = dates_in(row);
+    assert_eq!(dates.len(), 3, "visit, due earliest, due median: {row}");
+    assert_eq!(dates[0], dates[1] - chrono::Duration::days(6), "{row}");
+    let given_up: i64 = row.split_whitespace().nth(6).and_then(|w| w.parse().ok()).unwrap_or_else(|| panic!("no days given up: {row}"));
+    assert_eq!(given_up, (dates[2] - dates[0]).num_days(), "{row}");
     assert!(plan.trim_end().ends_with(brakeledger::SAFETY_CAUTION), "{plan}");
 
     let dir = tempfile::tempdir().expect("temp dir");
@@ -228,4 +249,31 @@ async fn the_demo_runs_and_its_forecasts_meet_the_calibration_bounds() {
     assert!(ours <= 2.0 / 3.0 * odometer, "median error {ours} d vs odometer line {odometer} d");
     let svg = std::fs::read_to_string(&chart).expect("chart written");
     assert!(svg.starts_with("<svg") || svg.contains("<svg"), "an SVG file");
+}
+
+#[tokio::test]
+async fn a_data_directory_in_use_is_named_and_serve_help_lists_every_setting() {
+    let binary = std::path::PathBuf::from(env!("CARGO_BIN_EXE_brakeledger-test-server"));
+    let dir = tempfile::tempdir().expect("temp dir");
+    let first = brakeledger_tests::ServerProcess::spawn(&binary, dir.path());
+    let refused = brakeledger_tests::ServerProcess::spawn_with(&binary, dir.path(), &[]).map(|_| ()).expect_err("the directory is locked");
+    assert!(refused.contains("is in use by another brakeledger server"), "{refused}");
+    assert!(first.terminate().success());
+
+    let help = Cli::try_parse_from(["brakeledger", "serve", "--help"]).expect_err("help is printed as an early exit").to_string();
+    for setting in ["--data", "--listen", "--config", "--json-logs", "BRAKELEDGER_TOKENS", "auth_tokens", "--token", "[storage]", "[shutdown]", "[http2]", "[ingest]", "[forecast]", "[integrity]"] {
+        assert!(help.contains(setting), "serve --help names {setting}: {help}");
+    }
+}
+
+#[tokio::test]
+async fn negative_numbers_reach_the_server_and_a_closed_pipe_is_not_an_error() {
+    // A negative value is a value, not an unknown flag.
+    let cli = Cli::try_parse_from(["brakeledger", "record-inspection", "--fleet", "f", "--vehicle", "v", "--axle", "1", "--component", "pad", "--thickness-mm", "-3"]);
+    let Ok(Cli { command: brakeledger::cli::Command::RecordInspection(args), .. }) = cli else { panic!("-3 parsed as a value: {cli:?}") };
+    assert_eq!(args.thickness_mm, -3.0);
+    // `brakeledger ... | head`: the reader left; the command ends quietly with success.
+    let closed = anyhow::Error::new(std::io::Error::from(std::io::ErrorKind::BrokenPipe)).context("writing the table");
+    assert_eq!(brakeledger::cli::exit_code(Err(closed)), std::process::ExitCode::SUCCESS);
+    assert_eq!(brakeledger::cli::exit_code(Err(anyhow::anyhow!("a real failure"))), std::process::ExitCode::FAILURE);
 }

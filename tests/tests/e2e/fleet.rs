@@ -9,7 +9,7 @@ async fn upsert_then_get_a_vehicle() {
     let server = TestServer::start().await;
     let mut fleet = server.fleet();
     let mut vehicle = two_axle_vehicle("north", "van-7");
-    vehicle.vin = Some("WDB9066331S123456".into());
+    vehicle.vin = Some("ZZZEXAMPLE0000001".into());
     let created = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
     assert!(created.created);
     let again = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle.clone()) }).await.expect("upsert").into_inner();
@@ -90,5 +90,43 @@ async fn fleet_time_zone_is_validated_and_stored() {
         .expect("good zone");
     let stored = fleet.get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get").into_inner();
     assert_eq!(stored.fleet.expect("fleet").time_zone, "Pacific/Auckland");
+    server.stop().await;
+}
+
+#[tokio::test]
+async fn fleets_are_created_changed_shown_and_listed_from_the_command_line() {
+    use crate::cli::brakeledger;
+    let server = TestServer::start().await;
+    // "south" is never set up but holds a vehicle; "north" is created by the command line.
+    register(&server, two_axle_vehicle("south", "bus-1")).await;
+    let said = brakeledger(&server, &["set-fleet", "--fleet", "north", "--time-zone", "Europe/Lisbon", "--name", "North depot"]).await.expect("create");
+    assert_eq!(said.trim(), "created fleet north (North depot): time zone Europe/Lisbon, 0 vehicle(s)");
+    register(&server, two_axle_vehicle("north", "van-1")).await;
+    // A flag left out keeps its value.
+    let said = brakeledger(&server, &["set-fleet", "--fleet", "north", "--name", "North coaches"]).await.expect("change");
+    assert_eq!(said.trim(), "updated fleet north (North coaches): time zone Europe/Lisbon, 1 vehicle(s)");
+    let stored = server.fleet().get_fleet(pb::GetFleetRequest { fleet_id: "north".into() }).await.expect("get").into_inner();
+    assert_eq!(stored.fleet.map(|f| (f.time_zone, f.display_name)), Some(("Europe/Lisbon".into(), "North coaches".into())));
+    let bad = brakeledger(&server, &["set-fleet", "--fleet", "north", "--time-zone", "Mars/Olympus"]).await.expect_err("unknown zone");
+    assert!(format!("{bad:#}").contains("time_zone"), "{bad:#}");
+
+    let shown = brakeledger(&server, &["show-fleet", "--fleet", "north", "--json"]).await.expect("show");
+    assert!(shown.contains("\"time_zone\": \"Europe/Lisbon\"") && shown.contains("\"vehicle_count\": 1"), "{shown}");
+    let typo = brakeledger(&server, &["show-fleet", "--fleet", "nrth"]).await.expect_err("never set up, no vehicle");
+    assert!(format!("{typo:#}").contains("NotFound"), "{typo:#}");
+
+    let listed = server.fleet().list_fleets(pb::ListFleetsRequest {}).await.expect("list fleets").into_inner().fleets;
+    let ids: Vec<(&str, bool, u64)> = listed.iter().map(|f| (f.fleet.as_ref().map_or("", |x| x.fleet_id.as_str()), f.set_up, f.vehicle_count)).collect();
+    assert_eq!(ids, vec![("north", true, 1), ("south", false, 1)]);
+    let table = brakeledger(&server, &["fleets"]).await.expect("fleets");
+    let south = table.lines().find(|l| l.starts_with("south")).unwrap_or_else(|| panic!("{table}"));
+    assert!(south.contains("UTC") && south.contains("never set up"), "{south}");
+    let json = brakeledger(&server, &["fleets", "--json"]).await.expect("fleets json");
+    assert_eq!(json.matches("\"fleet_id\"").count(), 2, "{json}");
+
+    let vehicles = brakeledger(&server, &["vehicles", "--fleet", "north"]).await.expect("vehicles");
+    assert!(vehicles.starts_with("1 vehicle(s) in fleet north") && vehicles.contains("van-1") && vehicles.contains("disc, disc"), "{vehicles}");
+    let json = brakeledger(&server, &["vehicles", "--fleet", "south", "--json"]).await.expect("vehicles json");
+    assert!(json.contains("\"vehicle_id\": \"bus-1\""), "{json}");
     server.stop().await;
 }

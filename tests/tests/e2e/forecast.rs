@@ -1,5 +1,5 @@
-//! ForecastService over loopback gRPC: forecasts, the due list and its paging, live updates,
-//! wear trajectories and visit plans.
+//! ForecastService over loopback gRPC: forecasts, the due list and its paging, live updates and
+//! wear trajectories (visit plans: `plan.rs`).
 
 use std::time::Duration;
 
@@ -9,7 +9,7 @@ use tokio_stream::StreamExt;
 
 /// Five vehicles of one class with 200 days of history and five inspections each, at slightly
 /// different wear speeds, so the fleet prior exists.
-async fn seeded_fleet() -> TestServer {
+pub(crate) async fn seeded_fleet() -> TestServer {
     let server = TestServer::start().await;
     for (i, speed) in [0.9, 1.0, 1.1, 1.2, 0.8].into_iter().enumerate() {
         seed_vehicle(&server, &format!("van-{i}"), 200, speed, &[160, 120, 80, 40, 5]).await;
@@ -20,7 +20,7 @@ async fn seeded_fleet() -> TestServer {
 
 /// Every page of ListDue for parts due before `due_before_s` (one window for all pages: a
 /// token belongs to its window).
-async fn list_all_due(server: &TestServer, due_before_s: i64, page_size: u32) -> Vec<pb::DuePart> {
+pub(crate) async fn list_all_due(server: &TestServer, due_before_s: i64, page_size: u32) -> Vec<pb::DuePart> {
     let due_before = Some(ts(due_before_s));
     let mut all = Vec::new();
     let mut token = String::new();
@@ -239,50 +239,5 @@ async fn wear_trajectory_has_measured_points_and_a_falling_band() {
     }
     let medians: Vec<f64> = trajectory.forecast.iter().map(|p| p.median_mm).collect();
     assert!(medians.windows(2).all(|w| w[1] <= w[0] + 1e-9), "median thickness never grows");
-    server.stop().await;
-}
-
-#[tokio::test]
-async fn plan_visits_respects_capacity_and_due_dates() {
-    let server = seeded_fleet().await;
-    let from = now_s();
-    let to = now_s() + 360 * DAY_S;
-    let capacity = 4.0;
-    let plan = server
-        .forecast()
-        .plan_visits(pb::PlanVisitsRequest {
-            fleet_id: "north".into(),
-            from: Some(ts(from)),
-            to: Some(ts(to)),
-            capacity_hours_per_day: capacity,
-            friction_job_hours: 1.5,
-            disc_job_hours: 3.0,
-            bundle_within_days: 30,
-            band_level: 0.0,
-        })
-        .await
-        .expect("plan")
-        .into_inner();
-    assert!(!plan.visits.is_empty());
-    let mut hours_per_day = std::collections::HashMap::<String, f64>::new();
-    for visit in &plan.visits {
-        *hours_per_day.entry(visit.visit_date.clone()).or_default() += visit.hours;
-        for job in &visit.jobs {
-            assert!(visit.visit_date < job.due_earliest_date, "visit {} not before due {}", visit.visit_date, job.due_earliest_date);
-        }
-        let sum: f64 = visit.jobs.iter().map(|j| j.hours).sum();
-        assert!((sum - visit.hours).abs() < 1e-9);
-    }
-    assert!(hours_per_day.values().all(|h| *h <= capacity + 1e-9), "{hours_per_day:?}");
-    // Every part due before the plan ends is booked or listed as unplanned.
-    let due = list_all_due(&server, to, 1000).await;
-    let booked: usize = plan.visits.iter().map(|v| v.jobs.len()).sum();
-    assert!(booked + plan.unplanned.len() >= due.len());
-    let invalid = server
-        .forecast()
-        .plan_visits(pb::PlanVisitsRequest { fleet_id: "north".into(), from: Some(ts(from)), to: Some(ts(from - DAY_S)), capacity_hours_per_day: 0.0, ..Default::default() })
-        .await
-        .expect_err("bad plan request");
-    assert_eq!(invalid.code(), tonic::Code::InvalidArgument);
     server.stop().await;
 }

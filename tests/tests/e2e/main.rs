@@ -16,6 +16,7 @@ mod ingest;
 mod long_stream;
 mod maintenance;
 mod memory_soak;
+mod plan;
 mod report_size;
 mod safe_defaults;
 mod shutdown;
