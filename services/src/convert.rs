@@ -83,6 +83,32 @@ pub fn component_to_wire(component: Component) -> pb::Component {
 /// Longest part of an offending value quoted back in an error, characters.
 pub const MAX_QUOTED_CHARS: usize = 64;
 
+/// Longest vehicle class, characters.
+pub const MAX_CLASS_CHARS: usize = 64;
+/// Longest display name, characters.
+pub const MAX_NAME_CHARS: usize = 200;
+
+/// A vehicle class groups vehicles for fleet pooling: 1 to 64 characters, letters, digits,
+/// space, '.', '_' and '-' (so classes print and sort plainly and a typo is visible).
+pub fn check_vehicle_class(class: &str) -> Result<(), FieldViolation> {
+    let count = class.chars().count();
+    if count == 0 || count > MAX_CLASS_CHARS {
+        return Err(FieldViolation::new("vehicle_class", format!("must be 1 to {MAX_CLASS_CHARS} characters")));
+    }
+    if !class.chars().all(|c| c.is_alphanumeric() || matches!(c, ' ' | '.' | '_' | '-')) {
+        return Err(FieldViolation::new("vehicle_class", "may hold letters, digits, spaces, '.', '_' and '-' only"));
+    }
+    Ok(())
+}
+
+/// A name for people: at most 200 characters, no control characters.
+pub fn check_display_name(field: &str, name: &str) -> Result<(), FieldViolation> {
+    if name.chars().count() > MAX_NAME_CHARS || name.chars().any(char::is_control) {
+        return Err(FieldViolation::new(field, format!("must be at most {MAX_NAME_CHARS} characters, without control characters")));
+    }
+    Ok(())
+}
+
 /// Checks an IANA time zone name; empty means UTC.
 pub fn parse_time_zone(field: &str, name: &str) -> Result<chrono_tz::Tz, FieldViolation> {
     if name.is_empty() {
@@ -107,6 +133,9 @@ impl TryFrom<pb::Fleet> for FleetRecord {
                 chrono_tz::UTC
             }
         };
+        if let Err(v) = check_display_name("fleet.display_name", &fleet.display_name) {
+            violations.push(v);
+        }
         if !violations.is_empty() {
             return Err(ServiceError::InvalidArgument(violations));
         }
@@ -138,8 +167,8 @@ impl TryFrom<pb::Vehicle> for VehicleRecord {
                 violations.push(FieldViolation::new("vin", "must be 17 characters: digits and capital letters except I, O, Q (ISO 3779)"));
             }
         }
-        if vehicle.vehicle_class.len() > MAX_ID_BYTES {
-            violations.push(FieldViolation::new("vehicle_class", format!("must be at most {MAX_ID_BYTES} bytes")));
+        if let Err(v) = check_vehicle_class(&vehicle.vehicle_class) {
+            violations.push(v);
         }
         let mut axles = Vec::with_capacity(vehicle.axles.len());
         for (i, axle) in vehicle.axles.iter().enumerate() {

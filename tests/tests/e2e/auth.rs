@@ -56,6 +56,9 @@ const RPCS: &[(&str, &[&str])] = &[
     ("IngestTrips", &["ingest"]),
     ("RecordInspection", &["workshop"]),
     ("RecordReplacement", &["workshop"]),
+    ("VoidRecord", &["workshop"]),
+    ("SupersedeRecord", &["workshop"]),
+    ("ListServiceRecords", &["workshop", "planner", "fleet-admin"]),
     ("GetVehicleForecast", &["workshop", "planner", "fleet-admin"]),
     ("ListDue", &["workshop", "planner", "fleet-admin"]),
     ("WatchDue", &["workshop", "planner", "fleet-admin"]),
@@ -146,6 +149,49 @@ async fn call(server: &TestServer, rpc: &str, secret: Option<&str>, serial: usiz
                 },
                 secret,
             ))
+            .await
+            .map(drop),
+        "VoidRecord" => server
+            .maintenance()
+            .void_record(with_token(
+                pb::VoidRecordRequest {
+                    fleet_id: "north".into(),
+                    vehicle_id: "van-1".into(),
+                    kind: pb::RecordKind::Inspection as i32,
+                    record_id: format!("insp-{}", serial - 1),
+                    reason: "entered twice".into(),
+                },
+                secret,
+            ))
+            .await
+            .map(drop),
+        "SupersedeRecord" => {
+            let corrected = pb::RecordInspectionRequest {
+                fleet_id: "north".into(),
+                vehicle_id: "van-1".into(),
+                inspection_id: format!("fix-{serial}"),
+                axle_index: 1,
+                component: pb::Component::Friction as i32,
+                thickness_mm: 8.5,
+                measured_at: Some(ts(now - 60)),
+            };
+            server
+                .maintenance()
+                .supersede_record(with_token(
+                    pb::SupersedeRecordRequest {
+                        kind: pb::RecordKind::Inspection as i32,
+                        superseded_id: "insp-unknown".into(),
+                        reason: "typo".into(),
+                        correction: Some(pb::supersede_record_request::Correction::Inspection(corrected)),
+                    },
+                    secret,
+                ))
+                .await
+                .map(drop)
+        }
+        "ListServiceRecords" => server
+            .maintenance()
+            .list_service_records(with_token(pb::ListServiceRecordsRequest { fleet_id: "north".into(), vehicle_id: "van-1".into() }, secret))
             .await
             .map(drop),
         "GetVehicleForecast" => server

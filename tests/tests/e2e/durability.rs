@@ -76,12 +76,26 @@ async fn sigkill_after_ack_and_during_a_stream_loses_nothing_acknowledged() {
     server.kill();
 }
 
+/// Opens the store in `dir` once the previous handle's background threads have let go of the
+/// directory's lock (sled releases it from its flusher thread, later on a loaded machine).
+fn reopen(dir: &std::path::Path) -> Result<brakeledger::store::sled_store::SledStore, brakeledger::store::StoreError> {
+    let started = std::time::Instant::now();
+    loop {
+        match brakeledger::store::sled_store::SledStore::open(dir) {
+            Err(error) if error.to_string().contains("lock") && started.elapsed() < std::time::Duration::from_secs(30) => {
+                std::thread::sleep(std::time::Duration::from_millis(50));
+            }
+            other => return other,
+        }
+    }
+}
+
 #[test]
 fn a_database_from_a_newer_schema_is_refused() {
     use brakeledger::store::{sled_store::{SledStore, SCHEMA_VERSION}, StoreError};
     let dir = tempfile::tempdir().expect("temp dir");
     SledStore::open(dir.path()).expect("create").force_schema_version(SCHEMA_VERSION + 1).expect("write version");
-    match SledStore::open(dir.path()) {
+    match reopen(dir.path()) {
         Err(StoreError::NewerSchema { found, supported }) => assert_eq!((found, supported), (SCHEMA_VERSION + 1, SCHEMA_VERSION)),
         Err(other) => panic!("unexpected error {other}"),
         Ok(_) => panic!("a newer schema must be refused"),
@@ -128,7 +142,7 @@ async fn a_graceful_stop_lets_an_open_stream_finish_and_report() {
     let dir = server.data_dir.take().expect("data dir");
     server.stop().await;
     // Everything reported is in the database when the server has stopped.
-    let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("reopen");
+    let store = reopen(dir.path()).expect("reopen");
     use brakeledger::store::Store;
     assert_eq!(store.vehicle_totals("north", "bus-1").expect("totals").trips_recorded, 3000);
 }
@@ -151,7 +165,7 @@ async fn sigterm_stops_the_process_cleanly_with_everything_on_disk() {
     assert_eq!(report.accepted, 500);
     let status = server.terminate();
     assert!(status.success(), "exit status after SIGTERM: {status:?}");
-    let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("reopen");
+    let store = reopen(dir.path()).expect("reopen");
     use brakeledger::store::Store;
     assert_eq!(store.vehicle_totals("north", "truck-9").expect("totals").trips_recorded, 500);
 }
@@ -170,7 +184,7 @@ fn a_version_1_directory_keeps_its_records_and_recomputes_its_forecasts() {
         }
         store.force_schema_version(1).expect("write version 1");
     }
-    let store = SledStore::open(dir.path()).expect("a version-1 directory opens");
+    let store = reopen(dir.path()).expect("a version-1 directory opens");
     assert!(store.get_vehicle("north", "bus-1").expect("read").is_some(), "records are kept");
     assert!(store.get_priors("north").expect("read").is_none(), "derived priors are dropped");
     let marks = store.stale_vehicles(10).expect("marks");
@@ -180,7 +194,7 @@ fn a_version_1_directory_keeps_its_records_and_recomputes_its_forecasts() {
     store.put_priors("north", &FleetPriors::default()).expect("priors");
     drop(store);
     // Reopening does not migrate again: the directory now carries the current version.
-    let store = SledStore::open(dir.path()).expect("reopen");
+    let store = reopen(dir.path()).expect("reopen");
     assert!(store.stale_vehicles(10).expect("marks").is_empty(), "no second migration");
     assert!(store.get_priors("north").expect("read").is_some(), "priors written after the migration stay");
 }

@@ -130,3 +130,29 @@ async fn fleets_are_created_changed_shown_and_listed_from_the_command_line() {
     assert!(json.contains("\"vehicle_id\": \"bus-1\""), "{json}");
     server.stop().await;
 }
+
+#[tokio::test]
+async fn huge_or_odd_values_get_a_short_clear_refusal() {
+    let server = TestServer::start().await;
+    let mut fleet = server.fleet();
+    // A 10 KB time zone: the refusal quotes a short prefix, so a standard client reads it.
+    let zone = "Z".repeat(10_000);
+    let bad = fleet
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: zone, display_name: String::new() }) })
+        .await
+        .expect_err("bad zone");
+    assert_eq!(bad.code(), tonic::Code::InvalidArgument);
+    assert!(bad.message().len() < 500 && bad.details().len() < 1_000, "{} bytes of message, {} of details", bad.message().len(), bad.details().len());
+    // Classes and names have rules.
+    let mut vehicle = brakeledger_tests::two_axle_vehicle("north", "van-1");
+    vehicle.vehicle_class = "city bus\u{0007}".into();
+    let refused = fleet.upsert_vehicle(pb::UpsertVehicleRequest { vehicle: Some(vehicle) }).await.expect_err("bad class");
+    assert_eq!(refused.code(), tonic::Code::InvalidArgument);
+    assert!(refused.message().contains("vehicle_class"), "{}", refused.message());
+    let named = fleet
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "UTC".into(), display_name: "N".repeat(201) }) })
+        .await
+        .expect_err("long name");
+    assert!(named.message().contains("display_name"), "{}", named.message());
+    server.stop().await;
+}
