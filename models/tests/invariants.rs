@@ -86,7 +86,10 @@ proptest! {
         if let (Some(a), Some(b)) = (o.due.filter(|_| !o.due_now), w.due.filter(|_| !w.due_now)) {
             let (al, _, ah) = a.band(0.8);
             let (bl, _, bh) = b.band(0.8);
-            prop_assert!(bh - bl > 1.5 * (ah - al), "three times the rate SD: band {} vs {} days", bh - bl, ah - al);
+            // The rate is one source of spread among several (energy use, its allowance, the
+            // drift allowance), so tripling its SD widens the band by less than 3x: about 1.5x
+            // at the smallest rate SD tried, more above it.
+            prop_assert!(bh - bl > 1.25 * (ah - al), "three times the rate SD: band {} vs {} days", bh - bl, ah - al);
         }
     }
 
