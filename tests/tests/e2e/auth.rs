@@ -71,6 +71,12 @@ const RPCS: &[(&str, &[&str])] = &[
     ("ExportBackup", &[]),
 ];
 
+/// Reads a server stream to its end; its final status.
+async fn read_to_end<T>(mut stream: tonic::Streaming<T>) -> Result<(), tonic::Status> {
+    while stream.message().await?.is_some() {}
+    Ok(())
+}
+
 /// Makes one RPC on fleet north as `secret`; the status code it ends with.
 async fn call(server: &TestServer, rpc: &str, secret: Option<&str>, serial: usize) -> Code {
     let channel = server.channel.clone();
@@ -102,21 +108,7 @@ async fn call(server: &TestServer, rpc: &str, secret: Option<&str>, serial: usiz
             let messages = tokio_stream::iter(vec![pb::IngestTripsRequest { trips: vec![trip("north", "van-1", 20_000 + serial, now - 3600)] }]);
             match server.telemetry().ingest_trips(with_token(messages, secret)).await {
                 Err(status) => Err(status),
-                Ok(response) => {
-                    let mut acks = response.into_inner();
-                    let mut last = Ok(());
-                    loop {
-                        match acks.message().await {
-                            Ok(Some(_)) => {}
-                            Ok(None) => break,
-                            Err(status) => {
-                                last = Err(status);
-                                break;
-                            }
-                        }
-                    }
-                    last
-                }
+                Ok(response) => read_to_end(response.into_inner()).await,
             }
         }
         "RecordInspection" => server
@@ -256,21 +248,7 @@ async fn call(server: &TestServer, rpc: &str, secret: Option<&str>, serial: usiz
             .map(drop),
         "ExportBackup" => match pb::backup_service_client::BackupServiceClient::new(channel).export_backup(with_token(pb::ExportBackupRequest::default(), secret)).await {
             Err(status) => Err(status),
-            Ok(response) => {
-                let mut chunks = response.into_inner();
-                let mut last = Ok(());
-                loop {
-                    match chunks.message().await {
-                        Ok(Some(_)) => {}
-                        Ok(None) => break,
-                        Err(status) => {
-                            last = Err(status);
-                            break;
-                        }
-                    }
-                }
-                last
-            }
+            Ok(response) => read_to_end(response.into_inner()).await,
         },
         other => panic!("no call for {other}"),
     };
