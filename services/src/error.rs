@@ -67,7 +67,6 @@ pub fn quote_prefix(text: &str, max: usize) -> String {
     }
 }
 
-use quote_prefix as cap;
 
 fn summarise(violations: &[FieldViolation]) -> String {
     violations.iter().map(|v| format!("{}: {}", v.field, v.reason)).collect::<Vec<_>>().join("; ")
@@ -93,12 +92,12 @@ impl ServiceError {
     /// Messages and reasons are capped (see [`MAX_MESSAGE_CHARS`]), so an error about a huge
     /// value never grows past what a client accepts.
     pub fn into_status(self) -> Status {
-        let message = cap(&self.to_string(), MAX_MESSAGE_CHARS);
+        let message = quote_prefix(&self.to_string(), MAX_MESSAGE_CHARS);
         match self {
             ServiceError::InvalidArgument(violations) => {
                 let mut details = ErrorDetails::new();
                 for v in violations.iter().take(MAX_VIOLATIONS) {
-                    details.add_bad_request_violation(cap(&v.field, MAX_REASON_CHARS), cap(&v.reason, MAX_REASON_CHARS));
+                    details.add_bad_request_violation(quote_prefix(&v.field, MAX_REASON_CHARS), quote_prefix(&v.reason, MAX_REASON_CHARS));
                 }
                 Status::with_error_details(Code::InvalidArgument, message, details)
             }

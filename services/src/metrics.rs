@@ -29,7 +29,6 @@ use prometheus_client::metrics::gauge::Gauge;
 use prometheus_client::metrics::histogram::{exponential_buckets, Histogram};
 use prometheus_client::registry::Registry;
 
-use crate::error::ServiceError;
 
 #[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
 struct CallLabels {
@@ -108,17 +107,6 @@ pub fn render() -> String {
     // Writing to a String cannot fail.
     let _ = prometheus_client::encoding::text::encode(&mut out, &METRICS.registry);
     out
-}
-
-/// Counts a call refused by the access interceptor.
-pub fn auth_refused(error: &ServiceError) {
-    let reason = match error {
-        ServiceError::Unauthenticated(message) if message.contains("revoked") => "revoked_token",
-        ServiceError::Unauthenticated(message) if message.contains("requires") => "no_token",
-        ServiceError::Unauthenticated(_) => "unknown_token",
-        _ => "error",
-    };
-    auth_refused_reason(reason);
 }
 
 /// Counts a refusal by access control with a named reason.

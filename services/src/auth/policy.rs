@@ -144,6 +144,7 @@ impl AccessPolicy {
             .map(str::trim)
             .filter(|token| !token.is_empty());
         let Some(secret) = presented else {
+            crate::metrics::auth_refused_reason("no_token");
             return Err(ServiceError::Unauthenticated(
                 "this server requires 'authorization: Bearer <token>' (the CLI sends --token or BRAKELEDGER_TOKEN)".into(),
             ));
@@ -151,18 +152,21 @@ impl AccessPolicy {
         // The lookup is by SHA-256 of the secret, so its timing says nothing about the secret.
         match store.token_by_hash(&hash_secret(secret))? {
             Some(token) if token.revoked_at_ms.is_none() => Ok(Caller { token_id: token.token_id, fleet_id: token.fleet_id, role: token.role }),
-            Some(_) => Err(ServiceError::Unauthenticated("the bearer token was revoked".into())),
-            None => Err(ServiceError::Unauthenticated("the bearer token is not one this server knows".into())),
+            Some(_) => {
+                crate::metrics::auth_refused_reason("revoked_token");
+                Err(ServiceError::Unauthenticated("the bearer token was revoked".into()))
+            }
+            None => {
+                crate::metrics::auth_refused_reason("unknown_token");
+                Err(ServiceError::Unauthenticated("the bearer token is not one this server knows".into()))
+            }
         }
     }
 }
 
 impl Interceptor for AccessPolicy {
     fn call(&mut self, mut request: Request<()>) -> Result<Request<()>, Status> {
-        let caller = self.authenticate(&request).map_err(|error| {
-            crate::metrics::auth_refused(&error);
-            error.into_status()
-        })?;
+        let caller = self.authenticate(&request).map_err(ServiceError::into_status)?;
         tracing::Span::current().record("token_id", caller.token_id.as_str());
         request.extensions_mut().insert(caller);
         Ok(request)
