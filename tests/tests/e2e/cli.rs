@@ -261,8 +261,14 @@ async fn a_data_directory_in_use_is_named_and_serve_help_lists_every_setting() {
     assert!(first.terminate().success());
 
     let help = Cli::try_parse_from(["brakeledger", "serve", "--help"]).expect_err("help is printed as an early exit").to_string();
-    for setting in ["--data", "--listen", "--config", "--json-logs", "BRAKELEDGER_TOKENS", "auth_tokens", "--token", "[storage]", "[shutdown]", "[http2]", "[ingest]", "[forecast]", "[integrity]"] {
+    let sections = ["[limits]", "[metrics]", "[tls]", "[health]", "[storage]", "[shutdown]", "[http2]", "[ingest]", "[forecast]", "[integrity]"];
+    let token_setup = ["--operator-token-file", "BRAKELEDGER_OPERATOR_TOKEN_FILE", "--insecure-no-auth", "token create", "BRAKELEDGER_TOKEN"];
+    for setting in ["--data", "--listen", "--config", "--json-logs"].iter().chain(&sections).chain(&token_setup) {
         assert!(help.contains(setting), "serve --help names {setting}: {help}");
+    }
+    // Settings the server refuses since tokens carry roles are not offered as a way in.
+    for removed in ["auth_tokens", "BRAKELEDGER_TOKENS"] {
+        assert!(!help.contains(removed), "serve --help still offers the removed {removed}: {help}");
     }
 }
 
