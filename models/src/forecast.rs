@@ -21,7 +21,8 @@
 //! given seed and part), and is reported at the probabilities 0.01, 0.02, ..., 0.99.
 //!
 //! The trajectory is the normal (delta-method) approximation of thickness at future day τ:
-//! mean `T̂_now − k̂·μ·τ`, variance `Var A + Var k·(d + μτ)² + k̂²·(σ²τ + Var μ·τ²)`.
+//! mean `T̂_now − k̂·μ·τ`, variance `Var A + Var k·(d + μτ)² + k̂²·(σ²τ + Var μ·τ²)`, drawn up to
+//! the band's latest due day, each edge held non-increasing (a part only wears).
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
 //! technician or local roadworthiness rules.
@@ -157,7 +158,8 @@ pub struct PartOutlook {
     /// Energy since the part was fitted (or since its first inspection when the fitting is not
     /// on record), MJ.
     pub energy_since_fitted_mj: f64,
-    /// Thickness from today until the median reaches the minimum (capped), at the band level.
+    /// Thickness from today until the band's upper edge reaches the minimum (the band's latest
+    /// due day; capped), at the band level; each edge non-increasing in time.
     pub trajectory: Vec<TrajectoryPoint>,
 }
 
@@ -438,10 +440,12 @@ pub fn forecast_part(
     if outlook.due.is_none() {
         notes.push("the Monte Carlo produced no finite due date".into());
     }
-    let median_due = outlook.due.as_ref().map_or(today_day, |q| q.at(0.5));
+    // The band is drawn until the part is below its minimum at the band's upper edge, i.e. up
+    // to the latest due day of the band at the same level.
+    let latest_due = outlook.due.as_ref().map_or(today_day, |q| q.at(0.5 + level / 2.0));
     outlook.trajectory = trajectory(
         today_day,
-        median_due,
+        latest_due,
         now_mean,
         anchor_var,
         rate.mean,
@@ -514,10 +518,17 @@ fn monte_carlo_due(
     DueDistribution::from_draws(out)
 }
 
+/// Thickness band from today to `latest_due` (capped at `trajectory_cap_days`), ending early
+/// once the band's upper edge is below `min_mm`.
+///
+/// A part only wears: its thickness at a later day is never above its thickness at an earlier
+/// one, so every quantile of the thickness is non-increasing in time. The normal approximation
+/// can break that when the variance grows faster than the mean falls (seen on drums with
+/// uncertain rates); each edge is therefore held at or below its value at earlier points.
 #[allow(clippy::too_many_arguments)]
 fn trajectory(
     today_day: f64,
-    median_due: f64,
+    latest_due: f64,
     now_mean: f64,
     anchor_var: f64,
     k_mean: f64,
@@ -528,10 +539,10 @@ fn trajectory(
     min_mm: f64,
     settings: &ForecastSettings,
 ) -> Vec<TrajectoryPoint> {
-    let span = (median_due - today_day).clamp(0.0, settings.trajectory_cap_days.max(0.0));
+    let span = (latest_due - today_day).clamp(0.0, settings.trajectory_cap_days.max(0.0));
     let max_points = settings.trajectory_max_points.max(2);
     let step = (span / (max_points - 1) as f64).ceil().max(1.0);
-    let mut out = Vec::new();
+    let mut out: Vec<TrajectoryPoint> = Vec::new();
     let mut tau = 0.0;
     loop {
         let e = energy.mean_mj_per_day * tau;
@@ -540,8 +551,14 @@ fn trajectory(
             + k_sd * k_sd * (d + e) * (d + e)
             + k_mean * k_mean * (energy.variance_mj2_per_day * tau + energy.mean_variance * tau * tau);
         let sd = var.max(0.0).sqrt();
-        out.push(TrajectoryPoint { day: today_day + tau, median_mm: mean, low_mm: mean - z * sd, high_mm: mean + z * sd });
-        if tau >= span || mean <= min_mm || out.len() >= max_points {
+        let mut point = TrajectoryPoint { day: today_day + tau, median_mm: mean, low_mm: mean - z * sd, high_mm: mean + z * sd };
+        if let Some(before) = out.last() {
+            point.median_mm = point.median_mm.min(before.median_mm);
+            point.low_mm = point.low_mm.min(before.low_mm);
+            point.high_mm = point.high_mm.min(before.high_mm);
+        }
+        out.push(point);
+        if tau >= span || point.high_mm <= min_mm || out.len() >= max_points {
             break;
         }
         tau = (tau + step).min(span);
