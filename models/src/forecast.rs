@@ -32,9 +32,10 @@ use rand_distr::StandardNormal;
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ContinuousCDF, Normal};
 
-pub use crate::settings::ForecastSettings;
+pub use crate::settings::{BandSampling, ForecastSettings};
 use crate::energy_rate::{estimate_energy_rate, EnergyRate};
 use crate::first_passage::FirstPassage;
+use crate::quasi_random::NormalScores;
 use crate::pooling::{combine, combine_lognormal, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
 use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
@@ -434,9 +435,23 @@ pub fn forecast_part(
         Some(p) => p.rate_drift_sd,
         None => wear_drift_sd(sigma, settings),
     };
-    outlook.due = monte_carlo_due(history, &rate, anchor_mm, anchor_var, d, &energy, drift_sd, today_day, settings);
+    let inputs = DueInputs {
+        min_thickness_mm: history.min_thickness_mm,
+        rate_mean: rate.mean,
+        rate_sd: rate.variance.max(0.0).sqrt(),
+        anchor_mm,
+        anchor_sd: anchor_var.max(0.0).sqrt(),
+        energy_since_anchor_mj: d,
+        energy,
+        drift_sd,
+        today_day,
+    };
+    outlook.due = match settings.band_sampling {
+        BandSampling::QuasiRandom => quasi_random_due(&inputs, settings.quasi_random_points),
+        BandSampling::PseudoRandom => monte_carlo_due(history, &inputs, settings),
+    };
     if outlook.due.is_none() {
-        notes.push("the Monte Carlo produced no finite due date".into());
+        notes.push("the due-date integral produced no finite date".into());
     }
     let median_due = outlook.due.as_ref().map_or(today_day, |q| q.at(0.5));
     outlook.trajectory = trajectory(
@@ -465,18 +480,62 @@ fn due_now(mut outlook: PartOutlook, mut notes: Vec<String>, today_day: f64, not
     outlook
 }
 
-#[allow(clippy::too_many_arguments)]
-fn monte_carlo_due(
-    history: &PartHistory,
-    rate: &RateEstimate,
+/// What the due-date integral reads, for one part.
+#[derive(Debug, Clone, Copy)]
+struct DueInputs {
+    min_thickness_mm: f64,
+    /// Posterior mean and SD of the wear rate so far, mm/MJ.
+    rate_mean: f64,
+    rate_sd: f64,
+    /// Today's thickness before the wear since the anchor, mm, and its SD.
     anchor_mm: f64,
-    anchor_var: f64,
-    d: f64,
-    energy: &EnergyRate,
+    anchor_sd: f64,
+    /// Energy since the anchor, MJ.
+    energy_since_anchor_mj: f64,
+    energy: EnergyRate,
+    /// Log-SD of the rate's drift from today on.
     drift_sd: f64,
     today_day: f64,
-    settings: &ForecastSettings,
-) -> Option<DueDistribution> {
+}
+
+impl DueInputs {
+    /// Days from today to the minimum for one point of the integral: `zk`, `za`, `zm`, `zf`
+    /// standard normal scores of the rate, the anchor, the mean daily energy and the rate's
+    /// drift; `passage` draws the inverse Gaussian passage time. `None`: already at the minimum.
+    fn days(&self, zk: f64, za: f64, zm: f64, zf: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+        let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
+        let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
+        if margin <= 0.0 {
+            return None;
+        }
+        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
+        let remaining_mj = margin / (k * (self.drift_sd * zf).exp());
+        let mean = self.energy.mean_mj_per_day;
+        let mu = (mean + self.energy.mean_variance.max(0.0).sqrt() * zm).max(0.05 * mean);
+        Some(match FirstPassage::new(remaining_mj, mu, self.energy.variance_mj2_per_day) {
+            Ok(fp) => passage(&fp),
+            Err(_) => remaining_mj / mu,
+        })
+    }
+}
+
+/// The due-day distribution from the Sobol points of [`crate::quasi_random`] (module docs):
+/// coordinates 1-4 are the rate, the mean daily energy, the rate's drift and the anchor; 5 and
+/// 6 draw the passage time by Michael, Schucany & Haas (1976).
+fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution> {
+    let scores = NormalScores::cached(points);
+    let mut out = Vec::with_capacity(scores.points.len());
+    for (z, u) in scores.points.iter().zip(&scores.cells) {
+        let days = inputs.days(z[0], z[3], z[1], z[2], |fp| fp.transform(z[4] * z[4], u[5]));
+        out.push(inputs.today_day + days.unwrap_or(0.0));
+    }
+    DueDistribution::from_draws(out)
+}
+
+/// The due-day distribution by seeded pseudo-random draws (the earlier method, a reference for
+/// [`quasi_random_due`]). The draws depend on the seed (set per vehicle by the caller), the
+/// axle and the component only, never on the data or the clock.
+fn monte_carlo_due(history: &PartHistory, inputs: &DueInputs, settings: &ForecastSettings) -> Option<DueDistribution> {
     let component_code: u64 = match history.component {
         crate::domain::Component::Friction => 1,
         crate::domain::Component::Disc => 2,
@@ -484,32 +543,14 @@ fn monte_carlo_due(
     let seed = settings.seed ^ (u64::from(history.axle_index).wrapping_mul(0x9E37_79B9_7F4A_7C15)) ^ (component_code << 56);
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let draws = settings.monte_carlo_draws.max(DUE_QUANTILES);
-    let k_sd = rate.variance.max(0.0).sqrt();
-    let a_sd = anchor_var.max(0.0).sqrt();
-    let mu_sd = energy.mean_variance.max(0.0).sqrt();
-    let mu_floor = 0.05 * energy.mean_mj_per_day;
-    let k_floor = 0.05 * rate.mean;
     let mut out = Vec::with_capacity(draws);
     for _ in 0..draws {
         let zk: f64 = rng.sample(StandardNormal);
         let za: f64 = rng.sample(StandardNormal);
         let zm: f64 = rng.sample(StandardNormal);
         let zf: f64 = rng.sample(StandardNormal);
-        let k = (rate.mean + k_sd * zk).max(k_floor);
-        let thickness = anchor_mm + a_sd * za - k * d;
-        let margin = thickness - history.min_thickness_mm;
-        if margin <= 0.0 {
-            out.push(today_day);
-            continue;
-        }
-        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
-        let remaining_mj = margin / (k * (drift_sd * zf).exp());
-        let mu = (energy.mean_mj_per_day + mu_sd * zm).max(mu_floor);
-        let days = match FirstPassage::new(remaining_mj, mu, energy.variance_mj2_per_day) {
-            Ok(fp) => fp.sample(&mut rng),
-            Err(_) => remaining_mj / mu,
-        };
-        out.push(today_day + days);
+        let days = inputs.days(zk, za, zm, zf, |fp| fp.sample(&mut rng));
+        out.push(inputs.today_day + days.unwrap_or(0.0));
     }
     DueDistribution::from_draws(out)
 }
