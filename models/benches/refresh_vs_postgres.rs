@@ -15,7 +15,8 @@
 //! (4 MB) and then with `work_mem = '1GB'`. The query returns the count and sum of the slopes,
 //! so every slope is computed but 400,000 rows need not cross the socket.
 //!
-//! The refresh is `pipeline::forecast_parts` on both cores (rayon), median of 3 rounds; the
+//! The refresh is `pipeline::forecast_parts` on both cores (rayon), median of 3 rounds, as the
+//! service's refresh runs it (no chart trajectories); with `BRAKELEDGER_BENCH_ONE_THREAD=1` the
 //! same on one thread is printed beside it.
 
 #![allow(missing_docs)]
@@ -224,7 +225,8 @@ fn main() {
     // `cargo bench` passes `--bench`; nothing else is read from the command line.
     let parts = std::env::var("BRAKELEDGER_BENCH_PARTS").ok().and_then(|v| v.parse().ok()).unwrap_or(DEFAULT_PARTS);
     let (inputs, today) = repeated_fleet_inputs(parts);
-    let settings = ForecastSettings::default();
+    // As the service's refresh runs it: bands kept whole, no chart trajectories.
+    let settings = ForecastSettings { with_trajectory: false, ..ForecastSettings::default() };
     let (csv, rows) = inspection_csv(&inputs);
     println!("{parts} parts, {rows} inspection points, {} threads", rayon::current_num_threads());
 
@@ -242,13 +244,15 @@ fn main() {
     });
 
     let (refresh_s, dated) = time_refresh(&inputs, today, &settings);
-    let single = rayon::ThreadPoolBuilder::new().num_threads(1).build().map(|pool| pool.install(|| time_refresh(&inputs, today, &settings).0));
+    let single = std::env::var_os("BRAKELEDGER_BENCH_ONE_THREAD")
+        .and_then(|_| rayon::ThreadPoolBuilder::new().num_threads(1).build().ok())
+        .map(|pool| pool.install(|| time_refresh(&inputs, today, &settings).0));
 
     println!();
     println!("| what | time | ratio to full refresh |");
     println!("|---|---|---|");
     println!("| brakeledger full refresh (fit, pool, bands; {} threads), {dated} parts dated | {:.3} s | 1.00 |", rayon::current_num_threads(), refresh_s);
-    if let Ok(single_s) = single {
+    if let Some(single_s) = single {
         println!("| the same on one thread | {single_s:.3} s | {:.2} |", single_s / refresh_s);
     }
     match postgres {

@@ -183,13 +183,17 @@ fn own_estimate(
     autocorrelation: f64,
     settings: &ForecastSettings,
 ) -> (Option<(f64, f64, u32)>, f64) {
+    let refitted;
     let fitted = match own_fit {
-        Some(f) => Some(f.clone()),
-        None => fit_part_any_sign(history, settings).ok(),
+        Some(f) => Some(f),
+        None => {
+            refitted = fit_part_any_sign(history, settings).ok();
+            refitted.as_ref()
+        }
     };
-    if let Some(fit) = fitted.filter(valid_fit) {
-        let variance = own_rate_variance(&fit, sigma0, autocorrelation, settings);
-        let sigma = shrunk_residual_variance(&fit, sigma0, settings).sqrt();
+    if let Some(fit) = fitted.filter(|f| valid_fit(f)) {
+        let variance = own_rate_variance(fit, sigma0, autocorrelation, settings);
+        let sigma = shrunk_residual_variance(fit, sigma0, settings).sqrt();
         return (Some((fit.rate_mm_per_mj, variance, fit.inspections_used)), sigma);
     }
     // Too few inspections for a fit with residual degrees of freedom: the closed-form slope
@@ -454,6 +458,10 @@ pub fn forecast_part(
         notes.push("the due-date integral produced no finite date".into());
     }
     let median_due = outlook.due.as_ref().map_or(today_day, |q| q.at(0.5));
+    if !settings.with_trajectory {
+        outlook.notes = notes;
+        return outlook;
+    }
     outlook.trajectory = trajectory(
         today_day,
         median_due,

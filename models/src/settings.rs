@@ -16,6 +16,10 @@ pub enum BandSampling {
     PseudoRandom,
 }
 
+fn default_true() -> bool {
+    true
+}
+
 fn default_quasi_random_points() -> usize {
     128
 }
@@ -73,6 +77,10 @@ pub struct ForecastSettings {
     pub max_residual_autocorrelation: f64,
     /// Fewest vehicles with both a pad and a rotor fit before a rotor borrows from its pad.
     pub min_coupling_vehicles: usize,
+    /// Compute the thickness trajectory (for charts). A refresh that stores forecasts without
+    /// their trajectories turns it off.
+    #[serde(default = "default_true")]
+    pub with_trajectory: bool,
     /// Longest trajectory, days.
     pub trajectory_cap_days: f64,
     /// Most trajectory points (the step grows beyond daily to respect it).
@@ -99,6 +107,7 @@ impl Default for ForecastSettings {
             between_sd_floor_fraction: 0.10,
             max_residual_autocorrelation: 0.9,
             min_coupling_vehicles: 5,
+            with_trajectory: true,
             trajectory_cap_days: 3.0 * 365.0,
             trajectory_max_points: 200,
         }
