@@ -206,19 +206,32 @@ fn how_to_get_postgres(reason: &str) {
     println!("BRAKELEDGER_PG_BIN at a directory holding initdb, pg_ctl and psql.");
 }
 
-/// Median wall time of the full refresh, seconds.
-fn time_refresh(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> (f64, usize) {
+/// CPU time of this process so far (user + system, all threads), seconds, from
+/// `/proc/self/stat` (clock ticks of 1/100 s); NaN where that file is missing.
+fn process_cpu_s() -> f64 {
+    let Ok(stat) = std::fs::read_to_string("/proc/self/stat") else { return f64::NAN };
+    // Fields after the command name (which is in parentheses): utime and stime are 14 and 15.
+    let after = stat.rsplit(')').next().unwrap_or("");
+    let fields: Vec<&str> = after.split_whitespace().collect();
+    let ticks = |i: usize| fields.get(i).and_then(|f| f.parse::<f64>().ok()).unwrap_or(f64::NAN);
+    (ticks(11) + ticks(12)) / 100.0
+}
+
+/// Median wall time and median CPU time of the full refresh, seconds, and the parts dated.
+fn time_refresh(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> (f64, f64, usize) {
     let mut dated = 0;
-    let times = (0..ROUNDS)
+    let (walls, cpus): (Vec<f64>, Vec<f64>) = (0..ROUNDS)
         .map(|_| {
+            let cpu = process_cpu_s();
             let started = Instant::now();
             let results = forecast_parts(inputs, today, settings);
             let elapsed = started.elapsed().as_secs_f64();
             dated = results.iter().filter(|r| r.outlook.due.is_some()).count();
-            elapsed
+            drop(results);
+            (elapsed, process_cpu_s() - cpu)
         })
-        .collect();
-    (median(times), dated)
+        .unzip();
+    (median(walls), median(cpus), dated)
 }
 
 fn main() {
@@ -226,7 +239,7 @@ fn main() {
     let parts = std::env::var("BRAKELEDGER_BENCH_PARTS").ok().and_then(|v| v.parse().ok()).unwrap_or(DEFAULT_PARTS);
     let (inputs, today) = repeated_fleet_inputs(parts);
     // As the service's refresh runs it: bands kept whole, no chart trajectories.
-    let settings = ForecastSettings { with_trajectory: false, ..ForecastSettings::default() };
+    let settings = ForecastSettings { with_trajectory: false, quasi_random_points: std::env::var("QRP").ok().and_then(|v| v.parse().ok()).unwrap_or(128), ..ForecastSettings::default() };
     let (csv, rows) = inspection_csv(&inputs);
     println!("{parts} parts, {rows} inspection points, {} threads", rayon::current_num_threads());
 
@@ -243,7 +256,12 @@ fn main() {
         Ok((copy_s, default, raised, version.lines().nth(2).unwrap_or("").trim().to_owned()))
     });
 
-    let (refresh_s, dated) = time_refresh(&inputs, today, &settings);
+    let (refresh_s, refresh_cpu_s, dated) = time_refresh(&inputs, today, &settings);
+    let cpu = process_cpu_s();
+    let started = Instant::now();
+    let (fits, priors) = brakeledger_models::pipeline::fit_and_pool(&inputs, &settings);
+    let fit_pool = (started.elapsed().as_secs_f64(), process_cpu_s() - cpu);
+    drop((fits, priors));
     let single = std::env::var_os("BRAKELEDGER_BENCH_ONE_THREAD")
         .and_then(|_| rayon::ThreadPoolBuilder::new().num_threads(1).build().ok())
         .map(|pool| pool.install(|| time_refresh(&inputs, today, &settings).0));
@@ -251,7 +269,12 @@ fn main() {
     println!();
     println!("| what | time | ratio to full refresh |");
     println!("|---|---|---|");
-    println!("| brakeledger full refresh (fit, pool, bands; {} threads), {dated} parts dated | {:.3} s | 1.00 |", rayon::current_num_threads(), refresh_s);
+    println!(
+        "| brakeledger full refresh (fit, pool, bands; {} threads), {dated} parts dated; CPU {refresh_cpu_s:.2} s = {:.1} µs per part | {refresh_s:.3} s | 1.00 |",
+        rayon::current_num_threads(),
+        refresh_cpu_s / parts as f64 * 1e6
+    );
+    println!("| of which fits and priors alone; CPU {:.2} s = {:.1} µs per part | {:.3} s | {:.2} |", fit_pool.1, fit_pool.1 / parts as f64 * 1e6, fit_pool.0, fit_pool.0 / refresh_s);
     if let Some(single_s) = single {
         println!("| the same on one thread | {single_s:.3} s | {:.2} |", single_s / refresh_s);
     }

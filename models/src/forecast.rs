@@ -68,7 +68,7 @@ impl DueDistribution {
         if draws.is_empty() {
             return None;
         }
-        draws.sort_by(f64::total_cmp);
+        sort_days(&mut draws);
         let n = draws.len();
         let quantile_days = (1..=DUE_QUANTILES)
             .map(|i| {
@@ -109,6 +109,23 @@ impl DueDistribution {
     pub fn band(&self, level: f64) -> (f64, f64, f64) {
         let level = if level.is_nan() { 0.8 } else { level.clamp(0.0, 0.98) };
         (self.at(0.5 - level / 2.0), self.at(0.5), self.at(0.5 + level / 2.0))
+    }
+}
+
+/// Sorts `values` (no NaN) ascending, as `f64::total_cmp` would, by sorting their bit patterns
+/// as integers (the order-preserving map of the IEEE 754 total order: flip every bit below the
+/// sign of a negative value), which is about twice as fast for the hundred-odd values of a
+/// forecast.
+fn sort_days(values: &mut [f64]) {
+    let key = |v: f64| {
+        let bits = v.to_bits() as i64;
+        bits ^ (((bits >> 63) as u64) >> 1) as i64
+    };
+    let mut keys: Vec<i64> = values.iter().map(|v| key(*v)).collect();
+    keys.sort_unstable();
+    for (v, k) in values.iter_mut().zip(keys) {
+        // The map is its own inverse.
+        *v = f64::from_bits((k ^ (((k >> 63) as u64) >> 1) as i64) as u64);
     }
 }
 
@@ -507,17 +524,18 @@ struct DueInputs {
 }
 
 impl DueInputs {
-    /// Days from today to the minimum for one point of the integral: `zk`, `za`, `zm`, `zf`
-    /// standard normal scores of the rate, the anchor, the mean daily energy and the rate's
-    /// drift; `passage` draws the inverse Gaussian passage time. `None`: already at the minimum.
-    fn days(&self, zk: f64, za: f64, zm: f64, zf: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+    /// Days from today to the minimum for one point of the integral: `zk`, `za`, `zm` standard
+    /// normal scores of the rate, the anchor and the mean daily energy, `drift` the factor
+    /// `exp(drift_sd·z)` of the rate's drift; `passage` draws the inverse Gaussian passage
+    /// time. `None`: already at the minimum.
+    fn days(&self, zk: f64, za: f64, zm: f64, drift: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
         let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
         let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
         if margin <= 0.0 {
             return None;
         }
         // The rate from today on drifts around the rate so far (lognormal, median-preserving).
-        let remaining_mj = margin / (k * (self.drift_sd * zf).exp());
+        let remaining_mj = margin / (k * drift);
         let mean = self.energy.mean_mj_per_day;
         let mu = (mean + self.energy.mean_variance.max(0.0).sqrt() * zm).max(0.05 * mean);
         Some(match FirstPassage::new(remaining_mj, mu, self.energy.variance_mj2_per_day) {
@@ -532,9 +550,10 @@ impl DueInputs {
 /// 6 draw the passage time by Michael, Schucany & Haas (1976).
 fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution> {
     let scores = NormalScores::cached(points);
+    let drift = scores.exp_scaled(2, inputs.drift_sd);
     let mut out = Vec::with_capacity(scores.points.len());
-    for (z, u) in scores.points.iter().zip(&scores.cells) {
-        let days = inputs.days(z[0], z[3], z[1], z[2], |fp| fp.transform(z[4] * z[4], u[5]));
+    for ((z, u), f) in scores.points.iter().zip(&scores.cells).zip(drift.iter()) {
+        let days = inputs.days(z[0], z[3], z[1], *f, |fp| fp.transform(z[4] * z[4], u[5]));
         out.push(inputs.today_day + days.unwrap_or(0.0));
     }
     DueDistribution::from_draws(out)
@@ -557,10 +576,24 @@ fn monte_carlo_due(history: &PartHistory, inputs: &DueInputs, settings: &Forecas
         let za: f64 = rng.sample(StandardNormal);
         let zm: f64 = rng.sample(StandardNormal);
         let zf: f64 = rng.sample(StandardNormal);
-        let days = inputs.days(zk, za, zm, zf, |fp| fp.sample(&mut rng));
+        let days = inputs.days(zk, za, zm, (inputs.drift_sd * zf).exp(), |fp| fp.sample(&mut rng));
         out.push(inputs.today_day + days.unwrap_or(0.0));
     }
     DueDistribution::from_draws(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::sort_days;
+
+    #[test]
+    fn sorting_by_bit_pattern_is_the_total_order() {
+        let mut values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
+        let mut expected = values.clone();
+        expected.sort_by(f64::total_cmp);
+        sort_days(&mut values);
+        assert_eq!(values.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
+    }
 }
 
 #[allow(clippy::too_many_arguments)]

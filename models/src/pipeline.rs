@@ -7,6 +7,7 @@
 //! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
 //! prior it is shrunk toward.
 
+use std::borrow::Borrow;
 use std::collections::HashMap;
 
 use rayon::prelude::*;
@@ -57,11 +58,12 @@ pub struct PartResult {
 
 /// Estimates every group's prior from `(group, vehicle key, own fit)` triples, then the pad
 /// coupling of each rotor (drum) group from the pad (lining) group of the same class and axle.
-pub fn estimate_group_priors(
-    fits: impl IntoIterator<Item = (GroupKey, u64, WearFit)>,
+/// The fits may be owned or borrowed (`WearFit` or `&WearFit`).
+pub fn estimate_group_priors<F: Borrow<WearFit>>(
+    fits: impl IntoIterator<Item = (GroupKey, u64, F)>,
     settings: &ForecastSettings,
 ) -> HashMap<GroupKey, WearPrior> {
-    let mut groups: HashMap<GroupKey, Vec<(u64, WearFit)>> = HashMap::new();
+    let mut groups: HashMap<GroupKey, Vec<(u64, F)>> = HashMap::new();
     for (group, key, fit) in fits {
         groups.entry(group).or_default().push((key, fit));
     }
@@ -95,7 +97,7 @@ pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<O
     let triples = inputs
         .iter()
         .zip(&fits)
-        .filter_map(|(input, fit)| fit.clone().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
+        .filter_map(|(input, fit)| fit.as_ref().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
     let priors = estimate_group_priors(triples, settings);
     (fits, priors)
 }

@@ -105,6 +105,27 @@ impl NormalScores {
         Self { points, cells }
     }
 
+    /// `exp(scale·zᵢ)` for every point's score `zᵢ` in `column` (a lognormal factor), made once
+    /// per thread for the last few scales asked for (a group's parts share one scale).
+    pub fn exp_scaled(&self, column: usize, scale: f64) -> Rc<[f64]> {
+        thread_local! {
+            static CACHE: RefCell<Vec<(usize, usize, u64, Rc<[f64]>)>> = const { RefCell::new(Vec::new()) };
+        }
+        let key = (self.points.len(), column, scale.to_bits());
+        CACHE.with(|cache| {
+            let mut cache = cache.borrow_mut();
+            if let Some(found) = cache.iter().find(|e| (e.0, e.1, e.2) == key) {
+                return Rc::clone(&found.3);
+            }
+            let made: Rc<[f64]> = self.points.iter().map(|p| (scale * p[column.min(DIMENSIONS - 1)]).exp()).collect();
+            if cache.len() >= 16 {
+                cache.remove(0);
+            }
+            cache.push((key.0, key.1, key.2, Rc::clone(&made)));
+            made
+        })
+    }
+
     /// The scores for `count` points (rounded up to a power of two), made once per thread and
     /// count and shared after.
     pub fn cached(count: usize) -> Rc<Self> {

@@ -208,7 +208,7 @@ pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) 
         let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
         vehicle.parts.iter().filter_map(move |part| {
             let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
-            part.own_fit.clone().map(|fit| (group, key, fit))
+            part.own_fit.as_ref().map(|fit| (group, key, fit))
         })
     });
     let mut groups: Vec<GroupPrior> = estimate_group_priors(fits, settings)
