@@ -239,7 +239,7 @@ fn main() {
     let parts = std::env::var("BRAKELEDGER_BENCH_PARTS").ok().and_then(|v| v.parse().ok()).unwrap_or(DEFAULT_PARTS);
     let (inputs, today) = repeated_fleet_inputs(parts);
     // As the service's refresh runs it: bands kept whole, no chart trajectories.
-    let settings = ForecastSettings { with_trajectory: false, quasi_random_points: std::env::var("QRP").ok().and_then(|v| v.parse().ok()).unwrap_or(128), ..ForecastSettings::default() };
+    let settings = ForecastSettings { with_trajectory: false, ..ForecastSettings::default() };
     let (csv, rows) = inspection_csv(&inputs);
     println!("{parts} parts, {rows} inspection points, {} threads", rayon::current_num_threads());
 
