@@ -29,7 +29,7 @@ use crate::config::ForecastConfig;
 use crate::error::{ServiceError, ServiceResult};
 use crate::state::{AppState, ForecastChange};
 use crate::store::{
-    DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, StaleMark, Store, StoredPart, VehicleForecasts,
+    DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, Store, StoredPart, VehicleForecasts,
     VehicleRecord, MS_PER_DAY,
 };
 
