@@ -157,8 +157,9 @@ pub struct ComputedPart {
 
 /// Computes every part of a vehicle at `now_ms` with the fleet's priors (pads first, rotors
 /// borrowing from their pads; the vehicle left out of the priors it is shrunk toward). The
-/// Monte Carlo seed is the vehicle's own (stable), so repeated calls agree and new data moves
-/// dates smoothly.
+/// due-date integral uses points that do not depend on the data or the clock (quasi-random by
+/// default; with pseudo-random draws the seed is the vehicle's own), so repeated calls agree
+/// and new data moves dates smoothly.
 pub fn compute_vehicle(data: &VehicleData, priors: &FleetPriors, now_ms: i64, settings: &ForecastSettings) -> Vec<ComputedPart> {
     let today_day = now_ms as f64 / MS_PER_DAY as f64;
     let ids = [data.vehicle.fleet_id.as_str(), data.vehicle.vehicle_id.as_str()];
