@@ -135,51 +135,38 @@ impl Postgres {
         Ok(pg)
     }
 
-    /// Runs `sql` through psql; `stdin` is fed to it (for COPY). Returns stdout.
-    fn psql(&self, sql: &str, stdin: Option<&str>) -> Result<String, String> {
+    /// Runs psql against the cluster with `args`, feeding it `stdin`; returns its stdout.
+    fn run_psql(&self, args: &[&str], stdin: Option<&str>) -> Result<String, String> {
         let mut child = self
             .command("psql")
             .arg("-h")
             .arg(self.dir.path())
-            .args(["-p", "5432", "-U", "bench", "-d", "postgres", "-X", "-q", "-v", "ON_ERROR_STOP=1", "-c", sql])
+            .args(["-p", "5432", "-U", "bench", "-d", "postgres", "-X", "-q", "-v", "ON_ERROR_STOP=1"])
+            .args(args)
             .stdin(Stdio::piped())
             .stdout(Stdio::piped())
             .stderr(Stdio::piped())
             .spawn()
             .map_err(|e| format!("psql: {e}"))?;
-        if let Some(mut pipe) = child.stdin.take() {
-            if let Some(data) = stdin {
-                pipe.write_all(data.as_bytes()).map_err(|e| format!("writing to psql: {e}"))?;
-            }
+        if let (Some(mut pipe), Some(data)) = (child.stdin.take(), stdin) {
+            pipe.write_all(data.as_bytes()).map_err(|e| format!("writing to psql: {e}"))?;
         }
         let out = child.wait_with_output().map_err(|e| format!("psql: {e}"))?;
         if !out.status.success() {
-            return Err(format!("psql failed on {sql:?}: {}", String::from_utf8_lossy(&out.stderr)));
+            return Err(format!("psql {args:?} failed: {}", String::from_utf8_lossy(&out.stderr)));
         }
         Ok(String::from_utf8_lossy(&out.stdout).into_owned())
+    }
+
+    /// Runs `sql`; `stdin` is fed to it (for COPY). Returns stdout.
+    fn psql(&self, sql: &str, stdin: Option<&str>) -> Result<String, String> {
+        self.run_psql(&["-c", sql], stdin)
     }
 
     /// Median server time of `query` over [`ROUNDS`] runs after `setup`, ms, by psql's `\timing`.
     fn time_query(&self, setup: &str, query: &str) -> Result<(f64, String), String> {
         let script = format!("{setup}\n\\timing on\n{}", vec![query; ROUNDS].join("\n"));
-        let mut child = self
-            .command("psql")
-            .arg("-h")
-            .arg(self.dir.path())
-            .args(["-p", "5432", "-U", "bench", "-d", "postgres", "-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1"])
-            .stdin(Stdio::piped())
-            .stdout(Stdio::piped())
-            .stderr(Stdio::piped())
-            .spawn()
-            .map_err(|e| format!("psql: {e}"))?;
-        if let Some(mut pipe) = child.stdin.take() {
-            pipe.write_all(script.as_bytes()).map_err(|e| format!("writing to psql: {e}"))?;
-        }
-        let out = child.wait_with_output().map_err(|e| format!("psql: {e}"))?;
-        let text = String::from_utf8_lossy(&out.stdout).into_owned();
-        if !out.status.success() {
-            return Err(format!("psql failed: {}", String::from_utf8_lossy(&out.stderr)));
-        }
+        let text = self.run_psql(&["-A", "-t"], Some(&script))?;
         let times: Vec<f64> = text
             .lines()
             .filter_map(|l| l.strip_prefix("Time: "))
