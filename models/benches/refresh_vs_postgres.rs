@@ -165,7 +165,7 @@ impl Postgres {
 
     /// Median server time of `query` over [`ROUNDS`] runs after `setup`, ms, by psql's `\timing`.
     fn time_query(&self, setup: &str, query: &str) -> Result<(f64, String), String> {
-        let script = format!("{setup}\n\\timing on\n{}", vec![query; ROUNDS].join("\n"));
+        let script = format!("{setup}\n\\timing on\n{}", [query; ROUNDS].join("\n"));
         let text = self.run_psql(&["-A", "-t"], Some(&script))?;
         let times: Vec<f64> = text
             .lines()

@@ -589,20 +589,6 @@ fn monte_carlo_due(history: &PartHistory, inputs: &DueInputs, settings: &Forecas
     DueDistribution::from_draws(out)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::sort_days;
-
-    #[test]
-    fn sorting_by_bit_pattern_is_the_total_order() {
-        let mut values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
-        let mut expected = values.clone();
-        expected.sort_by(f64::total_cmp);
-        sort_days(&mut values);
-        assert_eq!(values.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
-    }
-}
-
 #[allow(clippy::too_many_arguments)]
 fn trajectory(
     today_day: f64,
@@ -649,4 +635,18 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
         }
     }
     base ^ hash
+}
+
+#[cfg(test)]
+mod tests {
+    use super::sort_days;
+
+    #[test]
+    fn sorting_by_bit_pattern_is_the_total_order() {
+        let mut values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
+        let mut expected = values.clone();
+        expected.sort_by(f64::total_cmp);
+        sort_days(&mut values);
+        assert_eq!(values.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
+    }
 }

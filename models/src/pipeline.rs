@@ -111,7 +111,9 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     for (i, input) in inputs.iter().enumerate() {
         by_vehicle.entry(input.vehicle_id.as_str()).or_default().push(i);
     }
-    let vehicles: Vec<(&str, Vec<(usize, Option<WearFit>)>)> = by_vehicle
+    // Each vehicle with its parts' indices and own fits.
+    type Members = Vec<(usize, Option<WearFit>)>;
+    let vehicles: Vec<(&str, Members)> = by_vehicle
         .into_iter()
         .map(|(vehicle_id, indices)| (vehicle_id, indices.into_iter().map(|i| (i, fits[i].take())).collect()))
         .collect();

@@ -108,8 +108,10 @@ impl NormalScores {
     /// `exp(scale·zᵢ)` for every point's score `zᵢ` in `column` (a lognormal factor), made once
     /// per thread for the last few scales asked for (a group's parts share one scale).
     pub fn exp_scaled(&self, column: usize, scale: f64) -> Rc<[f64]> {
+        /// (point count, column, scale bits) and the factors.
+        type Entry = (usize, usize, u64, Rc<[f64]>);
         thread_local! {
-            static CACHE: RefCell<Vec<(usize, usize, u64, Rc<[f64]>)>> = const { RefCell::new(Vec::new()) };
+            static CACHE: RefCell<Vec<Entry>> = const { RefCell::new(Vec::new()) };
         }
         let key = (self.points.len(), column, scale.to_bits());
         CACHE.with(|cache| {
