@@ -133,6 +133,12 @@ pub trait Store: Send + Sync + 'static {
     fn stale_vehicles(&self, limit: usize) -> StoreResult<Vec<StaleMark>>;
     /// Number of stale vehicles of one fleet.
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64>;
+    /// Whether one vehicle's forecasts wait to be recomputed (a write since they were
+    /// computed). The default looks through the marks; an engine with keyed marks (sled's)
+    /// reads one key.
+    fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        Ok(self.stale_vehicles(usize::MAX)?.iter().any(|m| m.fleet_id == fleet_id && m.vehicle_id == vehicle_id))
+    }
     /// Number of stale vehicles in the whole store, for the metrics sampler every few seconds.
     /// The default lists them; an engine that keeps a count (as sled's does) answers from it.
     fn count_all_stale(&self) -> StoreResult<u64> {

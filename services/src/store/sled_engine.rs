@@ -735,6 +735,11 @@ impl Engine {
         Ok(())
     }
 
+    /// See [`Store`].
+    pub fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        Ok(self.stale.contains_key(vehicle_key(fleet_id, vehicle_id))?)
+    }
+
     /// Every stale mark in the store, from the count kept as marks come and go (no scan).
     pub fn count_all_stale(&self) -> u64 {
         self.stale_marks.load(Ordering::Relaxed)

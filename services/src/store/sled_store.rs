@@ -398,6 +398,10 @@ impl Store for SledStore {
         self.read(|e| e.count_stale(fleet_id))
     }
 
+    fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        self.read(|e| e.is_stale(fleet_id, vehicle_id))
+    }
+
     fn count_all_stale(&self) -> StoreResult<u64> {
         self.read(|e| Ok(e.count_all_stale()))
     }
