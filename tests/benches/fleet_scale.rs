@@ -29,7 +29,7 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use brakeledger_proto::v1 as pb;
-use brakeledger_tests::{connect, now_s, trip, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
+use brakeledger_tests::{connect, now_s, trip, trip_record, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
 use prost::Message;
 use tonic::transport::Channel;
 
@@ -110,24 +110,6 @@ fn dir_bytes(dir: &Path) -> (u64, u64) {
 
 fn percentile(sorted: &[f64], p: f64) -> f64 {
     sorted[((sorted.len() as f64 - 1.0) * p).round() as usize]
-}
-
-fn trip_record(t: &pb::TripSummary) -> brakeledger::store::TripRecord {
-    brakeledger::store::TripRecord {
-        fleet_id: t.fleet_id.clone(),
-        vehicle_id: t.vehicle_id.clone(),
-        trip_id: t.trip_id.clone(),
-        start_ms: t.start_time.as_ref().map_or(0, |s| s.seconds * 1000),
-        end_ms: t.end_time.as_ref().map_or(0, |s| s.seconds * 1000),
-        distance_m: t.distance_m,
-        friction_energy_j: t.friction_energy_j,
-        // The configured shares of `two_axle_vehicle`, applied as the service does.
-        axle_energy_j: vec![0.65 * t.friction_energy_j, 0.35 * t.friction_energy_j],
-        axle_split_reported: false,
-        brake_applications: t.brake_applications,
-        regen_energy_j: None,
-        hot_energy_j: 0.0,
-    }
 }
 
 /// The brakeledger store alone (day blocks, trip-id index, roll-ups, totals; no forecasts)

@@ -28,7 +28,8 @@ BRAKELEDGER_TOKENS=token-a,token-b (preferred: from a secret store), every brake
 must carry `authorization: Bearer <token>`; clients pass it with --token or BRAKELEDGER_TOKEN.
 Health and reflection stay open.
 
-  [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, batch_vehicles
+  [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, batch_vehicles,
+              materialised_max_age_s
   [ingest]    chunk_trips, max_listed_rejections, max_rejection_groups, ack_delay_ms
   [http2]     stream_window_bytes, connection_window_bytes, max_concurrent_streams
   [shutdown]  drain_deadline_ms

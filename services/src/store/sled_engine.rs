@@ -16,7 +16,7 @@ use sled::Transactional;
 use super::ledger::{RecordKind, Tallies};
 use super::records::RecordKind as ServiceKind;
 use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, vehicle_key, vehicle_prefix};
-use super::trip_blocks::{self, BlockTrip, IdEntry, SEGMENT_ENTRIES};
+use super::trip_blocks::{self, IdEntry, SEGMENT_ENTRIES};
 use super::*;
 
 /// Schema version this build writes. Opening a database with a higher version is refused.
@@ -233,11 +233,11 @@ impl Engine {
     /// Writes the blocks and the trip-id index of one vehicle's trips (migration and restore of
     /// schema-3 data), in the trips' order.
     fn write_vehicle_blocks(&self, prefix: &[u8], trips: Vec<TripRecord>) -> StoreResult<()> {
-        let mut days: BTreeMap<i64, Vec<BlockTrip>> = BTreeMap::new();
+        let mut days: BTreeMap<i64, Vec<TripRecord>> = BTreeMap::new();
         let mut entries = Vec::with_capacity(trips.len());
         for trip in &trips {
             let day = utc_day(trip.end_ms);
-            days.entry(day).or_default().push(BlockTrip::of(trip));
+            days.entry(day).or_default().push(trip.clone());
             entries.push(IdEntry { hash: trip_blocks::id_hash(&trip.trip_id), day });
         }
         let mut batch = sled::Batch::default();
@@ -598,7 +598,7 @@ impl Engine {
         for entry in self.trip_blocks.scan_prefix(vehicle_prefix(fleet_id, vehicle_id)) {
             let (key, value) = entry?;
             let day = keys::day_of_key(&key)?;
-            out.extend(trip_blocks::decode_block(day, checked_body(&value)?)?.iter().map(|t| t.record(fleet_id, vehicle_id)));
+            out.extend(trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(&value)?)?);
         }
         Ok(out)
     }
@@ -903,7 +903,7 @@ impl Engine {
         let (fleet_id, vehicle_id, end_ms, trip_id) = trip_blocks::parse_trip_key(key)?;
         let day = utc_day(end_ms);
         match self.trip_blocks.get(day_key(fleet_id, vehicle_id, day))? {
-            Some(bytes) => Ok(trip_blocks::decode_block(day, checked_body(&bytes)?)?.iter().any(|t| t.trip_id == trip_id && t.end_ms == end_ms)),
+            Some(bytes) => Ok(trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(&bytes)?)?.iter().any(|t| t.trip_id == trip_id && t.end_ms == end_ms)),
             None => Ok(false),
         }
     }
@@ -1070,7 +1070,7 @@ struct VehicleTrips {
     open_segment: Vec<IdEntry>,
     new_entries: Vec<IdEntry>,
     /// Blocks read or created, by day, and whether this write changed them.
-    blocks: BTreeMap<i64, (Vec<BlockTrip>, bool)>,
+    blocks: BTreeMap<i64, (Vec<TripRecord>, bool)>,
     /// Ids added by this write.
     added: HashSet<String>,
 }
@@ -1110,10 +1110,11 @@ impl VehicleTrips {
         key
     }
 
-    fn block(&mut self, blocks: &impl ReadKey, day: i64) -> TxResult<&mut (Vec<BlockTrip>, bool)> {
+    fn block(&mut self, blocks: &impl ReadKey, day: i64) -> TxResult<&mut (Vec<TripRecord>, bool)> {
         if !self.blocks.contains_key(&day) {
+            // The ids are the key's; blocks read here are only searched and re-encoded.
             let trips = match blocks.read_key(&self.block_key(day))? {
-                Some(bytes) => trip_blocks::decode_block(day, checked_body(&bytes).map_err(abort)?).map_err(abort)?,
+                Some(bytes) => trip_blocks::decode_block("", "", day, checked_body(&bytes).map_err(abort)?).map_err(abort)?,
                 None => Vec::new(),
             };
             self.blocks.insert(day, (trips, false));
@@ -1139,7 +1140,7 @@ impl VehicleTrips {
         }
         let day = utc_day(trip.end_ms);
         let block = self.block(blocks, day)?;
-        block.0.push(BlockTrip::of(trip));
+        block.0.push(trip.clone());
         block.1 = true;
         self.new_entries.push(IdEntry { hash: trip_blocks::id_hash(&trip.trip_id), day });
         self.added.insert(trip.trip_id.clone());
@@ -1201,7 +1202,7 @@ fn vehicle_part_len(key: &[u8]) -> usize {
 fn tally_block(key: &[u8], value: &[u8], tallies: &mut Tallies) -> StoreResult<u64> {
     let (fleet_id, vehicle_id, _) = trip_blocks::split_vehicle_key(key)?;
     let day = keys::day_of_key(key)?;
-    let trips = trip_blocks::decode_block(day, checked_body(value)?)?;
+    let trips = trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(value)?)?;
     for trip in &trips {
         tallies.add_key(fleet_id, RecordKind::Trip, &trip_key(fleet_id, vehicle_id, trip.end_ms, &trip.trip_id));
     }

@@ -54,67 +54,6 @@ const HAS_REGEN: u8 = 2;
 const HAS_HOT: u8 = 4;
 const FROM_SHARES: u8 = 8;
 
-/// One trip as a block holds it: a [`TripRecord`] without its fleet and vehicle (the key's).
-#[derive(Debug, Clone, PartialEq)]
-pub struct BlockTrip {
-    /// Trip identifier.
-    pub trip_id: String,
-    /// Start, ms.
-    pub start_ms: i64,
-    /// End, ms.
-    pub end_ms: i64,
-    /// Distance, m.
-    pub distance_m: f64,
-    /// Friction energy, J.
-    pub friction_energy_j: f64,
-    /// Friction energy per axle, J.
-    pub axle_energy_j: Vec<f64>,
-    /// Whether the axle split came with the trip.
-    pub axle_split_reported: bool,
-    /// Brake applications.
-    pub brake_applications: u32,
-    /// Regenerated energy, J.
-    pub regen_energy_j: Option<f64>,
-    /// Hot-stop energy, J.
-    pub hot_energy_j: f64,
-}
-
-impl BlockTrip {
-    /// The block form of a trip record.
-    pub fn of(trip: &TripRecord) -> Self {
-        Self {
-            trip_id: trip.trip_id.clone(),
-            start_ms: trip.start_ms,
-            end_ms: trip.end_ms,
-            distance_m: trip.distance_m,
-            friction_energy_j: trip.friction_energy_j,
-            axle_energy_j: trip.axle_energy_j.clone(),
-            axle_split_reported: trip.axle_split_reported,
-            brake_applications: trip.brake_applications,
-            regen_energy_j: trip.regen_energy_j,
-            hot_energy_j: trip.hot_energy_j,
-        }
-    }
-
-    /// The trip record of this trip of `fleet_id`/`vehicle_id`.
-    pub fn record(&self, fleet_id: &str, vehicle_id: &str) -> TripRecord {
-        TripRecord {
-            fleet_id: fleet_id.to_owned(),
-            vehicle_id: vehicle_id.to_owned(),
-            trip_id: self.trip_id.clone(),
-            start_ms: self.start_ms,
-            end_ms: self.end_ms,
-            distance_m: self.distance_m,
-            friction_energy_j: self.friction_energy_j,
-            axle_energy_j: self.axle_energy_j.clone(),
-            axle_split_reported: self.axle_split_reported,
-            brake_applications: self.brake_applications,
-            regen_energy_j: self.regen_energy_j,
-            hot_energy_j: self.hot_energy_j,
-        }
-    }
-}
-
 /// 32-bit hash of a trip id for the index: the high half of its 64-bit FNV-1a.
 pub fn id_hash(trip_id: &str) -> u32 {
     (super::ledger::fnv1a64(trip_id.as_bytes()) >> 32) as u32
@@ -211,9 +150,10 @@ fn shares_reproduce(shares: &[f64], friction: f64, axles: &[f64]) -> bool {
     shares.len() == axles.len() && shares.iter().zip(axles).all(|(s, a)| (s * friction).to_bits() == a.to_bits())
 }
 
-/// Encodes the trips of one vehicle and UTC day (`day`) as a sealed block. Sorts them by
-/// (end, id); every trip must end on `day`.
-pub fn encode_block(day: i64, trips: &mut [BlockTrip]) -> StoreResult<Vec<u8>> {
+/// Encodes the trips of one vehicle and UTC day (`day`) as a sealed block (their fleet and
+/// vehicle ids are the block key's and are not stored). Sorts them by (end, id); every trip
+/// must end on `day`.
+pub fn encode_block(day: i64, trips: &mut [TripRecord]) -> StoreResult<Vec<u8>> {
     trips.sort_by(|a, b| (a.end_ms, &a.trip_id).cmp(&(b.end_ms, &b.trip_id)));
     let mut shares: Vec<Vec<f64>> = Vec::new();
     let mut share_of: Vec<Option<usize>> = Vec::with_capacity(trips.len());
@@ -289,8 +229,8 @@ pub fn encode_block(day: i64, trips: &mut [BlockTrip]) -> StoreResult<Vec<u8>> {
     Ok(seal(out))
 }
 
-/// Decodes a block of day `day` (its checksum already checked: pass the body).
-pub fn decode_block(day: i64, body: &[u8]) -> StoreResult<Vec<BlockTrip>> {
+/// Decodes a block of day `day` of a vehicle (its checksum already checked: pass the body).
+pub fn decode_block(fleet_id: &str, vehicle_id: &str, day: i64, body: &[u8]) -> StoreResult<Vec<TripRecord>> {
     let mut input = Reader { bytes: body, what: "a day block of trips" };
     if input.byte()? != BLOCK_VERSION {
         return Err(input.bad());
@@ -328,7 +268,9 @@ pub fn decode_block(day: i64, body: &[u8]) -> StoreResult<Vec<BlockTrip>> {
         };
         let regen_energy_j = if flags & HAS_REGEN != 0 { Some(input.f64()?) } else { None };
         let hot_energy_j = if flags & HAS_HOT != 0 { input.f64()? } else { 0.0 };
-        trips.push(BlockTrip {
+        trips.push(TripRecord {
+            fleet_id: fleet_id.to_owned(),
+            vehicle_id: vehicle_id.to_owned(),
             trip_id,
             start_ms,
             end_ms,
@@ -433,7 +375,7 @@ mod tests {
         super::super::sled_engine::checked_body(sealed).unwrap()
     }
 
-    fn any_trip(day: i64) -> impl Strategy<Value = BlockTrip> {
+    fn any_trip(day: i64) -> impl Strategy<Value = TripRecord> {
         (
             "[a-z0-9-]{1,16}",
             0i64..MS_PER_DAY,
@@ -455,7 +397,9 @@ mod tests {
                     1 => (shares.iter().map(|s| s * friction).collect(), false),
                     _ => (raw_axles, false),
                 };
-                BlockTrip {
+                TripRecord {
+                    fleet_id: "north".into(),
+                    vehicle_id: "van-1".into(),
                     trip_id,
                     start_ms: end_ms - duration,
                     end_ms,
@@ -470,9 +414,9 @@ mod tests {
             })
     }
 
-    fn same_bits(a: &BlockTrip, b: &BlockTrip) -> bool {
+    fn same_bits(a: &TripRecord, b: &TripRecord) -> bool {
         let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
-        (&a.trip_id, a.start_ms, a.end_ms, a.axle_split_reported, a.brake_applications) == (&b.trip_id, b.start_ms, b.end_ms, b.axle_split_reported, b.brake_applications)
+        (&a.fleet_id, &a.vehicle_id, &a.trip_id, a.start_ms, a.end_ms, a.axle_split_reported, a.brake_applications) == (&b.fleet_id, &b.vehicle_id, &b.trip_id, b.start_ms, b.end_ms, b.axle_split_reported, b.brake_applications)
             && bits(&[a.distance_m, a.friction_energy_j, a.hot_energy_j]) == bits(&[b.distance_m, b.friction_energy_j, b.hot_energy_j])
             && bits(&a.axle_energy_j) == bits(&b.axle_energy_j)
             && a.regen_energy_j.map(f64::to_bits) == b.regen_energy_j.map(f64::to_bits)
@@ -483,14 +427,14 @@ mod tests {
         /// whatever the ids, times and axle splits.
         #[test]
         fn blocks_round_trip_exactly(day in -1000i64..40_000, trips in prop::collection::vec(any_trip(0), 0..40)) {
-            let mut trips: Vec<BlockTrip> = trips.into_iter().map(|mut t| {
+            let mut trips: Vec<TripRecord> = trips.into_iter().map(|mut t| {
                 let shift = day * MS_PER_DAY;
                 t.end_ms += shift;
                 t.start_ms += shift;
                 t
             }).collect();
             let sealed = encode_block(day, &mut trips).unwrap();
-            let decoded = decode_block(day, body(&sealed)).unwrap();
+            let decoded = decode_block("north", "van-1", day, body(&sealed)).unwrap();
             prop_assert_eq!(decoded.len(), trips.len());
             for (a, b) in trips.iter().zip(&decoded) {
                 prop_assert!(same_bits(a, b), "{:?} != {:?}", a, b);
@@ -510,17 +454,19 @@ mod tests {
             let mut trips = trips;
             let sealed = encode_block(5, &mut trips).unwrap();
             let body = body(&sealed);
-            let _ = decode_block(5, &body[..cut.min(body.len())]);
+            let _ = decode_block("north", "van-1", 5, &body[..cut.min(body.len())]);
             let mut altered = body.to_vec();
             let at = flip % altered.len();
             altered[at] ^= 0x5a;
-            let _ = decode_block(5, &altered);
+            let _ = decode_block("north", "van-1", 5, &altered);
         }
     }
 
     #[test]
     fn a_trip_from_another_day_is_refused() {
-        let mut trips = vec![BlockTrip {
+        let mut trips = vec![TripRecord {
+            fleet_id: "north".into(),
+            vehicle_id: "van-1".into(),
             trip_id: "t".into(),
             start_ms: 0,
             end_ms: MS_PER_DAY + 5,
@@ -538,8 +484,10 @@ mod tests {
     #[test]
     fn a_typical_trip_takes_far_less_than_its_protobuf() {
         // Hourly trips of one vehicle with the configured two-axle shares applied.
-        let mut trips: Vec<BlockTrip> = (0..24)
-            .map(|h| BlockTrip {
+        let mut trips: Vec<TripRecord> = (0..24)
+            .map(|h| TripRecord {
+                fleet_id: "north".into(),
+                vehicle_id: "van-1".into(),
                 trip_id: format!("trip-{:06}", 1000 + h),
                 start_ms: h * 3_600_000 + 100_000,
                 end_ms: h * 3_600_000 + 3_100_000,
