@@ -376,4 +376,69 @@ mod tests {
         std::fs::write(&path, &bytes[..bytes.len() - 7]).unwrap();
         assert!(matches!(verify(&path), Err(BackupError::Damaged(_))), "cut short");
     }
+
+    #[test]
+    fn a_schema_3_backup_restores_its_trips_into_day_blocks() {
+        use crate::store::sled_store::SledStore;
+        use crate::store::{Store, TripRecord};
+        let trips: Vec<TripRecord> = (0..5i64)
+            .map(|n| TripRecord {
+                fleet_id: "north".into(),
+                vehicle_id: "van-1".into(),
+                trip_id: format!("t{n}"),
+                start_ms: 1_700_000_000_000 + n * 40_000_000,
+                end_ms: 1_700_000_100_000 + n * 40_000_000,
+                distance_m: 1000.0,
+                friction_energy_j: 2.0e6,
+                axle_energy_j: vec![1.3e6, 0.7e6],
+                axle_split_reported: true,
+                brake_applications: 9,
+                regen_energy_j: None,
+                hot_energy_j: 0.0,
+            })
+            .collect();
+        // A backup as schema 3 wrote it: one `trips` entry per trip and the raw `trip_ids` index.
+        let mut bytes = Vec::new();
+        let mut out = Counting { inner: &mut bytes, crc: crc32fast::Hasher::new(), bytes: 0 };
+        out.write_all(MAGIC).unwrap();
+        let trees = vec!["trips".to_owned(), "trip_ids".to_owned(), "totals".to_owned()];
+        write_frame(&mut out, b'H', &json(&Header { format_version: FORMAT_VERSION, schema_version: 3, taken_at_ms: 1, trees })).unwrap();
+        let mut tallies = Tallies::default();
+        for trip in &trips {
+            let key = super::super::keys::trip_key("north", "van-1", trip.end_ms, &trip.trip_id);
+            tallies.add_key("north", super::super::ledger::RecordKind::Trip, &key);
+            let value = super::super::trip_blocks::seal(postcard::to_stdvec(trip).unwrap());
+            let mut payload = vec![0u8];
+            payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
+            payload.extend_from_slice(&key);
+            payload.extend_from_slice(&value);
+            write_frame(&mut out, b'R', &payload).unwrap();
+            let id_key = super::super::keys::child_key("north", "van-1", &trip.trip_id);
+            let mut payload = vec![1u8];
+            payload.extend_from_slice(&(id_key.len() as u32).to_le_bytes());
+            payload.extend_from_slice(&id_key);
+            payload.extend_from_slice(&super::super::keys::ordered_i64(trip.end_ms));
+            write_frame(&mut out, b'R', &payload).unwrap();
+        }
+        let totals = crate::store::VehicleTotals { trips_recorded: 5, friction_energy_j: 1.0e7, distance_m: 5000.0, last_trip_end_ms: Some(trips[4].end_ms) };
+        let key = super::super::keys::vehicle_key("north", "van-1");
+        let mut payload = vec![2u8];
+        payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
+        payload.extend_from_slice(&key);
+        payload.extend_from_slice(&super::super::trip_blocks::seal(postcard::to_stdvec(&totals).unwrap()));
+        write_frame(&mut out, b'R', &payload).unwrap();
+        write_frame(&mut out, b'T', &json(&tallies)).unwrap();
+        let end = End { entries: 11, crc32_before_end: out.crc.clone().finalize() };
+        write_frame(&mut out, b'E', &json(&end)).unwrap();
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("old-backup");
+        std::fs::write(&path, &bytes).unwrap();
+        let target = dir.path().join("restored");
+        let summary = restore(&path, &target, 8 << 20).expect("a schema-3 backup restores");
+        assert_eq!(summary.tallies.totals().trips.count, 5);
+        let store = SledStore::open(&target).expect("the restored directory matches its ledger");
+        assert_eq!(store.vehicle_trips("north", "van-1").unwrap(), trips);
+        let again = TripRecord { end_ms: trips[0].end_ms + 1, ..trips[0].clone() };
+        assert_eq!(store.ingest_trips(&[again]).unwrap(), vec![crate::store::IngestOutcome::Duplicate]);
+    }
 }

@@ -996,12 +996,18 @@ impl Engine {
                 Err(error) => audit.problem(format!("trip-id index {}: {error}", printable_key(&key))),
             }
         }
+        // Writes find a vehicle's index segments from its recorded count: the two must agree.
+        let mut recorded: BTreeMap<Vec<u8>, u64> = BTreeMap::new();
         for entry in self.totals.iter() {
             let (key, value) = entry?;
             let Ok(totals) = decode::<VehicleTotals>(&value) else { continue };
-            let stored = per_vehicle.get(key.as_ref()).copied().unwrap_or(0);
-            if totals.trips_recorded != stored {
-                audit.problem(format!("vehicle {}: {} trips were recorded, {stored} are stored", printable_key(&key), totals.trips_recorded));
+            recorded.insert(key.to_vec(), totals.trips_recorded);
+        }
+        let with_trips: std::collections::BTreeSet<&Vec<u8>> = recorded.keys().chain(per_vehicle.keys()).collect();
+        for vehicle in with_trips {
+            let (counted, stored) = (recorded.get(vehicle).copied().unwrap_or(0), per_vehicle.get(vehicle).copied().unwrap_or(0));
+            if counted != stored {
+                audit.problem(format!("vehicle {}: {counted} trips were recorded, {stored} are stored", printable_key(vehicle)));
             }
         }
         let vehicles: std::collections::BTreeSet<&Vec<u8>> = per_vehicle.keys().chain(indexed.keys()).collect();
@@ -1148,8 +1154,8 @@ impl VehicleTrips {
     }
 
     /// Writes the changed blocks and the index segments the new entries went to.
-    fn write(self, blocks: &TransactionalTree, index: &TransactionalTree) -> TxResult<()> {
-        for (day, (mut trips, changed)) in self.blocks.clone() {
+    fn write(mut self, blocks: &TransactionalTree, index: &TransactionalTree) -> TxResult<()> {
+        for (day, (mut trips, changed)) in std::mem::take(&mut self.blocks) {
             if changed {
                 blocks.insert(self.block_key(day), trip_blocks::encode_block(day, &mut trips).map_err(abort)?)?;
             }

@@ -7,7 +7,7 @@
 //! One sled record per trip (schema 3) cost about 400 bytes on disk per trip, six times the
 //! trip's protobuf encoding: sled's per-record overhead, the fleet and vehicle ids repeated in
 //! every key and value, and a second record per trip for the id index. A block stores the fleet
-//! and vehicle once (in its key) and each trip in about 40 bytes.
+//! and vehicle once (in its key) and a typical trip in about 30 bytes.
 //!
 //! # Day block (value of `trip_blocks`, key `fleet 0 vehicle 0 day`)
 //! Integers are unsigned LEB128 varints (signed ones zigzag-encoded first); floats are the 8
