@@ -71,11 +71,16 @@ pub struct ForecastConfig {
     pub coalesce_ms: u64,
     /// Vehicles recomputed per pass.
     pub batch_vehicles: usize,
+    /// GetVehicleForecast answers from the materialised forecast (a few key reads) when no
+    /// write reached the vehicle since and it was computed less than this many seconds ago;
+    /// otherwise it computes afresh (the Monte Carlo, milliseconds per call). 0: always
+    /// afresh. Default 3,600 s (today's thickness then moves by at most an hour's wear).
+    pub materialised_max_age_s: u64,
 }
 
 impl Default for ForecastConfig {
     fn default() -> Self {
-        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, batch_vehicles: 256 }
+        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, batch_vehicles: 256, materialised_max_age_s: 3600 }
     }
 }
 

@@ -148,7 +148,7 @@ async fn sample_gauges(state: AppState) {
     loop {
         let store = std::sync::Arc::clone(&state.store);
         if let Ok(Ok((stale, bytes))) = tokio::task::spawn_blocking(move || -> crate::store::StoreResult<(u64, u64)> {
-            Ok((store.stale_vehicles(1_000_000)?.len() as u64, store.size_on_disk()?))
+            Ok((store.count_all_stale()?, store.size_on_disk()?))
         })
         .await
         {

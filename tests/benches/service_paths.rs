@@ -18,7 +18,7 @@ use brakeledger::store::{sled_store::SledStore, FleetRecord, Store, StoredPart, 
 use brakeledger_models::domain::Component;
 use brakeledger_models::{DueDistribution, ForecastBasis, PartOutlook};
 use brakeledger_proto::v1 as pb;
-use brakeledger_tests::{now_s, trip, two_axle_vehicle, TestServer};
+use brakeledger_tests::{now_s, trip, trip_record, two_axle_vehicle, TestServer};
 
 const TRIPS: usize = 40_000;
 const ROUNDS: usize = 3;
@@ -34,23 +34,7 @@ fn trips(end: i64) -> Vec<pb::TripSummary> {
 }
 
 fn records(summaries: &[pb::TripSummary]) -> Vec<TripRecord> {
-    summaries
-        .iter()
-        .map(|t| TripRecord {
-            fleet_id: t.fleet_id.clone(),
-            vehicle_id: t.vehicle_id.clone(),
-            trip_id: t.trip_id.clone(),
-            start_ms: t.start_time.as_ref().map_or(0, |s| s.seconds * 1000),
-            end_ms: t.end_time.as_ref().map_or(0, |s| s.seconds * 1000),
-            distance_m: t.distance_m,
-            friction_energy_j: t.friction_energy_j,
-            axle_energy_j: vec![t.friction_energy_j * 0.65, t.friction_energy_j * 0.35],
-            axle_split_reported: false,
-            brake_applications: t.brake_applications,
-            regen_energy_j: None,
-            hot_energy_j: 0.0,
-        })
-        .collect()
+    summaries.iter().map(trip_record).collect()
 }
 
 async fn ingest_rounds() -> (f64, f64) {

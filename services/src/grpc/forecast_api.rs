@@ -21,7 +21,8 @@ use crate::grpc::paging::{decode_token, encode_token, page_size};
 use crate::grpc::visit_plans::{plan_for_due_parts, JobHours};
 use crate::grpc::part_cycles::readings_by_cycle;
 use crate::state::AppState;
-use crate::store::{days_to_ms, DueCursor, MS_PER_DAY};
+use crate::store::{days_to_ms, DueCursor, FleetRecord, Store, VehicleForecasts, MS_PER_DAY};
+use brakeledger_models::domain::VehicleSpec;
 
 /// Implements `brakeledger.v1.ForecastService`.
 pub struct ForecastApi {
@@ -70,10 +71,14 @@ impl ForecastService for ForecastApi {
         let (fleet, record, spec) = self
             .state
             .blocking(move |store| {
+                if let Some(fresh) = materialised_forecast(store, &fleet_id, &vehicle_id, &config, level, now)? {
+                    return Ok(fresh);
+                }
                 let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
                 Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
             })
             .await?;
+        let computed_at_ms = record.computed_at_ms;
         if record.parts.iter().all(|p| p.outlook.due.is_none()) {
             // One clause per part, named as the trade names it: "axle 1 pad: ...".
             let reasons: Vec<String> = record
@@ -98,7 +103,7 @@ impl ForecastService for ForecastApi {
             fleet_id: r.fleet_id,
             vehicle_id: r.vehicle_id,
             time_zone: fleet.time_zone,
-            computed_at: Some(ms_timestamp(now)),
+            computed_at: Some(ms_timestamp(computed_at_ms)),
             caution: crate::SAFETY_CAUTION.to_owned(),
         }))
     }
@@ -318,4 +323,28 @@ impl ForecastService for ForecastApi {
         response.time_zone = fleet.time_zone;
         Ok(Response::new(response))
     }
+}
+
+/// The vehicle's materialised forecast when it can stand for a fresh one: the default band
+/// level (the stored thickness bands are at 80 %), no write since it was computed (the vehicle
+/// is not stale) and computed within `[forecast] materialised_max_age_s`. A fresh computation
+/// runs the Monte Carlo (milliseconds per call); this is a few key reads.
+fn materialised_forecast(
+    store: &dyn Store,
+    fleet_id: &str,
+    vehicle_id: &str,
+    config: &crate::config::ForecastConfig,
+    level: f64,
+    now_ms: i64,
+) -> ServiceResult<Option<(FleetRecord, VehicleForecasts, VehicleSpec)>> {
+    let max_age_ms = i64::try_from(config.materialised_max_age_s.saturating_mul(1000)).unwrap_or(i64::MAX);
+    if max_age_ms == 0 || (level - crate::store::BandLevel::P80.probability()).abs() > 1e-12 || store.is_stale(fleet_id, vehicle_id)? {
+        return Ok(None);
+    }
+    let Some(record) = store.get_forecasts(fleet_id, vehicle_id)? else { return Ok(None) };
+    if now_ms.saturating_sub(record.computed_at_ms) > max_age_ms || record.computed_at_ms > now_ms {
+        return Ok(None);
+    }
+    let Some(vehicle) = store.get_vehicle(fleet_id, vehicle_id)? else { return Ok(None) };
+    Ok(Some((known_fleet(store, fleet_id)?, record, vehicle.spec)))
 }

@@ -15,9 +15,12 @@
 //! | `E` | JSON end: entries written and the CRC-32 of every byte of the file before this frame |
 //!
 //! CRC-32 is the IEEE polynomial (as in zip and PNG). The file carries the records only
-//! (fleets, vehicles, per-vehicle totals, trips, the trip-id index, daily roll-ups,
+//! (fleets, vehicles, per-vehicle totals, the trips' day blocks, the trip-id index, daily roll-ups,
 //! inspections, replacements); forecasts, the due index and fleet priors are derived from them
 //! and recomputed after a restore.
+//!
+//! Backups of schema 3 (one entry per trip in `trips`, and `trip_ids`) are restored too: their
+//! trips are moved into day blocks after loading. The tallies count one trip per trip either way.
 //!
 //! Verification reads the whole file: the magic, every frame's checksum, every value's own
 //! checksum, the tallies recomputed from the entries against the `T` frame, the entry count and
@@ -29,8 +32,8 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
-use super::ledger::{Ledger, LedgerState, RecordKind, Tallies};
-use super::sled_engine::{checked_body, fleet_of_key, Engine, RECORD_TREES, SCHEMA_VERSION};
+use super::ledger::{Ledger, LedgerState, Tallies};
+use super::sled_engine::{checked_body, tally_entry, Engine, RECORD_TREES, SCHEMA_VERSION};
 use super::StoreError;
 
 /// The first bytes of every backup file.
@@ -39,6 +42,9 @@ pub const MAGIC: &[u8] = b"BRAKELEDGER-BACKUP\n";
 pub const FORMAT_VERSION: u32 = 1;
 /// Largest frame accepted, bytes (a record is far smaller; a damaged length is caught early).
 const MAX_FRAME_BYTES: u32 = 64 * 1024 * 1024;
+/// Oldest schema whose backups are restored: schema-3 trips (one record per trip) are moved
+/// into day blocks after loading, as the start-up migration does.
+const SCHEMA_3_RESTORED: u32 = 3;
 /// Entries loaded per batch on restore.
 const RESTORE_BATCH: usize = 10_000;
 
@@ -99,6 +105,8 @@ pub struct BackupSummary {
     pub file_bytes: u64,
     /// CRC-32 of the whole file.
     pub file_crc32: u32,
+    /// Schema version of the stored values.
+    pub schema_version: u32,
 }
 
 impl BackupSummary {
@@ -118,18 +126,7 @@ impl BackupSummary {
     }
 }
 
-fn record_kind_of_tree(tree: &str) -> Option<RecordKind> {
-    match tree {
-        "fleets" => Some(RecordKind::Fleet),
-        "vehicles" => Some(RecordKind::Vehicle),
-        "trips" => Some(RecordKind::Trip),
-        "inspections" => Some(RecordKind::Inspection),
-        "replacements" => Some(RecordKind::Replacement),
-        _ => None,
-    }
-}
-
-/// Values of these trees are raw (not checksummed postcard).
+/// Values of these trees are raw (not checksummed postcard): the schema-3 trip-id index.
 fn raw_valued(tree: &str) -> bool {
     tree == "trip_ids"
 }
@@ -181,12 +178,9 @@ pub fn write(engine: &Engine, expected: Option<&Tallies>, taken_at_ms: i64, out:
     let mut entries = 0u64;
     let mut payload = Vec::new();
     for (index, tree) in RECORD_TREES.iter().enumerate() {
-        let kind = record_kind_of_tree(tree);
         for entry in engine.record_entries(tree)? {
             let (key, value) = entry?;
-            if let Some(kind) = kind {
-                tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
-            }
+            tally_entry(tree, &key, &value, &mut tallies)?;
             payload.clear();
             payload.push(index as u8);
             payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
@@ -206,7 +200,7 @@ pub fn write(engine: &Engine, expected: Option<&Tallies>, taken_at_ms: i64, out:
     let end = End { entries, crc32_before_end: out.crc.clone().finalize() };
     write_frame(&mut out, b'E', &json(&end))?;
     out.flush()?;
-    Ok(BackupSummary { entries, tallies, taken_at_ms, file_bytes: out.bytes, file_crc32: out.crc.finalize() })
+    Ok(BackupSummary { entries, tallies, taken_at_ms, file_bytes: out.bytes, file_crc32: out.crc.finalize(), schema_version: SCHEMA_VERSION })
 }
 
 /// A reader that keeps the CRC-32 and length of everything read.
@@ -271,8 +265,8 @@ fn read(input: impl Read, mut entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Resul
     if header.format_version != FORMAT_VERSION {
         return Err(BackupError::Damaged(format!("format version {} (this build reads {FORMAT_VERSION})", header.format_version)));
     }
-    if header.schema_version != SCHEMA_VERSION {
-        return Err(BackupError::Damaged(format!("it holds values of schema {} (this build restores {SCHEMA_VERSION})", header.schema_version)));
+    if !(SCHEMA_3_RESTORED..=SCHEMA_VERSION).contains(&header.schema_version) {
+        return Err(BackupError::Damaged(format!("it holds values of schema {} (this build restores {SCHEMA_3_RESTORED} to {SCHEMA_VERSION})", header.schema_version)));
     }
     let mut tallies = Tallies::default();
     let mut entries = 0u64;
@@ -288,9 +282,7 @@ fn read(input: impl Read, mut entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Resul
                 if !raw_valued(&tree) {
                     checked_body(&value).map_err(|e| BackupError::Damaged(format!("entry {entries} ({tree}): {e}")))?;
                 }
-                if let Some(kind) = record_kind_of_tree(&tree) {
-                    tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
-                }
+                tally_entry(&tree, &key, &value, &mut tallies).map_err(|e| BackupError::Damaged(format!("entry {entries} ({tree}): {e}")))?;
                 entries += 1;
                 entry(&tree, key, value)?;
             }
@@ -315,7 +307,7 @@ fn read(input: impl Read, mut entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Resul
     if input.inner.read(&mut rest)? != 0 {
         return Err(BackupError::Damaged("bytes follow the end frame".into()));
     }
-    Ok(BackupSummary { entries, tallies, taken_at_ms: header.taken_at_ms, file_bytes: input.bytes, file_crc32: input.crc.finalize() })
+    Ok(BackupSummary { entries, tallies, taken_at_ms: header.taken_at_ms, file_bytes: input.bytes, file_crc32: input.crc.finalize(), schema_version: header.schema_version })
 }
 
 /// Verifies a backup file from start to end without restoring it.
@@ -351,6 +343,9 @@ pub fn restore(path: &Path, dir: &Path, cache_capacity_bytes: u64) -> Result<Bac
     if !batch.is_empty() {
         engine.load_entries(&batch_tree, batch)?;
     }
+    if summary.schema_version < SCHEMA_VERSION {
+        engine.move_trips_into_blocks()?;
+    }
     engine.mark_all_stale()?;
     drop(engine);
     Ledger::create(dir, LedgerState { committed: summary.tallies.clone(), pending: None }).map_err(StoreError::from)?;
@@ -380,5 +375,70 @@ mod tests {
         }
         std::fs::write(&path, &bytes[..bytes.len() - 7]).unwrap();
         assert!(matches!(verify(&path), Err(BackupError::Damaged(_))), "cut short");
+    }
+
+    #[test]
+    fn a_schema_3_backup_restores_its_trips_into_day_blocks() {
+        use crate::store::sled_store::SledStore;
+        use crate::store::{Store, TripRecord};
+        let trips: Vec<TripRecord> = (0..5i64)
+            .map(|n| TripRecord {
+                fleet_id: "north".into(),
+                vehicle_id: "van-1".into(),
+                trip_id: format!("t{n}"),
+                start_ms: 1_700_000_000_000 + n * 40_000_000,
+                end_ms: 1_700_000_100_000 + n * 40_000_000,
+                distance_m: 1000.0,
+                friction_energy_j: 2.0e6,
+                axle_energy_j: vec![1.3e6, 0.7e6],
+                axle_split_reported: true,
+                brake_applications: 9,
+                regen_energy_j: None,
+                hot_energy_j: 0.0,
+            })
+            .collect();
+        // A backup as schema 3 wrote it: one `trips` entry per trip and the raw `trip_ids` index.
+        let mut bytes = Vec::new();
+        let mut out = Counting { inner: &mut bytes, crc: crc32fast::Hasher::new(), bytes: 0 };
+        out.write_all(MAGIC).unwrap();
+        let trees = vec!["trips".to_owned(), "trip_ids".to_owned(), "totals".to_owned()];
+        write_frame(&mut out, b'H', &json(&Header { format_version: FORMAT_VERSION, schema_version: 3, taken_at_ms: 1, trees })).unwrap();
+        let mut tallies = Tallies::default();
+        for trip in &trips {
+            let key = super::super::keys::trip_key("north", "van-1", trip.end_ms, &trip.trip_id);
+            tallies.add_key("north", super::super::ledger::RecordKind::Trip, &key);
+            let value = super::super::trip_blocks::seal(postcard::to_stdvec(trip).unwrap());
+            let mut payload = vec![0u8];
+            payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
+            payload.extend_from_slice(&key);
+            payload.extend_from_slice(&value);
+            write_frame(&mut out, b'R', &payload).unwrap();
+            let id_key = super::super::keys::child_key("north", "van-1", &trip.trip_id);
+            let mut payload = vec![1u8];
+            payload.extend_from_slice(&(id_key.len() as u32).to_le_bytes());
+            payload.extend_from_slice(&id_key);
+            payload.extend_from_slice(&super::super::keys::ordered_i64(trip.end_ms));
+            write_frame(&mut out, b'R', &payload).unwrap();
+        }
+        let totals = crate::store::VehicleTotals { trips_recorded: 5, friction_energy_j: 1.0e7, distance_m: 5000.0, last_trip_end_ms: Some(trips[4].end_ms) };
+        let key = super::super::keys::vehicle_key("north", "van-1");
+        let mut payload = vec![2u8];
+        payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
+        payload.extend_from_slice(&key);
+        payload.extend_from_slice(&super::super::trip_blocks::seal(postcard::to_stdvec(&totals).unwrap()));
+        write_frame(&mut out, b'R', &payload).unwrap();
+        write_frame(&mut out, b'T', &json(&tallies)).unwrap();
+        let end = End { entries: 11, crc32_before_end: out.crc.clone().finalize() };
+        write_frame(&mut out, b'E', &json(&end)).unwrap();
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("old-backup");
+        std::fs::write(&path, &bytes).unwrap();
+        let target = dir.path().join("restored");
+        let summary = restore(&path, &target, 8 << 20).expect("a schema-3 backup restores");
+        assert_eq!(summary.tallies.totals().trips.count, 5);
+        let store = SledStore::open(&target).expect("the restored directory matches its ledger");
+        assert_eq!(store.vehicle_trips("north", "van-1").unwrap(), trips);
+        let again = TripRecord { end_ms: trips[0].end_ms + 1, ..trips[0].clone() };
+        assert_eq!(store.ingest_trips(&[again]).unwrap(), vec![crate::store::IngestOutcome::Duplicate]);
     }
 }

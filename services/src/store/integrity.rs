@@ -251,12 +251,12 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
         findings.lines.push(format!("… and {} more damaged or inconsistent records", audit.problem_count - audit.problems.len() as u64));
     }
 
-    if fresh || migrating {
+    if fresh || (migrating && !has_ledger) {
         if !findings.is_sound() {
             return finish_with(engine, None, findings, mode);
         }
-        // A new directory, or the one-time migration from a schema without a ledger: the
-        // ledger starts from what the store holds.
+        // A new directory, or the one-time migration from a schema without a ledger (before
+        // version 3): the ledger starts from what the store holds.
         let ledger = Ledger::create(dir, LedgerState { committed: audit.tallies, pending: None })?;
         if migrating {
             engine.finish_migration()?;
@@ -295,6 +295,12 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
         }
     } else {
         findings.lines.extend(state.committed.differences(&audit.tallies).iter().map(ToString::to_string));
+    }
+    if migrating && findings.is_sound() {
+        // A directory with a ledger (schema 3 on): the migrated store was checked against
+        // it like any other (the ledger's trip keys are the same in every layout).
+        engine.finish_migration()?;
+        tracing::info!(dir = %dir.display(), "migrated directory verified against its acknowledged-write ledger");
     }
     finish_with(engine, if findings.is_sound() { Some(ledger) } else { None }, findings, mode)
 }

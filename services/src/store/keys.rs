@@ -10,8 +10,8 @@
 //! | `fleets` | fleet | [`FleetRecord`](super::FleetRecord) |
 //! | `vehicles` | fleet 0 vehicle | [`VehicleRecord`](super::VehicleRecord) |
 //! | `totals` | fleet 0 vehicle | [`VehicleTotals`](super::VehicleTotals) |
-//! | `trips` | fleet 0 vehicle 0 end_ms trip | [`TripRecord`](super::TripRecord) |
-//! | `trip_ids` | fleet 0 vehicle 0 trip | end_ms |
+//! | `trip_blocks` | fleet 0 vehicle 0 day | every trip of the vehicle ending that UTC day (see [`super::trip_blocks`]) |
+//! | `trip_id_index` | fleet 0 vehicle 0 segment | hashes of the vehicle's trip ids and their days (see [`super::trip_blocks`]) |
 //! | `daily` | fleet 0 vehicle 0 day | [`DailyEnergy`](super::DailyEnergy) |
 //! | `inspections`, `replacements` | fleet 0 vehicle 0 id | record (kept when voided or superseded) |
 //! | `corrections` | fleet 0 vehicle 0 kind id (kind `i` inspection, `r` replacement) | [`CorrectionRecord`](super::CorrectionRecord) |
@@ -70,7 +70,8 @@ pub fn child_key(fleet_id: &str, vehicle_id: &str, child_id: &str) -> Vec<u8> {
     key
 }
 
-/// `fleet 0 vehicle 0 end_ms trip`
+/// `fleet 0 vehicle 0 end_ms trip`: the key the ledger counts a trip under (and the key of
+/// the schema-3 `trips` tree).
 pub fn trip_key(fleet_id: &str, vehicle_id: &str, end_ms: i64, trip_id: &str) -> Vec<u8> {
     let mut key = vehicle_prefix(fleet_id, vehicle_id);
     key.extend_from_slice(&ordered_i64(end_ms));

@@ -6,8 +6,9 @@
 //!
 //! Beside the engine: [`ledger`] (the record of what was acknowledged, kept apart from sled's
 //! files), [`integrity`] (start-up and offline verification against it), [`backup_file`] (the
-//! backup file format, verification and restore), [`keys`] (the key layout) and
-//! [`disk_space`] (the free-space gate).
+//! backup file format, verification and restore), [`keys`] (the key layout),
+//! [`trip_blocks`] (the compact encoding of trips in day blocks) and [`disk_space`] (the
+//! free-space gate).
 
 pub mod backup_file;
 pub mod disk_space;
@@ -17,6 +18,7 @@ pub mod ledger;
 pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
+pub mod trip_blocks;
 
 pub use records::*;
 
@@ -131,6 +133,17 @@ pub trait Store: Send + Sync + 'static {
     fn stale_vehicles(&self, limit: usize) -> StoreResult<Vec<StaleMark>>;
     /// Number of stale vehicles of one fleet.
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64>;
+    /// Whether one vehicle's forecasts wait to be recomputed (a write since they were
+    /// computed). The default looks through the marks; an engine with keyed marks (sled's)
+    /// reads one key.
+    fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        Ok(self.stale_vehicles(usize::MAX)?.iter().any(|m| m.fleet_id == fleet_id && m.vehicle_id == vehicle_id))
+    }
+    /// Number of stale vehicles in the whole store, for the metrics sampler every few seconds.
+    /// The default lists them; an engine that keeps a count (as sled's does) answers from it.
+    fn count_all_stale(&self) -> StoreResult<u64> {
+        Ok(self.stale_vehicles(usize::MAX)?.len() as u64)
+    }
     /// Clears a stale mark unless the vehicle was marked again since `mark` was read.
     fn clear_stale(&self, mark: &StaleMark) -> StoreResult<()>;
     /// Saves a fleet's pooled wear-rate priors.

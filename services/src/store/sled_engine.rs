@@ -6,7 +6,8 @@
 //! data reached disk. Materialised forecasts are derived data: they are rebuilt from the stale
 //! marks after a crash, so they ride on sled's periodic flush.
 
-use std::collections::{BTreeMap, HashSet};
+use std::collections::{BTreeMap, HashMap, HashSet};
+use std::sync::atomic::{AtomicU64, Ordering};
 
 use serde::{de::DeserializeOwned, Serialize};
 use sled::transaction::{ConflictableTransactionError, TransactionError, TransactionalTree};
@@ -15,6 +16,7 @@ use sled::Transactional;
 use super::ledger::{RecordKind, Tallies};
 use super::records::RecordKind as ServiceKind;
 use super::keys::{self, child_key, day_key, fleet_prefix, prefix_end, trip_key, vehicle_key, vehicle_prefix};
+use super::trip_blocks::{self, IdEntry, SEGMENT_ENTRIES};
 use super::*;
 
 /// Schema version this build writes. Opening a database with a higher version is refused.
@@ -23,15 +25,25 @@ use super::*;
 /// Version 3: every postcard value ends with the CRC-32 of its bytes (see [`encode`]); older
 /// directories are migrated by [`Engine::add_value_checksums`], and get their acknowledged-write
 /// ledger (see [`super::ledger`]) from what they hold.
-pub const SCHEMA_VERSION: u32 = 3;
+/// Version 4: trips are kept in day blocks with a per-vehicle trip-id index (see
+/// [`super::trip_blocks`]) instead of one record per trip; older directories are migrated by
+/// [`Engine::move_trips_into_blocks`] (the ledger's trip keys are the same in both layouts).
+pub const SCHEMA_VERSION: u32 = 4;
 
-/// Trees whose values are postcard records carrying a checksum.
+/// Trees of schema 3 whose values are postcard records carrying a checksum (the migration to
+/// version 3 runs before the one to version 4, so it works on the schema-3 trees).
 const CHECKSUMMED_TREES: [&str; 12] = ["fleets", "vehicles", "totals", "trips", "daily", "inspections", "replacements", "corrections", "forecasts", "priors", "tokens", "audit"];
 
 /// Trees a backup carries: the records; forecasts, the due index, priors and stale marks are
 /// derived from them and recomputed after a restore.
-pub const RECORD_TREES: [&str; 11] = ["fleets", "vehicles", "totals", "trips", "trip_ids", "daily", "inspections", "replacements", "corrections", "tokens", "audit"];
+pub const RECORD_TREES: [&str; 11] = ["fleets", "vehicles", "totals", "trip_blocks", "trip_id_index", "daily", "inspections", "replacements", "corrections", "tokens", "audit"];
+/// The trip trees of schema 3 (one record per trip, and the trip-id index): read by the
+/// migration and by the restore of a schema-3 backup.
+pub const SCHEMA_3_TRIP_TREES: [&str; 2] = ["trips", "trip_ids"];
 const SCHEMA_KEY: &[u8] = b"schema_version";
+/// Set once the schema-3 trips are copied into blocks and flushed: a migration cut short after
+/// that point only has to drop the old trees.
+const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
 
 impl From<sled::Error> for StoreError {
     fn from(error: sled::Error) -> Self {
@@ -57,10 +69,8 @@ impl From<TransactionError<StoreError>> for StoreError {
 /// of those bytes, so a value damaged on disk is detected when read instead of decoding as
 /// something else.
 fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
-    let mut bytes = postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))?;
-    let crc = crc32fast::hash(&bytes);
-    bytes.extend_from_slice(&crc.to_le_bytes());
-    Ok(bytes)
+    let bytes = postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))?;
+    Ok(trip_blocks::seal(bytes))
 }
 
 /// The postcard bytes of a stored value whose checksum matches.
@@ -108,8 +118,8 @@ pub struct Engine {
     fleets: sled::Tree,
     vehicles: sled::Tree,
     totals: sled::Tree,
-    trips: sled::Tree,
-    trip_ids: sled::Tree,
+    trip_blocks: sled::Tree,
+    trip_id_index: sled::Tree,
     daily: sled::Tree,
     inspections: sled::Tree,
     replacements: sled::Tree,
@@ -120,6 +130,9 @@ pub struct Engine {
     priors: sled::Tree,
     tokens: sled::Tree,
     audit: sled::Tree,
+    /// Entries in `stale`, kept as writes add and clear marks so that the metrics sampler need
+    /// not scan them.
+    stale_marks: AtomicU64,
 }
 
 impl Engine {
@@ -140,11 +153,15 @@ impl Engine {
                     if found < 2 {
                         engine.rebuild_derived()?;
                     }
-                    engine.add_value_checksums()?;
+                    if found < 3 {
+                        engine.add_value_checksums()?;
+                    }
+                    engine.move_trips_into_blocks()?;
                     // The schema version is written by `finish_migration`, once the caller has
-                    // written the ledger: a crash before that runs the (idempotent) migration again.
+                    // checked (or written) the ledger: a crash before that runs the
+                    // (idempotent) migration again.
                     engine.db.flush()?;
-                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: values now carry checksums");
+                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: trips now kept in day blocks");
                     return Ok(engine);
                 }
             }
@@ -169,6 +186,72 @@ impl Engine {
             let generation = self.db.generate_id()?;
             self.stale.insert(key, &generation.to_be_bytes())?;
         }
+        self.stale_marks.store(self.stale.len() as u64, Ordering::Relaxed);
+        Ok(())
+    }
+
+    /// Migration to version 4: copies the schema-3 trips (one record per trip, `trips` and
+    /// `trip_ids`) into day blocks and the per-vehicle trip-id index, then drops the old trees.
+    /// Idempotent: the copy is rebuilt from scratch until it is flushed and marked built; after
+    /// that, only the old trees are dropped. Totals and roll-ups are unchanged (the same trips).
+    pub fn move_trips_into_blocks(&self) -> StoreResult<()> {
+        let meta = self.db.open_tree("meta")?;
+        let old_trips = self.db.open_tree(SCHEMA_3_TRIP_TREES[0])?;
+        if meta.get(BLOCKS_BUILT_KEY)?.is_none() && !old_trips.is_empty() {
+            self.trip_blocks.clear()?;
+            self.trip_id_index.clear()?;
+            let mut vehicle: Option<(Vec<u8>, Vec<TripRecord>)> = None;
+            for entry in old_trips.iter() {
+                let (key, value) = entry?;
+                let (_, _, rest) = trip_blocks::split_vehicle_key(&key)?;
+                let prefix = key[..key.len() - rest.len()].to_vec();
+                let trip: TripRecord = decode(&value)?;
+                match &mut vehicle {
+                    Some((current, trips)) if *current == prefix => trips.push(trip),
+                    _ => {
+                        if let Some((prefix, trips)) = vehicle.take() {
+                            self.write_vehicle_blocks(&prefix, trips)?;
+                        }
+                        vehicle = Some((prefix, vec![trip]));
+                    }
+                }
+            }
+            if let Some((prefix, trips)) = vehicle {
+                self.write_vehicle_blocks(&prefix, trips)?;
+            }
+            self.db.flush()?;
+            meta.insert(BLOCKS_BUILT_KEY, &[1])?;
+            self.db.flush()?;
+        }
+        for name in SCHEMA_3_TRIP_TREES {
+            self.db.open_tree(name)?.clear()?;
+        }
+        self.db.flush()?;
+        Ok(())
+    }
+
+    /// Writes the blocks and the trip-id index of one vehicle's trips (migration and restore of
+    /// schema-3 data), in the trips' order.
+    fn write_vehicle_blocks(&self, prefix: &[u8], trips: Vec<TripRecord>) -> StoreResult<()> {
+        let mut days: BTreeMap<i64, Vec<TripRecord>> = BTreeMap::new();
+        let mut entries = Vec::with_capacity(trips.len());
+        for trip in &trips {
+            let day = utc_day(trip.end_ms);
+            days.entry(day).or_default().push(trip.clone());
+            entries.push(IdEntry { hash: trip_blocks::id_hash(&trip.trip_id), day });
+        }
+        let mut batch = sled::Batch::default();
+        for (day, mut block) in days {
+            let mut key = prefix.to_vec();
+            key.extend_from_slice(&keys::ordered_i64(day));
+            batch.insert(key, trip_blocks::encode_block(day, &mut block)?);
+        }
+        self.trip_blocks.apply_batch(batch)?;
+        let mut batch = sled::Batch::default();
+        for (segment, chunk) in entries.chunks(SEGMENT_ENTRIES).enumerate() {
+            batch.insert(trip_blocks::segment_key(prefix, segment as u32), trip_blocks::encode_segment(chunk));
+        }
+        self.trip_id_index.apply_batch(batch)?;
         Ok(())
     }
 
@@ -230,8 +313,8 @@ impl Engine {
             fleets: db.open_tree("fleets")?,
             vehicles: db.open_tree("vehicles")?,
             totals: db.open_tree("totals")?,
-            trips: db.open_tree("trips")?,
-            trip_ids: db.open_tree("trip_ids")?,
+            trip_blocks: db.open_tree("trip_blocks")?,
+            trip_id_index: db.open_tree("trip_id_index")?,
             daily: db.open_tree("daily")?,
             inspections: db.open_tree("inspections")?,
             replacements: db.open_tree("replacements")?,
@@ -242,6 +325,7 @@ impl Engine {
             priors: db.open_tree("priors")?,
             tokens: db.open_tree("tokens")?,
             audit: db.open_tree("audit")?,
+            stale_marks: AtomicU64::new(db.open_tree("stale")?.len() as u64),
             db,
         })
     }
@@ -275,13 +359,14 @@ impl Engine {
         let stale_key = vehicle_key(fleet_id, vehicle_id);
         let outcome = (tree, &self.stale).transaction(|(records, stale)| {
             if let Some(stored) = tx_get::<T>(records, &key)? {
-                return Ok(if &stored == value { InsertOutcome::Duplicate } else { InsertOutcome::Differs(stored) });
+                return Ok((if &stored == value { InsertOutcome::Duplicate } else { InsertOutcome::Differs(stored) }, false));
             }
             records.insert(key.as_slice(), bytes.as_slice())?;
-            stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-            Ok(InsertOutcome::Stored)
+            let new_mark = stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?.is_none();
+            Ok((InsertOutcome::Stored, new_mark))
         });
-        let outcome = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        let (outcome, new_mark) = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        self.count_new_marks(u64::from(new_mark));
         if outcome == InsertOutcome::Stored {
             self.db.flush()?;
         }
@@ -308,23 +393,24 @@ impl Engine {
                     ServiceKind::Replacement => replacements,
                 };
                 if records.get(&record_key)?.is_none() {
-                    return Ok(CorrectionOutcome::NoSuchRecord);
+                    return Ok((CorrectionOutcome::NoSuchRecord, false));
                 }
                 if let Some(stored) = tx_get::<CorrectionRecord>(corrections, &correction_key)? {
-                    return Ok(if stored.same_as(correction) { CorrectionOutcome::Duplicate } else { CorrectionOutcome::AlreadyCorrected(stored) });
+                    return Ok((if stored.same_as(correction) { CorrectionOutcome::Duplicate } else { CorrectionOutcome::AlreadyCorrected(stored) }, false));
                 }
                 if let (Some(key), Some(bytes)) = (&superseding_key, &superseding_bytes) {
                     if records.get(key)?.is_some() {
-                        return Ok(CorrectionOutcome::IdTaken);
+                        return Ok((CorrectionOutcome::IdTaken, false));
                     }
                     records.insert(key.as_slice(), bytes.as_slice())?;
                 }
                 corrections.insert(correction_key.as_slice(), correction_bytes.as_slice())?;
-                stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-                Ok(CorrectionOutcome::Stored)
+                let new_mark = stale.insert(stale_key.as_slice(), &stale.generate_id()?.to_be_bytes())?.is_none();
+                Ok((CorrectionOutcome::Stored, new_mark))
             },
         );
-        let outcome = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        let (outcome, new_mark) = outcome.map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        self.count_new_marks(u64::from(new_mark));
         if outcome == CorrectionOutcome::Stored {
             self.db.flush()?;
         }
@@ -383,10 +469,12 @@ impl Engine {
         let created = (&self.vehicles, &self.stale)
             .transaction(|(vehicles, stale)| {
                 let created = vehicles.insert(key.as_slice(), bytes.as_slice())?.is_none();
-                stale.insert(key.as_slice(), &stale.generate_id()?.to_be_bytes())?;
-                Ok(created)
+                let new_mark = stale.insert(key.as_slice(), &stale.generate_id()?.to_be_bytes())?.is_none();
+                Ok((created, new_mark))
             })
             .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        let (created, new_mark) = created;
+        self.count_new_marks(u64::from(new_mark));
         self.db.flush()?;
         Ok(created)
     }
@@ -444,29 +532,21 @@ impl Engine {
         Ok(Self::get_value(&self.totals, &vehicle_key(fleet_id, vehicle_id))?.unwrap_or_default())
     }
 
-    /// See [`Store`].
+    /// See [`Store`]: one transaction over the day blocks, the trip-id index, the roll-up, the
+    /// totals and the stale marks, then one flush.
     pub fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
         if trips.is_empty() {
             return Ok(Vec::new());
         }
-        let encoded: Vec<Vec<u8>> = trips.iter().map(encode).collect::<StoreResult<_>>()?;
-        let outcomes = (&self.trips, &self.trip_ids, &self.daily, &self.totals, &self.stale)
-            .transaction(|(trip_tree, id_tree, daily_tree, totals_tree, stale_tree)| {
-                let mut outcomes = Vec::with_capacity(trips.len());
-                let mut seen: HashSet<Vec<u8>> = HashSet::new();
+        let (outcomes, new_marks) = (&self.trip_blocks, &self.trip_id_index, &self.daily, &self.totals, &self.stale)
+            .transaction(|(block_tree, index_tree, daily_tree, totals_tree, stale_tree)| {
+                let (outcomes, vehicles) = sort_out_trips(trips, block_tree, index_tree, totals_tree)?;
                 let mut daily: BTreeMap<Vec<u8>, DailyEnergy> = BTreeMap::new();
                 let mut totals: BTreeMap<Vec<u8>, TotalsDelta> = BTreeMap::new();
-                for (trip, bytes) in trips.iter().zip(&encoded) {
-                    let id_key = child_key(&trip.fleet_id, &trip.vehicle_id, &trip.trip_id);
-                    if seen.contains(&id_key) || id_tree.get(&id_key)?.is_some() {
-                        outcomes.push(IngestOutcome::Duplicate);
+                for (trip, outcome) in trips.iter().zip(&outcomes) {
+                    if *outcome != IngestOutcome::Stored {
                         continue;
                     }
-                    trip_tree.insert(trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id), bytes.as_slice())?;
-                    id_tree.insert(id_key.as_slice(), &keys::ordered_i64(trip.end_ms))?;
-                    seen.insert(id_key);
-                    outcomes.push(IngestOutcome::Stored);
-
                     let day = utc_day(trip.end_ms);
                     let entry = daily.entry(day_key(&trip.fleet_id, &trip.vehicle_id, day)).or_insert_with(|| DailyEnergy {
                         day,
@@ -479,11 +559,15 @@ impl Engine {
                     total.distance_m += trip.distance_m;
                     total.last_end_ms = Some(total.last_end_ms.map_or(trip.end_ms, |t| t.max(trip.end_ms)));
                 }
+                for vehicle in vehicles.into_values() {
+                    vehicle.write(block_tree, index_tree)?;
+                }
                 for (key, delta) in &daily {
                     let mut day: DailyEnergy = tx_get(daily_tree, key)?.unwrap_or_else(|| DailyEnergy { day: delta.day, ..DailyEnergy::default() });
                     merge_days(&mut day, delta);
                     tx_put(daily_tree, key, &day)?;
                 }
+                let mut new_marks = 0u64;
                 for (key, delta) in &totals {
                     let mut total: VehicleTotals = tx_get(totals_tree, key)?.unwrap_or_default();
                     total.trips_recorded += delta.trips;
@@ -494,15 +578,29 @@ impl Engine {
                         (a, b) => a.or(b),
                     };
                     tx_put(totals_tree, key, &total)?;
-                    stale_tree.insert(key.as_slice(), &stale_tree.generate_id()?.to_be_bytes())?;
+                    if stale_tree.insert(key.as_slice(), &stale_tree.generate_id()?.to_be_bytes())?.is_none() {
+                        new_marks += 1;
+                    }
                 }
-                Ok(outcomes)
+                Ok((outcomes, new_marks))
             })
             .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+        self.count_new_marks(new_marks);
         if outcomes.contains(&IngestOutcome::Stored) {
             self.db.flush()?;
         }
         Ok(outcomes)
+    }
+
+    /// Every stored trip of one vehicle, oldest first (by end, then trip id).
+    pub fn vehicle_trips(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<TripRecord>> {
+        let mut out = Vec::new();
+        for entry in self.trip_blocks.scan_prefix(vehicle_prefix(fleet_id, vehicle_id)) {
+            let (key, value) = entry?;
+            let day = keys::day_of_key(&key)?;
+            out.extend(trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(&value)?)?);
+        }
+        Ok(out)
     }
 
     /// See [`Store`].
@@ -598,7 +696,9 @@ impl Engine {
     pub fn mark_stale(&self, fleet_id: &str, vehicle_ids: &[String]) -> StoreResult<()> {
         for vehicle_id in vehicle_ids {
             let generation = self.db.generate_id()?;
-            self.stale.insert(vehicle_key(fleet_id, vehicle_id), &generation.to_be_bytes())?;
+            if self.stale.insert(vehicle_key(fleet_id, vehicle_id), &generation.to_be_bytes())?.is_none() {
+                self.count_new_marks(1);
+            }
         }
         Ok(())
     }
@@ -628,8 +728,25 @@ impl Engine {
     pub fn clear_stale(&self, mark: &StaleMark) -> StoreResult<()> {
         let key = vehicle_key(&mark.fleet_id, &mark.vehicle_id);
         // Leaves the mark in place when a newer write re-marked the vehicle meanwhile.
-        let _ = self.stale.compare_and_swap(key, Some(&mark.generation.to_be_bytes()), None as Option<&[u8]>)?;
+        if self.stale.compare_and_swap(key, Some(&mark.generation.to_be_bytes()), None as Option<&[u8]>)?.is_ok() {
+            // Never below zero, even if a count went astray.
+            let _ = self.stale_marks.fetch_update(Ordering::Relaxed, Ordering::Relaxed, |n| Some(n.saturating_sub(1)));
+        }
         Ok(())
+    }
+
+    /// See [`Store`].
+    pub fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        Ok(self.stale.contains_key(vehicle_key(fleet_id, vehicle_id))?)
+    }
+
+    /// Every stale mark in the store, from the count kept as marks come and go (no scan).
+    pub fn count_all_stale(&self) -> u64 {
+        self.stale_marks.load(Ordering::Relaxed)
+    }
+
+    fn count_new_marks(&self, new_marks: u64) {
+        self.stale_marks.fetch_add(new_marks, Ordering::Relaxed);
     }
 
     /// See [`Store`].
@@ -765,13 +882,29 @@ pub fn printable_key(key: &[u8]) -> String {
 }
 
 impl Engine {
-    fn tree_of(&self, kind: RecordKind) -> &sled::Tree {
+    /// The tree holding one record per ledger key of `kind`: every kind but trips, which
+    /// live in day blocks.
+    fn keyed_tree(&self, kind: RecordKind) -> Option<&sled::Tree> {
         match kind {
-            RecordKind::Fleet => &self.fleets,
-            RecordKind::Vehicle => &self.vehicles,
-            RecordKind::Trip => &self.trips,
-            RecordKind::Inspection => &self.inspections,
-            RecordKind::Replacement => &self.replacements,
+            RecordKind::Fleet => Some(&self.fleets),
+            RecordKind::Vehicle => Some(&self.vehicles),
+            RecordKind::Trip => None,
+            RecordKind::Inspection => Some(&self.inspections),
+            RecordKind::Replacement => Some(&self.replacements),
+        }
+    }
+
+    /// Whether the store holds the record of `kind` with ledger key `key` (for a trip: its
+    /// day block holds its id).
+    fn holds(&self, kind: RecordKind, key: &[u8]) -> StoreResult<bool> {
+        if let Some(tree) = self.keyed_tree(kind) {
+            return Ok(tree.contains_key(key)?);
+        }
+        let (fleet_id, vehicle_id, end_ms, trip_id) = trip_blocks::parse_trip_key(key)?;
+        let day = utc_day(end_ms);
+        match self.trip_blocks.get(day_key(fleet_id, vehicle_id, day))? {
+            Some(bytes) => Ok(trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(&bytes)?)?.iter().any(|t| t.trip_id == trip_id && t.end_ms == end_ms)),
+            None => Ok(false),
         }
     }
 
@@ -779,7 +912,7 @@ impl Engine {
     /// exists already).
     pub fn plan_one(&self, kind: RecordKind, fleet_id: &str, key: Vec<u8>) -> StoreResult<PlannedKeys> {
         let mut planned = PlannedKeys::default();
-        if !self.tree_of(kind).contains_key(&key)? {
+        if !self.holds(kind, &key)? {
             planned.add(fleet_id, kind, key);
         }
         Ok(planned)
@@ -788,13 +921,15 @@ impl Engine {
     /// The new keys of a trip batch: trips whose id is not stored yet, once each.
     pub fn plan_trips(&self, trips: &[TripRecord]) -> StoreResult<PlannedKeys> {
         let mut planned = PlannedKeys::default();
-        let mut seen = HashSet::new();
-        for trip in trips {
-            let id_key = child_key(&trip.fleet_id, &trip.vehicle_id, &trip.trip_id);
-            if self.trip_ids.contains_key(&id_key)? || !seen.insert(id_key) {
-                continue;
+        let (outcomes, _) = sort_out_trips(trips, &self.trip_blocks, &self.trip_id_index, &self.totals).map_err(|e| match e {
+            ConflictableTransactionError::Abort(error) => error,
+            ConflictableTransactionError::Storage(error) => error.into(),
+            ConflictableTransactionError::Conflict => StoreError::Conflict,
+        })?;
+        for (trip, outcome) in trips.iter().zip(outcomes) {
+            if outcome == IngestOutcome::Stored {
+                planned.add(&trip.fleet_id, RecordKind::Trip, trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id));
             }
-            planned.add(&trip.fleet_id, RecordKind::Trip, trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id));
         }
         Ok(planned)
     }
@@ -803,18 +938,20 @@ impl Engine {
     pub fn count_present(&self, keys: &[(RecordKind, Vec<u8>)]) -> StoreResult<usize> {
         let mut present = 0;
         for (kind, key) in keys {
-            if self.tree_of(*kind).contains_key(key)? {
+            if self.holds(*kind, key)? {
                 present += 1;
             }
         }
         Ok(present)
     }
 
-    /// Tallies every record and checks every stored value's checksum and the trip index.
+    /// Tallies every record and checks every stored value's checksum, the trips against the
+    /// vehicles' totals and the trip-id index.
     pub fn audit(&self) -> StoreResult<Audit> {
         let mut audit = Audit::default();
         for kind in RecordKind::ALL {
-            for entry in self.tree_of(kind).iter() {
+            let Some(tree) = self.keyed_tree(kind) else { continue };
+            for entry in tree.iter() {
                 let (key, value) = entry?;
                 audit.tallies.add_key(&fleet_of_key(kind, &key), kind, &key);
                 if let Err(error) = checked_body(&value) {
@@ -838,32 +975,46 @@ impl Engine {
                 }
             }
         }
+        // Trips, per vehicle (key `fleet 0 vehicle`), from their blocks and from the index.
         let mut per_vehicle: BTreeMap<Vec<u8>, u64> = BTreeMap::new();
-        for key in self.trips.iter().keys() {
-            let key = key?;
-            let fleet_end = key.iter().position(|b| *b == keys::SEP).unwrap_or(key.len());
-            let vehicle_end = key[(fleet_end + 1).min(key.len())..].iter().position(|b| *b == keys::SEP).map_or(key.len(), |p| fleet_end + 1 + p);
-            *per_vehicle.entry(key[..vehicle_end].to_vec()).or_default() += 1;
+        for entry in self.trip_blocks.iter() {
+            let (key, value) = entry?;
+            let mut block = Tallies::default();
+            match tally_block(&key, &value, &mut block) {
+                Ok(count) => {
+                    audit.tallies.add(&block);
+                    *per_vehicle.entry(key[..vehicle_part_len(&key)].to_vec()).or_default() += count;
+                }
+                Err(error) => audit.problem(format!("trips {}: {error}", printable_key(&key))),
+            }
         }
+        let mut indexed: BTreeMap<Vec<u8>, u64> = BTreeMap::new();
+        for entry in self.trip_id_index.iter() {
+            let (key, value) = entry?;
+            match checked_body(&value).and_then(trip_blocks::decode_segment) {
+                Ok(entries) => *indexed.entry(key[..vehicle_part_len(&key)].to_vec()).or_default() += entries.len() as u64,
+                Err(error) => audit.problem(format!("trip-id index {}: {error}", printable_key(&key))),
+            }
+        }
+        // Writes find a vehicle's index segments from its recorded count: the two must agree.
+        let mut recorded: BTreeMap<Vec<u8>, u64> = BTreeMap::new();
         for entry in self.totals.iter() {
             let (key, value) = entry?;
             let Ok(totals) = decode::<VehicleTotals>(&value) else { continue };
-            let stored = per_vehicle.get(key.as_ref()).copied().unwrap_or(0);
-            if totals.trips_recorded != stored {
-                audit.problem(format!("vehicle {}: {} trips were recorded, {stored} are stored", printable_key(&key), totals.trips_recorded));
+            recorded.insert(key.to_vec(), totals.trips_recorded);
+        }
+        let with_trips: std::collections::BTreeSet<&Vec<u8>> = recorded.keys().chain(per_vehicle.keys()).collect();
+        for vehicle in with_trips {
+            let (counted, stored) = (recorded.get(vehicle).copied().unwrap_or(0), per_vehicle.get(vehicle).copied().unwrap_or(0));
+            if counted != stored {
+                audit.problem(format!("vehicle {}: {counted} trips were recorded, {stored} are stored", printable_key(vehicle)));
             }
         }
-        let mut indexed: BTreeMap<String, u64> = BTreeMap::new();
-        for key in self.trip_ids.iter().keys() {
-            *indexed.entry(fleet_of_key(RecordKind::Trip, &key?)).or_default() += 1;
-        }
-        let empty = Default::default();
-        let fleets: std::collections::BTreeSet<String> = indexed.keys().chain(audit.tallies.0.keys()).cloned().collect();
-        for fleet in fleets {
-            let stored = audit.tallies.0.get(&fleet).unwrap_or(&empty).trips.count;
-            let ids = indexed.get(&fleet).copied().unwrap_or(0);
+        let vehicles: std::collections::BTreeSet<&Vec<u8>> = per_vehicle.keys().chain(indexed.keys()).collect();
+        for vehicle in vehicles {
+            let (stored, ids) = (per_vehicle.get(vehicle).copied().unwrap_or(0), indexed.get(vehicle).copied().unwrap_or(0));
             if stored != ids {
-                audit.problem(format!("fleet '{fleet}': the trip-id index lists {ids} trips, {stored} trip records are stored"));
+                audit.problem(format!("vehicle {}: the trip-id index lists {ids} trips, {stored} trips are stored", printable_key(vehicle)));
             }
         }
         Ok(audit)
@@ -891,6 +1042,194 @@ impl Engine {
         self.db.flush()?;
         Ok(())
     }
+}
+
+type TxResult<T> = Result<T, ConflictableTransactionError<StoreError>>;
+
+/// Reads one key, inside a transaction or outside one, so that planning a write (for the
+/// ledger) and the write itself sort trips out by the same code.
+trait ReadKey {
+    fn read_key(&self, key: &[u8]) -> TxResult<Option<sled::IVec>>;
+}
+
+impl ReadKey for sled::Tree {
+    fn read_key(&self, key: &[u8]) -> TxResult<Option<sled::IVec>> {
+        self.get(key).map_err(|e| abort(e.into()))
+    }
+}
+
+impl ReadKey for TransactionalTree {
+    fn read_key(&self, key: &[u8]) -> TxResult<Option<sled::IVec>> {
+        Ok(self.get(key)?)
+    }
+}
+
+/// One vehicle's trips as a write sees them: its trip-id index, the day blocks read so far
+/// (with the trips this write adds) and the index entries to append.
+struct VehicleTrips {
+    prefix: Vec<u8>,
+    /// Trips stored before this write (= entries in the index, see `totals`).
+    stored: u64,
+    /// Days of the stored trips, by id hash.
+    days_by_hash: HashMap<u32, Vec<i64>>,
+    /// Entries of the last, partly filled segment (rewritten with the new entries).
+    open_segment: Vec<IdEntry>,
+    new_entries: Vec<IdEntry>,
+    /// Blocks read or created, by day, and whether this write changed them.
+    blocks: BTreeMap<i64, (Vec<TripRecord>, bool)>,
+    /// Ids added by this write.
+    added: HashSet<String>,
+}
+
+impl VehicleTrips {
+    fn load(prefix: Vec<u8>, index: &impl ReadKey, totals: &impl ReadKey) -> TxResult<Self> {
+        let total_key = &prefix[..prefix.len() - 1];
+        let stored = match totals.read_key(total_key)? {
+            Some(bytes) => decode::<VehicleTotals>(&bytes).map_err(abort)?.trips_recorded,
+            None => 0,
+        };
+        let segments = stored.div_ceil(SEGMENT_ENTRIES as u64);
+        let mut days_by_hash: HashMap<u32, Vec<i64>> = HashMap::with_capacity(stored as usize);
+        let mut open_segment = Vec::new();
+        for segment in 0..segments {
+            let expected = if segment + 1 == segments { stored - segment * SEGMENT_ENTRIES as u64 } else { SEGMENT_ENTRIES as u64 };
+            let key = trip_blocks::segment_key(&prefix, segment as u32);
+            let missing = || abort(StoreError::Corrupt(format!("trip-id index of {}: segment {segment} is missing or short", printable_key(&prefix))));
+            let bytes = index.read_key(&key)?.ok_or_else(missing)?;
+            let entries = trip_blocks::decode_segment(checked_body(&bytes).map_err(abort)?).map_err(abort)?;
+            if entries.len() as u64 != expected {
+                return Err(missing());
+            }
+            for entry in &entries {
+                days_by_hash.entry(entry.hash).or_default().push(entry.day);
+            }
+            if expected < SEGMENT_ENTRIES as u64 {
+                open_segment = entries;
+            }
+        }
+        Ok(Self { prefix, stored, days_by_hash, open_segment, new_entries: Vec::new(), blocks: BTreeMap::new(), added: HashSet::new() })
+    }
+
+    fn block_key(&self, day: i64) -> Vec<u8> {
+        let mut key = self.prefix.clone();
+        key.extend_from_slice(&keys::ordered_i64(day));
+        key
+    }
+
+    fn block(&mut self, blocks: &impl ReadKey, day: i64) -> TxResult<&mut (Vec<TripRecord>, bool)> {
+        if !self.blocks.contains_key(&day) {
+            // The ids are the key's; blocks read here are only searched and re-encoded.
+            let trips = match blocks.read_key(&self.block_key(day))? {
+                Some(bytes) => trip_blocks::decode_block("", "", day, checked_body(&bytes).map_err(abort)?).map_err(abort)?,
+                None => Vec::new(),
+            };
+            self.blocks.insert(day, (trips, false));
+        }
+        self.blocks.get_mut(&day).ok_or_else(|| abort(StoreError::Engine("block cache".into())))
+    }
+
+    /// Whether a trip with this id was stored before this write (whatever its time).
+    fn stored_before(&mut self, blocks: &impl ReadKey, trip_id: &str) -> TxResult<bool> {
+        let Some(days) = self.days_by_hash.get(&trip_blocks::id_hash(trip_id)).cloned() else { return Ok(false) };
+        for day in days {
+            if self.block(blocks, day)?.0.iter().any(|t| t.trip_id == trip_id) {
+                return Ok(true);
+            }
+        }
+        Ok(false)
+    }
+
+    /// Adds a trip unless its id is stored or was added by this write.
+    fn add(&mut self, blocks: &impl ReadKey, trip: &TripRecord) -> TxResult<IngestOutcome> {
+        if self.added.contains(&trip.trip_id) || self.stored_before(blocks, &trip.trip_id)? {
+            return Ok(IngestOutcome::Duplicate);
+        }
+        let day = utc_day(trip.end_ms);
+        let block = self.block(blocks, day)?;
+        block.0.push(trip.clone());
+        block.1 = true;
+        self.new_entries.push(IdEntry { hash: trip_blocks::id_hash(&trip.trip_id), day });
+        self.added.insert(trip.trip_id.clone());
+        Ok(IngestOutcome::Stored)
+    }
+
+    /// Writes the changed blocks and the index segments the new entries went to.
+    fn write(mut self, blocks: &TransactionalTree, index: &TransactionalTree) -> TxResult<()> {
+        for (day, (mut trips, changed)) in std::mem::take(&mut self.blocks) {
+            if changed {
+                blocks.insert(self.block_key(day), trip_blocks::encode_block(day, &mut trips).map_err(abort)?)?;
+            }
+        }
+        if self.new_entries.is_empty() {
+            return Ok(());
+        }
+        let first = self.stored / SEGMENT_ENTRIES as u64;
+        let entries: Vec<IdEntry> = self.open_segment.iter().chain(&self.new_entries).copied().collect();
+        for (n, chunk) in entries.chunks(SEGMENT_ENTRIES).enumerate() {
+            index.insert(trip_blocks::segment_key(&self.prefix, (first + n as u64) as u32), trip_blocks::encode_segment(chunk))?;
+        }
+        Ok(())
+    }
+}
+
+/// Sorts a batch of trips into stored and duplicate (against the store and earlier in the
+/// batch), adding the stored ones to their vehicles' blocks in memory.
+fn sort_out_trips(
+    trips: &[TripRecord],
+    blocks: &impl ReadKey,
+    index: &impl ReadKey,
+    totals: &impl ReadKey,
+) -> TxResult<(Vec<IngestOutcome>, BTreeMap<Vec<u8>, VehicleTrips>)> {
+    let mut vehicles: BTreeMap<Vec<u8>, VehicleTrips> = BTreeMap::new();
+    let mut outcomes = Vec::with_capacity(trips.len());
+    for trip in trips {
+        let prefix = vehicle_prefix(&trip.fleet_id, &trip.vehicle_id);
+        let vehicle = match vehicles.entry(prefix) {
+            std::collections::btree_map::Entry::Occupied(entry) => entry.into_mut(),
+            std::collections::btree_map::Entry::Vacant(entry) => {
+                let loaded = VehicleTrips::load(entry.key().clone(), index, totals)?;
+                entry.insert(loaded)
+            }
+        };
+        outcomes.push(vehicle.add(blocks, trip)?);
+    }
+    Ok((outcomes, vehicles))
+}
+
+/// Length of the `fleet 0 vehicle` part of a per-vehicle key (the whole key if it has no
+/// second separator).
+fn vehicle_part_len(key: &[u8]) -> usize {
+    let fleet_end = key.iter().position(|b| *b == keys::SEP).unwrap_or(key.len());
+    key[(fleet_end + 1).min(key.len())..].iter().position(|b| *b == keys::SEP).map_or(key.len(), |p| fleet_end + 1 + p)
+}
+
+/// Adds the ledger key of every trip of a stored day block to `tallies`; returns the number of
+/// trips.
+fn tally_block(key: &[u8], value: &[u8], tallies: &mut Tallies) -> StoreResult<u64> {
+    let (fleet_id, vehicle_id, _) = trip_blocks::split_vehicle_key(key)?;
+    let day = keys::day_of_key(key)?;
+    let trips = trip_blocks::decode_block(fleet_id, vehicle_id, day, checked_body(value)?)?;
+    for trip in &trips {
+        tallies.add_key(fleet_id, RecordKind::Trip, &trip_key(fleet_id, vehicle_id, trip.end_ms, &trip.trip_id));
+    }
+    Ok(trips.len() as u64)
+}
+
+/// Adds the records of one stored entry of a backed-up tree to `tallies`: one per key in the
+/// trees of fleets, vehicles, inspections, replacements and schema-3 trips, one per trip in a
+/// day block. Entries of other trees count nothing.
+pub fn tally_entry(tree: &str, key: &[u8], value: &[u8], tallies: &mut Tallies) -> StoreResult<()> {
+    let kind = match tree {
+        "fleets" => RecordKind::Fleet,
+        "vehicles" => RecordKind::Vehicle,
+        "trips" => RecordKind::Trip,
+        "inspections" => RecordKind::Inspection,
+        "replacements" => RecordKind::Replacement,
+        "trip_blocks" => return tally_block(key, value, tallies).map(|_| ()),
+        _ => return Ok(()),
+    };
+    tallies.add_key(&fleet_of_key(kind, key), kind, key);
+    Ok(())
 }
 
 /// Index keys of every part with a due date, at every indexed level.
@@ -937,4 +1276,168 @@ fn merge_days(into: &mut DailyEnergy, delta: &DailyEnergy) {
     }
     into.trips += delta.trips;
     into.distance_m += delta.distance_m;
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::store::ledger::{Ledger, LedgerState};
+    use crate::store::sled_store::SledStore;
+
+    const DAY_MS: i64 = MS_PER_DAY;
+
+    /// Trips of two vehicles: out of time order, ids not in time order, some with a reported
+    /// split, regeneration or hot energy; the second vehicle has more trips than one trip-id
+    /// index segment holds.
+    fn fixture_trips() -> Vec<TripRecord> {
+        let mut trips = Vec::new();
+        for (vehicle, count) in [("van-1", 60usize), ("van-2", SEGMENT_ENTRIES + 300)] {
+            for n in 0..count {
+                let end_ms = 20_000 * DAY_MS + ((n * 7919) % (count * 3)) as i64 * 3_600_000 + 17;
+                let friction = 1.0e6 + n as f64 * 1234.5;
+                let reported = n % 5 == 0;
+                trips.push(TripRecord {
+                    fleet_id: "north".into(),
+                    vehicle_id: vehicle.into(),
+                    trip_id: format!("t{:05}", (n * 37) % count),
+                    start_ms: end_ms - 1_800_000,
+                    end_ms,
+                    distance_m: 12_000.0 + n as f64,
+                    friction_energy_j: friction,
+                    axle_energy_j: if reported { vec![friction * 0.5 + 1.0, friction * 0.5 - 1.0] } else { vec![0.6 * friction, 0.4 * friction] },
+                    axle_split_reported: reported,
+                    brake_applications: 30 + n as u32,
+                    regen_energy_j: (n % 3 == 0).then_some(2.0e5),
+                    hot_energy_j: if n % 4 == 0 { 1.0e5 } else { 0.0 },
+                });
+            }
+        }
+        trips
+    }
+
+    /// Writes a schema-3 data directory: one record per trip in `trips`, the `trip_ids` index,
+    /// roll-ups and totals, and the acknowledged-write ledger, as schema 3 wrote them.
+    fn write_schema_3(dir: &std::path::Path, trips: &[TripRecord], daily: &[(Vec<u8>, DailyEnergy)], totals: &[(Vec<u8>, VehicleTotals)]) {
+        let db = sled::open(dir).unwrap();
+        db.open_tree("meta").unwrap().insert(SCHEMA_KEY, &3u32.to_be_bytes()).unwrap();
+        let fleet = FleetRecord::default_for("north");
+        db.open_tree("fleets").unwrap().insert(b"north", encode(&fleet).unwrap()).unwrap();
+        let (trip_tree, id_tree) = (db.open_tree("trips").unwrap(), db.open_tree("trip_ids").unwrap());
+        let mut ledger = Tallies::default();
+        ledger.add_key("north", RecordKind::Fleet, b"north");
+        for trip in trips {
+            let key = trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id);
+            trip_tree.insert(&key, encode(trip).unwrap()).unwrap();
+            id_tree.insert(child_key(&trip.fleet_id, &trip.vehicle_id, &trip.trip_id), &keys::ordered_i64(trip.end_ms)).unwrap();
+            ledger.add_key("north", RecordKind::Trip, &key);
+        }
+        for (key, day) in daily {
+            db.open_tree("daily").unwrap().insert(key, encode(day).unwrap()).unwrap();
+        }
+        for (key, total) in totals {
+            db.open_tree("totals").unwrap().insert(key, encode(total).unwrap()).unwrap();
+        }
+        db.flush().unwrap();
+        Ledger::create(dir, LedgerState { committed: ledger, pending: None }).unwrap();
+    }
+
+    #[test]
+    fn a_schema_3_directory_is_migrated_to_day_blocks_with_every_trip_roll_up_and_total() {
+        let trips = fixture_trips();
+        // The roll-ups and totals those trips give, computed by the store itself.
+        let reference = SledStore::temporary().unwrap();
+        assert!(reference.ingest_trips(&trips).unwrap().iter().all(|o| *o == IngestOutcome::Stored));
+        let vehicles = ["van-1", "van-2"];
+        let mut daily = Vec::new();
+        let mut totals = Vec::new();
+        for vehicle in vehicles {
+            for day in reference.daily_energy("north", vehicle).unwrap() {
+                daily.push((day_key("north", vehicle, day.day), day));
+            }
+            totals.push((vehicle_key("north", vehicle), reference.vehicle_totals("north", vehicle).unwrap()));
+        }
+
+        let dir = tempfile::tempdir().unwrap();
+        write_schema_3(dir.path(), &trips, &daily, &totals);
+        let store = SledStore::open(dir.path()).expect("migrated at start-up");
+        for vehicle in vehicles {
+            let mut expected: Vec<TripRecord> = trips.iter().filter(|t| t.vehicle_id == vehicle).cloned().collect();
+            expected.sort_by(|a, b| (a.end_ms, &a.trip_id).cmp(&(b.end_ms, &b.trip_id)));
+            assert_eq!(store.vehicle_trips("north", vehicle).unwrap(), expected, "{vehicle}");
+            assert_eq!(store.daily_energy("north", vehicle).unwrap(), reference.daily_energy("north", vehicle).unwrap());
+            assert_eq!(store.vehicle_totals("north", vehicle).unwrap(), reference.vehicle_totals("north", vehicle).unwrap());
+        }
+        assert_eq!(store.get_fleet("north").unwrap(), Some(FleetRecord::default_for("north")));
+        // A resent trip is a duplicate whatever its time; a new one is stored after the old ones.
+        let mut resent = trips[1300].clone();
+        resent.end_ms += 5 * DAY_MS;
+        resent.start_ms += 5 * DAY_MS;
+        let mut new = trips[0].clone();
+        new.trip_id = "fresh".into();
+        assert_eq!(store.ingest_trips(&[resent, new]).unwrap(), vec![IngestOutcome::Duplicate, IngestOutcome::Stored]);
+        drop(store);
+
+        let db = sled::open(dir.path()).unwrap();
+        assert_eq!(Engine::stored_schema_version(&db).unwrap(), Some(SCHEMA_VERSION));
+        assert!(db.open_tree("trips").unwrap().is_empty() && db.open_tree("trip_ids").unwrap().is_empty(), "old trees dropped");
+        drop(db);
+        let store = SledStore::open(dir.path()).expect("verified against the ledger after the migration");
+        assert_eq!(store.vehicle_totals("north", "van-1").unwrap().trips_recorded, 61);
+    }
+
+    #[test]
+    fn a_migration_cut_short_after_the_blocks_were_built_finishes() {
+        let trips = fixture_trips();
+        let dir = tempfile::tempdir().unwrap();
+        let mut totals = BTreeMap::new();
+        for trip in &trips {
+            let total: &mut VehicleTotals = totals.entry(vehicle_key("north", &trip.vehicle_id)).or_default();
+            total.trips_recorded += 1;
+        }
+        write_schema_3(dir.path(), &trips, &[], &totals.into_iter().collect::<Vec<_>>());
+        {
+            // Blocks built and marked, then the process stopped while dropping the old trees.
+            let engine = Engine::with_trees(sled::open(dir.path()).unwrap()).unwrap();
+            engine.move_trips_into_blocks().unwrap();
+            let db = &engine.db;
+            let (trip_tree, id_tree) = (db.open_tree("trips").unwrap(), db.open_tree("trip_ids").unwrap());
+            for trip in &trips[..10] {
+                trip_tree.insert(trip_key("north", &trip.vehicle_id, trip.end_ms, &trip.trip_id), encode(trip).unwrap()).unwrap();
+                id_tree.insert(child_key("north", &trip.vehicle_id, &trip.trip_id), &[0u8; 8]).unwrap();
+            }
+            db.flush().unwrap();
+        }
+        let store = SledStore::open(dir.path()).expect("the migration finishes");
+        assert_eq!(store.vehicle_trips("north", "van-2").unwrap().len(), SEGMENT_ENTRIES + 300);
+    }
+
+    #[test]
+    fn trip_ids_stay_unique_per_vehicle_across_batches_days_and_segments() {
+        let store = SledStore::temporary().unwrap();
+        let trips = fixture_trips();
+        for chunk in trips.chunks(97) {
+            store.ingest_trips(chunk).unwrap();
+        }
+        // Every trip again, each moved to another day, in other batches: all duplicates.
+        let moved: Vec<TripRecord> = trips.iter().rev().map(|t| TripRecord { end_ms: t.end_ms + 3 * DAY_MS, start_ms: t.start_ms + 3 * DAY_MS, ..t.clone() }).collect();
+        for chunk in moved.chunks(250) {
+            assert!(store.ingest_trips(chunk).unwrap().iter().all(|o| *o == IngestOutcome::Duplicate));
+        }
+        // The same id on another vehicle is another trip.
+        let other = TripRecord { vehicle_id: "van-3".into(), ..trips[0].clone() };
+        assert_eq!(store.ingest_trips(&[other.clone(), other]).unwrap(), vec![IngestOutcome::Stored, IngestOutcome::Duplicate]);
+        assert_eq!(store.vehicle_totals("north", "van-2").unwrap().trips_recorded, (SEGMENT_ENTRIES + 300) as u64);
+    }
+
+    #[test]
+    fn stale_marks_are_counted_without_a_scan() {
+        let store = SledStore::temporary().unwrap();
+        store.ingest_trips(&fixture_trips()).unwrap();
+        store.mark_stale("north", &["van-9".to_owned(), "van-1".to_owned()]).unwrap();
+        assert_eq!(store.count_all_stale().unwrap(), 3);
+        for mark in store.stale_vehicles(10).unwrap() {
+            store.clear_stale(&mark).unwrap();
+        }
+        assert_eq!(store.count_all_stale().unwrap(), 0);
+    }
 }

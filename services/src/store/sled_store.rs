@@ -190,6 +190,12 @@ impl SledStore {
         Ok(())
     }
 
+    /// Every stored trip of one vehicle, oldest first (not part of [`Store`]: no handler reads
+    /// single trips; tests, tools and the migration check do).
+    pub fn vehicle_trips(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Vec<TripRecord>> {
+        self.read(|e| e.vehicle_trips(fleet_id, vehicle_id))
+    }
+
     /// Writes a schema version (tests of the refusal to open newer databases).
     pub fn force_schema_version(&self, version: u32) -> StoreResult<()> {
         self.engine()?.force_schema_version(version)
@@ -390,6 +396,14 @@ impl Store for SledStore {
 
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64> {
         self.read(|e| e.count_stale(fleet_id))
+    }
+
+    fn is_stale(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<bool> {
+        self.read(|e| e.is_stale(fleet_id, vehicle_id))
+    }
+
+    fn count_all_stale(&self) -> StoreResult<u64> {
+        self.read(|e| Ok(e.count_all_stale()))
     }
 
     fn clear_stale(&self, mark: &StaleMark) -> StoreResult<()> {
