@@ -56,7 +56,7 @@ impl From<TransactionError<StoreError>> for StoreError {
 /// A stored value: the postcard encoding of `value` followed by the CRC-32 (IEEE, little-endian)
 /// of those bytes, so a value damaged on disk is detected when read instead of decoding as
 /// something else.
-fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
+pub fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
     let mut bytes = postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))?;
     let crc = crc32fast::hash(&bytes);
     bytes.extend_from_slice(&crc.to_le_bytes());
@@ -74,7 +74,8 @@ pub fn checked_body(bytes: &[u8]) -> StoreResult<&[u8]> {
     Ok(body)
 }
 
-fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
+/// The value [`encode`] stored, its checksum checked.
+pub fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
     postcard::from_bytes(checked_body(bytes)?).map_err(|e| StoreError::Corrupt(e.to_string()))
 }
 
@@ -344,7 +345,7 @@ impl Engine {
 }
 
 /// `fleet 0 vehicle 0 kind id` in the corrections tree (kind: `i` or `r`).
-fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, record_id: &str) -> Vec<u8> {
+pub fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, record_id: &str) -> Vec<u8> {
     let mut key = vehicle_prefix(fleet_id, vehicle_id);
     key.push(match kind {
         ServiceKind::Inspection => b'i',
@@ -912,7 +913,8 @@ fn due_index_keys(record: &VehicleForecasts) -> Vec<Vec<u8>> {
     out
 }
 
-fn add_trip_to_day(day: &mut DailyEnergy, trip: &TripRecord) {
+/// Adds one trip to its day's roll-up (per-axle energy, hot energy by the trip's hot share).
+pub fn add_trip_to_day(day: &mut DailyEnergy, trip: &TripRecord) {
     let axles = trip.axle_energy_j.len();
     day.axle_energy_j.resize(day.axle_energy_j.len().max(axles), 0.0);
     day.axle_hot_energy_j.resize(day.axle_hot_energy_j.len().max(axles), 0.0);
