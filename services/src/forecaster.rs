@@ -247,7 +247,7 @@ fn refresh_vehicle(store: &dyn Store, mark: &StaleMark, priors: &FleetPriors, co
 /// One pass over up to `batch_vehicles` stale vehicles, then prior re-estimation for the fleets
 /// touched. Returns the changes and whether stale vehicles remain.
 pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
-    let marks = store.stale_vehicles(config.batch_vehicles.max(1))?;
+    let marks = store.claim_stale(config.batch_vehicles.max(1))?;
     if marks.is_empty() {
         return Ok((Vec::new(), false));
     }
@@ -264,6 +264,8 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         }
     }
     for (fleet_id, old) in &priors_by_fleet {
+        // One replica at a time re-estimates a fleet's priors; the others skip it this pass.
+        let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { continue };
         let forecasts = store.fleet_forecasts(fleet_id)?;
         let new = pool_priors(&forecasts, &model_settings(config, 0.8));
         // Classes with a group whose prior moved, appeared or disappeared.
