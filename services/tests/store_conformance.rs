@@ -15,10 +15,10 @@
 
 #![allow(clippy::unwrap_used)]
 
-use std::sync::atomic::{AtomicU32, Ordering};
 use std::sync::Arc;
 
 use brakeledger::auth::roles::Role;
+use brakeledger::store::postgres::scratch::ScratchDatabase;
 use brakeledger::store::postgres::PostgresStore;
 use brakeledger::store::sled_store::SledStore;
 use brakeledger::store::*;
@@ -35,7 +35,7 @@ struct Engine {
     second: Box<dyn Fn() -> Arc<dyn Store>>,
     /// Reopens the database after its schema version was set to `version`.
     reopen_with_version: Box<dyn Fn(u32) -> StoreResult<()>>,
-    _database: Option<TestDatabase>,
+    _database: Option<ScratchDatabase>,
 }
 
 fn sled_engine() -> Option<Engine> {
@@ -70,17 +70,11 @@ fn postgres_engine() -> Option<Engine> {
     })
 }
 
-/// A database of its own on the test server, dropped at the end of the test.
-struct TestDatabase {
-    admin_url: String,
-    name: String,
-    url: String,
-}
-
-static DATABASES: AtomicU32 = AtomicU32::new(0);
+/// A database of its own for one test, or `None` (with a message) when no server is named.
+struct TestDatabase;
 
 impl TestDatabase {
-    fn create() -> Option<Self> {
+    fn create() -> Option<ScratchDatabase> {
         let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
             if std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() == Ok("1") {
                 panic!("BRAKELEDGER_REQUIRE_POSTGRES=1 but BRAKELEDGER_TEST_POSTGRES_URL is not set: .ci/run starts a throwaway PostgreSQL and sets it");
@@ -91,36 +85,7 @@ impl TestDatabase {
             );
             return None;
         };
-        let name = format!("brakeledger_test_{}_{}_{:06x}", std::process::id(), DATABASES.fetch_add(1, Ordering::SeqCst), rand::random::<u32>() & 0xff_ffff);
-        let mut admin = ::postgres::Client::connect(&admin_url, ::postgres::NoTls).expect("connecting to BRAKELEDGER_TEST_POSTGRES_URL");
-        admin.batch_execute(&format!("CREATE DATABASE {name}")).unwrap();
-        let url = url_with_database(&admin_url, &name);
-        Some(Self { admin_url, name, url })
-    }
-}
-
-/// `admin_url` with its database replaced by `name` (URL form, or key=value form).
-fn url_with_database(admin_url: &str, name: &str) -> String {
-    if admin_url.starts_with("postgres://") || admin_url.starts_with("postgresql://") {
-        let (base, query) = admin_url.split_once('?').map_or((admin_url, None), |(b, q)| (b, Some(q)));
-        let scheme_end = base.find("://").unwrap() + 3;
-        let path_start = base[scheme_end..].find('/').map(|i| scheme_end + i).unwrap_or(base.len());
-        let mut url = format!("{}/{name}", &base[..path_start]);
-        if let Some(query) = query {
-            url.push('?');
-            url.push_str(query);
-        }
-        url
-    } else {
-        format!("{admin_url} dbname={name}")
-    }
-}
-
-impl Drop for TestDatabase {
-    fn drop(&mut self) {
-        if let Ok(mut admin) = ::postgres::Client::connect(&self.admin_url, ::postgres::NoTls) {
-            let _ = admin.batch_execute(&format!("DROP DATABASE IF EXISTS {} WITH (FORCE)", self.name));
-        }
+        Some(ScratchDatabase::create(&admin_url, "brakeledger_test").expect("creating a test database on BRAKELEDGER_TEST_POSTGRES_URL"))
     }
 }
 

@@ -165,11 +165,24 @@ impl ServerProcess {
     /// Starts `binary serve --data dir --listen 127.0.0.1:0 <extra>`; `Err` with what the process
     /// wrote to stderr when it exits instead of listening.
     pub fn spawn_with(binary: &Path, data_dir: &Path, extra: &[&std::ffi::OsStr]) -> Result<Self, String> {
+        let mut args: Vec<&std::ffi::OsStr> = vec!["--data".as_ref(), data_dir.as_os_str()];
+        args.extend_from_slice(extra);
+        Self::spawn_serving(binary, &args)
+    }
+
+    /// Starts `binary serve --listen 127.0.0.1:0 --store url`: a replica on a shared
+    /// PostgreSQL database.
+    pub fn spawn_on_store(binary: &Path, url: &str) -> Self {
+        Self::spawn_serving(binary, &["--store".as_ref(), url.as_ref()]).unwrap_or_else(|output| panic!("server did not start: {output}"))
+    }
+
+    /// Starts `binary serve --listen 127.0.0.1:0 <args>` and reads the port it prints; `Err`
+    /// with what the process wrote to stderr when it exits instead of listening.
+    pub fn spawn_serving(binary: &Path, args: &[&std::ffi::OsStr]) -> Result<Self, String> {
         use std::io::{BufRead, Read};
         let mut child = std::process::Command::new(binary)
-            .args(["serve", "--listen", "127.0.0.1:0", "--data"])
-            .arg(data_dir)
-            .args(extra)
+            .args(["serve", "--listen", "127.0.0.1:0"])
+            .args(args)
             .env("BRAKELEDGER_LOG", "warn")
             // A client token in the developer's shell is not the server's business.
             .env_remove("BRAKELEDGER_TOKEN")
@@ -378,4 +391,22 @@ pub async fn wait_for_forecasts(server: &TestServer) {
         tokio::time::sleep(Duration::from_millis(50)).await;
     }
     panic!("forecasts still pending after 30 s");
+}
+
+/// A PostgreSQL database of its own for one test, on the server named by
+/// `BRAKELEDGER_TEST_POSTGRES_URL`; `None` with a message on how to run the test when it is not
+/// set, and a failure instead when `BRAKELEDGER_REQUIRE_POSTGRES=1` (as in CI).
+pub fn postgres_test_database() -> Option<brakeledger::store::postgres::scratch::ScratchDatabase> {
+    let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
+        assert!(
+            std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() != Ok("1"),
+            "BRAKELEDGER_REQUIRE_POSTGRES=1 but BRAKELEDGER_TEST_POSTGRES_URL is not set: .ci/run starts a throwaway PostgreSQL and sets it"
+        );
+        eprintln!(
+            "PostgreSQL test skipped: set BRAKELEDGER_TEST_POSTGRES_URL=postgres://USER@127.0.0.1:PORT/postgres (a server where tests may create \
+             databases; `bash .ci/run` starts one) to run it"
+        );
+        return None;
+    };
+    Some(brakeledger::store::postgres::scratch::ScratchDatabase::create(&admin_url, "brakeledger_e2e").expect("creating a test database"))
 }

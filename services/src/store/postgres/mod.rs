@@ -15,7 +15,8 @@
 //!
 //! Modules: [`schema`] (migrations, version refusal), [`rows`] (rows to records), [`writes`]
 //! (records), [`derived`] (forecasts, due index, stale marks, priors), [`access`] (tokens,
-//! audit), [`backup`] (the backup file, both ways), [`replicas`].
+//! audit), [`backup`] (the backup file, both ways), [`replicas`], [`scratch`] (a database of
+//! its own for each test).
 
 pub mod access;
 pub mod backup;
@@ -23,6 +24,7 @@ pub mod derived;
 pub mod replicas;
 pub mod rows;
 pub mod schema;
+pub mod scratch;
 pub mod writes;
 
 use std::time::Duration;
