@@ -1,5 +1,6 @@
 //! A database of its own on a PostgreSQL server, dropped when done: for tests and benchmarks
 //! that must not share tables (each creates one on the server their environment names).
+//! Usable from async tests: the blocking client calls leave the async worker first.
 
 use crate::store::{StoreError, StoreResult};
 
@@ -21,9 +22,12 @@ impl ScratchDatabase {
         if !name.chars().all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_') {
             return Err(StoreError::Engine(format!("'{prefix}' is not a plain lowercase database name prefix")));
         }
-        let mut admin = ::postgres::Client::connect(admin_url, ::postgres::NoTls)
-            .map_err(|e| StoreError::Engine(format!("connecting to {}: {}", super::redacted(admin_url), super::describe(&e))))?;
-        admin.batch_execute(&format!("CREATE DATABASE {name}"))?;
+        super::off_async(|| {
+            let mut admin = ::postgres::Client::connect(admin_url, ::postgres::NoTls)
+                .map_err(|e| StoreError::Engine(format!("connecting to {}: {}", super::redacted(admin_url), super::describe(&e))))?;
+            admin.batch_execute(&format!("CREATE DATABASE {name}"))?;
+            StoreResult::Ok(())
+        })?;
         Ok(Self { url: url_with_database(admin_url, &name), admin_url: admin_url.to_owned(), name })
     }
 }
@@ -45,9 +49,11 @@ pub fn url_with_database(admin_url: &str, name: &str) -> String {
 
 impl Drop for ScratchDatabase {
     fn drop(&mut self) {
-        if let Ok(mut admin) = ::postgres::Client::connect(&self.admin_url, ::postgres::NoTls) {
-            let _ = admin.batch_execute(&format!("DROP DATABASE IF EXISTS {} WITH (FORCE)", self.name));
-        }
+        super::off_async(|| {
+            if let Ok(mut admin) = ::postgres::Client::connect(&self.admin_url, ::postgres::NoTls) {
+                let _ = admin.batch_execute(&format!("DROP DATABASE IF EXISTS {} WITH (FORCE)", self.name));
+            }
+        });
     }
 }
 
