@@ -7,7 +7,7 @@
 use std::time::Duration;
 
 use brakeledger_proto::v1 as pb;
-use brakeledger_tests::{connect, now_s, postgres_test_database, trip, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
+use brakeledger_tests::{connect, daily_trips, new_parts, now_s, postgres_test_database, test_inspections, trip, ts, two_axle_vehicle, ServerProcess, DAY_S};
 use tokio_stream::StreamExt;
 use tonic::transport::Channel;
 
@@ -36,57 +36,17 @@ async fn trips_recorded(channel: &Channel, vehicle_id: &str) -> u64 {
     fleet(channel).get_vehicle(request).await.expect("get vehicle").into_inner().trips_recorded
 }
 
-/// One trip a day for `days` days ending yesterday, with ids `day-<n>`.
-fn daily_trips(vehicle_id: &str, days: std::ops::RangeInclusive<i64>, today: i64) -> Vec<pb::TripSummary> {
-    days.map(|ago| {
-        let mut t = trip("north", vehicle_id, 0, today - ago * DAY_S + 15 * 3600);
-        t.trip_id = format!("day-{ago}");
-        t
-    })
-    .collect()
-}
-
-/// Replacements of every part at the start, through `channel`.
+/// Replacements of every part at `at_s`, through `channel`.
 async fn fit_new_parts(channel: &Channel, vehicle_id: &str, at_s: i64) {
-    for axle in 1..=2u32 {
-        for component in [pb::Component::Friction, pb::Component::Disc] {
-            let request = pb::RecordReplacementRequest {
-                fleet_id: "north".into(),
-                vehicle_id: vehicle_id.into(),
-                replacement_id: format!("fit-{axle}-{}", component as i32),
-                axle_index: axle,
-                component: component as i32,
-                new_thickness_mm: 0.0,
-                replaced_at: Some(ts(at_s)),
-            };
-            maintenance(channel).record_replacement(request).await.expect("replacement");
-        }
+    for request in new_parts(vehicle_id, at_s) {
+        maintenance(channel).record_replacement(request).await.expect("replacement");
     }
 }
 
-/// Inspections of every part `ago` days before today, worn at the test rates after
-/// `days_run` days of one 30 MJ trip a day (65/35 split), through `channel`.
-async fn inspect(channel: &Channel, vehicle_id: &str, today: i64, ago: i64, days_run: f64, front_pad_mm: Option<f64>) {
-    let axle_mj = [30.0 * 0.65 * days_run, 30.0 * 0.35 * days_run];
-    let new_mm = [22.0, 45.0];
-    for axle in 1..=2u32 {
-        for (c, component) in [pb::Component::Friction, pb::Component::Disc].into_iter().enumerate() {
-            let rate = TEST_WEAR_MM_PER_MJ[(axle as usize - 1) * 2 + c];
-            let mut thickness = new_mm[c] - rate * axle_mj[axle as usize - 1] + 0.05 * ((ago as f64) * 1.7).sin();
-            if axle == 1 && c == 0 {
-                thickness = front_pad_mm.unwrap_or(thickness);
-            }
-            let request = pb::RecordInspectionRequest {
-                fleet_id: "north".into(),
-                vehicle_id: vehicle_id.into(),
-                inspection_id: format!("insp-{ago}-{axle}-{}", component as i32),
-                axle_index: axle,
-                component: component as i32,
-                thickness_mm: thickness,
-                measured_at: Some(ts(today - ago * DAY_S + 8 * 3600)),
-            };
-            maintenance(channel).record_inspection(request).await.expect("inspection");
-        }
+/// Inspections of every part `ago` days before today (see `test_inspections`), through `channel`.
+async fn inspect(channel: &Channel, vehicle_id: &str, days: i64, ago: i64, front_pad_mm: Option<f64>) {
+    for request in test_inspections(vehicle_id, days, 1.0, ago, front_pad_mm) {
+        maintenance(channel).record_inspection(request).await.expect("inspection");
     }
 }
 
@@ -125,7 +85,7 @@ async fn two_replicas_share_one_postgres_database() {
         assert_eq!((older.accepted, newer.accepted), (60, 60));
         fit_new_parts(&b, vehicle_id, today - DAYS * DAY_S + 3600).await;
         for ago in [90, 50, 10] {
-            inspect(&b, vehicle_id, today, ago, (DAYS - ago) as f64, None).await;
+            inspect(&b, vehicle_id, DAYS, ago, None).await;
         }
     }
     assert_eq!(trips_recorded(&b, "van-1").await, DAYS as u64, "a replica sees the trips pushed to the other");
@@ -164,7 +124,7 @@ async fn two_replicas_share_one_postgres_database() {
             break;
         }
     }
-    inspect(&a, "van-1", today, 1, (DAYS - 1) as f64, Some(3.1)).await;
+    inspect(&a, "van-1", DAYS, 1, Some(3.1)).await;
     let entered = tokio::time::timeout(Duration::from_secs(60), async {
         while let Some(event) = events.next().await {
             let event = event.expect("event");
