@@ -1,6 +1,6 @@
 //! Typed settings, layered once at start-up: built-in defaults, then an optional TOML file,
 //! then environment variables (`BRAKELEDGER_LISTEN`, `BRAKELEDGER_DATA`, `BRAKELEDGER_LOG`,
-//! `BRAKELEDGER_OPERATOR_TOKEN_FILE`), then command-line flags. Libraries never read the environment; the
+//! `BRAKELEDGER_OPERATOR_TOKEN_FILE`, `BRAKELEDGER_STORE`), then command-line flags. Libraries never read the environment; the
 //! `serve` subcommand does, through [`Settings::load`].
 
 use std::net::SocketAddr;
@@ -10,8 +10,10 @@ use serde::Deserialize;
 
 mod operations;
 mod reliability;
+mod store_engine;
 pub use operations::*;
 pub use reliability::*;
+pub use store_engine::*;
 
 /// Everything the server needs to start.
 #[derive(Debug, Clone, Deserialize, PartialEq)]
@@ -47,6 +49,8 @@ pub struct Settings {
     pub storage: StorageConfig,
     /// Start-up verification policy.
     pub integrity: IntegrityConfig,
+    /// The storage engine: embedded sled (default) or PostgreSQL.
+    pub store: StoreConfig,
 }
 
 /// Log output format.
@@ -102,6 +106,7 @@ impl Default for Settings {
             shutdown: ShutdownConfig::default(),
             storage: StorageConfig::default(),
             integrity: IntegrityConfig::default(),
+            store: StoreConfig::default(),
         }
     }
 }
@@ -171,6 +176,10 @@ impl Settings {
         if let Some(dir) = env("BRAKELEDGER_DATA") {
             settings.data_dir = PathBuf::from(dir);
         }
+        if let Some(url) = env("BRAKELEDGER_STORE") {
+            settings.store.url = Some(url);
+        }
+        settings.store.check()?;
         if let Some(filter) = env("BRAKELEDGER_LOG") {
             settings.log_filter = filter;
         }

@@ -237,7 +237,7 @@ fn prior_moved(old: Option<&GroupPrior>, new: &GroupPrior) -> bool {
 /// first, its forecasts are computed on rayon's threads (pure computation, one vehicle each),
 /// then stored in mark order.
 pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
-    let marks = store.stale_vehicles(config.batch_vehicles.max(1))?;
+    let marks = store.claim_stale(config.batch_vehicles.max(1))?;
     if marks.is_empty() {
         return Ok((Vec::new(), false));
     }
@@ -269,6 +269,8 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         changes.push(ForecastChange { before, after: Arc::new(record) });
     }
     for (fleet_id, old) in &priors_by_fleet {
+        // One replica at a time re-estimates a fleet's priors; the others skip it this pass.
+        let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { continue };
         let forecasts = store.fleet_forecasts(fleet_id)?;
         let new = pool_priors(&forecasts, &model_settings(config, 0.8));
         // Classes with a group whose prior moved, appeared or disappeared.

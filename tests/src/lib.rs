@@ -165,11 +165,24 @@ impl ServerProcess {
     /// Starts `binary serve --data dir --listen 127.0.0.1:0 <extra>`; `Err` with what the process
     /// wrote to stderr when it exits instead of listening.
     pub fn spawn_with(binary: &Path, data_dir: &Path, extra: &[&std::ffi::OsStr]) -> Result<Self, String> {
+        let mut args: Vec<&std::ffi::OsStr> = vec!["--data".as_ref(), data_dir.as_os_str()];
+        args.extend_from_slice(extra);
+        Self::spawn_serving(binary, &args)
+    }
+
+    /// Starts `binary serve --listen 127.0.0.1:0 --store url`: a replica on a shared
+    /// PostgreSQL database.
+    pub fn spawn_on_store(binary: &Path, url: &str) -> Self {
+        Self::spawn_serving(binary, &["--store".as_ref(), url.as_ref()]).unwrap_or_else(|output| panic!("server did not start: {output}"))
+    }
+
+    /// Starts `binary serve --listen 127.0.0.1:0 <args>` and reads the port it prints; `Err`
+    /// with what the process wrote to stderr when it exits instead of listening.
+    pub fn spawn_serving(binary: &Path, args: &[&std::ffi::OsStr]) -> Result<Self, String> {
         use std::io::{BufRead, Read};
         let mut child = std::process::Command::new(binary)
-            .args(["serve", "--listen", "127.0.0.1:0", "--data"])
-            .arg(data_dir)
-            .args(extra)
+            .args(["serve", "--listen", "127.0.0.1:0"])
+            .args(args)
             .env("BRAKELEDGER_LOG", "warn")
             // A client token in the developer's shell is not the server's business.
             .env_remove("BRAKELEDGER_TOKEN")
@@ -323,32 +336,12 @@ pub const TEST_WEAR_MM_PER_MJ: [f64; 4] = [0.0024, 0.00026, 0.0030, 0.00030];
 pub async fn seed_vehicle(server: &TestServer, vehicle_id: &str, days: i64, speed: f64, inspection_days_ago: &[i64]) {
     register(server, two_axle_vehicle("north", vehicle_id)).await;
     let today = now_s().div_euclid(DAY_S) * DAY_S;
-    let trips: Vec<pb::TripSummary> = (1..=days)
-        .map(|ago| {
-            let end = today - ago * DAY_S + 15 * 3600;
-            let mut t = trip("north", vehicle_id, 0, end);
-            t.trip_id = format!("day-{ago}");
-            t
-        })
-        .collect();
+    let trips = daily_trips(vehicle_id, 1..=days, today);
     let report = server.telemetry().push_trips(pb::PushTripsRequest { trips }).await.expect("push").into_inner();
     assert_eq!(report.accepted as i64, days, "seed trips accepted: {:?}", report.rejected.first());
     let mut maintenance = server.maintenance();
-    for axle in 1..=2u32 {
-        for component in [pb::Component::Friction, pb::Component::Disc] {
-            maintenance
-                .record_replacement(pb::RecordReplacementRequest {
-                    fleet_id: "north".into(),
-                    vehicle_id: vehicle_id.into(),
-                    replacement_id: format!("fit-{axle}-{}", component as i32),
-                    axle_index: axle,
-                    component: component as i32,
-                    new_thickness_mm: 0.0,
-                    replaced_at: Some(ts(today - days * DAY_S + 3600)),
-                })
-                .await
-                .expect("replacement");
-        }
+    for request in new_parts(vehicle_id, today - days * DAY_S + 3600) {
+        maintenance.record_replacement(request).await.expect("replacement");
     }
     for &ago in inspection_days_ago {
         record_test_inspection(server, vehicle_id, days, speed, ago, None).await;
@@ -358,12 +351,53 @@ pub async fn seed_vehicle(server: &TestServer, vehicle_id: &str, days: i64, spee
 /// Records inspections of all four parts `ago` days before today, with thickness following
 /// the test wear rates (or `front_pad_mm` for the front pad when given).
 pub async fn record_test_inspection(server: &TestServer, vehicle_id: &str, days: i64, speed: f64, ago: i64, front_pad_mm: Option<f64>) {
+    let mut maintenance = server.maintenance();
+    for request in test_inspections(vehicle_id, days, speed, ago, front_pad_mm) {
+        maintenance.record_inspection(request).await.expect("inspection");
+    }
+}
+
+/// One trip a day (30 MJ, ending 15:00 UTC) on each of the days `days_ago` before `today_s`,
+/// with ids `day-<days ago>`.
+pub fn daily_trips(vehicle_id: &str, days_ago: std::ops::RangeInclusive<i64>, today_s: i64) -> Vec<pb::TripSummary> {
+    days_ago
+        .map(|ago| {
+            let mut t = trip("north", vehicle_id, 0, today_s - ago * DAY_S + 15 * 3600);
+            t.trip_id = format!("day-{ago}");
+            t
+        })
+        .collect()
+}
+
+/// Replacements of all four parts of a two-axle vehicle at `at_s` (ids `fit-<axle>-<component>`).
+pub fn new_parts(vehicle_id: &str, at_s: i64) -> Vec<pb::RecordReplacementRequest> {
+    let mut requests = Vec::new();
+    for axle in 1..=2u32 {
+        for component in [pb::Component::Friction, pb::Component::Disc] {
+            requests.push(pb::RecordReplacementRequest {
+                fleet_id: "north".into(),
+                vehicle_id: vehicle_id.into(),
+                replacement_id: format!("fit-{axle}-{}", component as i32),
+                axle_index: axle,
+                component: component as i32,
+                new_thickness_mm: 0.0,
+                replaced_at: Some(ts(at_s)),
+            });
+        }
+    }
+    requests
+}
+
+/// Inspections of all four parts `ago` days before today, with thickness following the test
+/// wear rates × `speed` after `days - ago` days of one 30 MJ trip a day (or `front_pad_mm` for
+/// the front pad when given).
+pub fn test_inspections(vehicle_id: &str, days: i64, speed: f64, ago: i64, front_pad_mm: Option<f64>) -> Vec<pb::RecordInspectionRequest> {
     let today = now_s().div_euclid(DAY_S) * DAY_S;
     // Energy at each axle before the inspection day: one 30 MJ trip a day since the start.
     let days_run = (days - ago) as f64;
     let axle_mj = [30.0 * 0.65 * days_run, 30.0 * 0.35 * days_run];
     let new_mm = [22.0, 45.0];
-    let mut maintenance = server.maintenance();
+    let mut requests = Vec::new();
     for axle in 1..=2u32 {
         for (c, component) in [pb::Component::Friction, pb::Component::Disc].into_iter().enumerate() {
             let rate = TEST_WEAR_MM_PER_MJ[(axle as usize - 1) * 2 + c] * speed;
@@ -372,20 +406,18 @@ pub async fn record_test_inspection(server: &TestServer, vehicle_id: &str, days:
             if axle == 1 && c == 0 {
                 thickness = front_pad_mm.unwrap_or(thickness);
             }
-            maintenance
-                .record_inspection(pb::RecordInspectionRequest {
-                    fleet_id: "north".into(),
-                    vehicle_id: vehicle_id.into(),
-                    inspection_id: format!("insp-{ago}-{axle}-{}", component as i32),
-                    axle_index: axle,
-                    component: component as i32,
-                    thickness_mm: thickness,
-                    measured_at: Some(ts(today - ago * DAY_S + 8 * 3600)),
-                })
-                .await
-                .expect("inspection");
+            requests.push(pb::RecordInspectionRequest {
+                fleet_id: "north".into(),
+                vehicle_id: vehicle_id.into(),
+                inspection_id: format!("insp-{ago}-{axle}-{}", component as i32),
+                axle_index: axle,
+                component: component as i32,
+                thickness_mm: thickness,
+                measured_at: Some(ts(today - ago * DAY_S + 8 * 3600)),
+            });
         }
     }
+    requests
 }
 
 /// Waits until every forecast of fleet "north" reflects what is stored.
@@ -398,4 +430,22 @@ pub async fn wait_for_forecasts(server: &TestServer) {
         tokio::time::sleep(Duration::from_millis(50)).await;
     }
     panic!("forecasts still pending after 30 s");
+}
+
+/// A PostgreSQL database of its own for one test, on the server named by
+/// `BRAKELEDGER_TEST_POSTGRES_URL`; `None` with a message on how to run the test when it is not
+/// set, and a failure instead when `BRAKELEDGER_REQUIRE_POSTGRES=1` (as in CI).
+pub fn postgres_test_database() -> Option<brakeledger::store::postgres::scratch::ScratchDatabase> {
+    let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
+        assert!(
+            std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() != Ok("1"),
+            "BRAKELEDGER_REQUIRE_POSTGRES=1 but BRAKELEDGER_TEST_POSTGRES_URL is not set: .ci/run starts a throwaway PostgreSQL and sets it"
+        );
+        eprintln!(
+            "PostgreSQL test skipped: set BRAKELEDGER_TEST_POSTGRES_URL=postgres://USER@127.0.0.1:PORT/postgres (a server where tests may create \
+             databases; `bash .ci/run` starts one) to run it"
+        );
+        return None;
+    };
+    Some(brakeledger::store::postgres::scratch::ScratchDatabase::create(&admin_url, "brakeledger_e2e").expect("creating a test database"))
 }

@@ -18,7 +18,7 @@ pub const CHECK_EXAMPLES: &str = "Examples:\n  brakeledger check --data /var/lib
 /// Examples for `backup --help`.
 pub const BACKUP_EXAMPLES: &str = "Examples:\n  brakeledger backup --out brakeledger-2026-12-03.backup\n  brakeledger --server http://10.0.0.5:50051 --token $TOKEN backup --out nightly.backup";
 /// Examples for `restore --help`.
-pub const RESTORE_EXAMPLES: &str = "Examples:\n  brakeledger restore --from nightly.backup --data /var/lib/brakeledger-restored\n\nThe directory must be empty or new; the file is verified completely before anything is written.";
+pub const RESTORE_EXAMPLES: &str = "Examples:\n  brakeledger restore --from nightly.backup --data /var/lib/brakeledger-restored\n  BRAKELEDGER_STORE=postgres://brakeledger@db.internal/brakeledger brakeledger restore --from nightly.backup\n  brakeledger restore --from nightly.backup --store postgres://brakeledger@127.0.0.1/brakeledger\n\nThe directory or database must be empty or new; the file is verified completely before anything is written.\nA backup taken from either engine restores into either: this is how a data directory moves from the\nembedded database to PostgreSQL (and back).";
 /// Examples for `verify-backup --help`.
 pub const VERIFY_EXAMPLES: &str = "Examples:\n  brakeledger verify-backup nightly.backup";
 
@@ -45,8 +45,11 @@ pub struct RestoreArgs {
     #[arg(long)]
     pub from: PathBuf,
     /// Empty or new data directory to restore into.
-    #[arg(long)]
-    pub data: PathBuf,
+    #[arg(long, required_unless_present = "store", conflicts_with = "store")]
+    pub data: Option<PathBuf>,
+    /// Empty PostgreSQL database to restore into, as a URL (created schema and all).
+    #[arg(long, value_name = "URL", env = "BRAKELEDGER_STORE", hide_env_values = true)]
+    pub store: Option<String>,
 }
 
 /// Flags of `verify-backup`.
@@ -93,9 +96,17 @@ pub fn verify_backup(args: &VerifyBackupArgs, out: &mut impl Write) -> anyhow::R
 
 /// `restore`.
 pub fn restore(args: &RestoreArgs, out: &mut impl Write) -> anyhow::Result<()> {
-    let cache = StorageConfig::default().cache_capacity_bytes;
-    let summary = backup_file::restore(&args.from, &args.data, cache).with_context(|| format!("restoring {} into {}", args.from.display(), args.data.display()))?;
-    writeln!(out, "restored {} into {}; forecasts are recomputed when the server starts", describe(&args.from, &summary), args.data.display())?;
+    if let Some(dir) = &args.data {
+        let cache = StorageConfig::default().cache_capacity_bytes;
+        let summary = backup_file::restore(&args.from, dir, cache).with_context(|| format!("restoring {} into {}", args.from.display(), dir.display()))?;
+        writeln!(out, "restored {} into {}; forecasts are recomputed when the server starts", describe(&args.from, &summary), dir.display())?;
+        return Ok(());
+    }
+    let url = args.store.as_deref().context("give --data DIR or --store postgres://…")?;
+    anyhow::ensure!(crate::config::is_postgres_url(url), "--store must be a postgres:// URL");
+    let target = crate::store::postgres::redacted(url);
+    let summary = crate::store::postgres::backup::restore(&args.from, url).with_context(|| format!("restoring {} into {target}", args.from.display()))?;
+    writeln!(out, "restored {} into {target}; forecasts are recomputed when a server starts", describe(&args.from, &summary))?;
     Ok(())
 }
 

@@ -249,6 +249,11 @@ pub struct ServeArgs {
     /// Data directory of the embedded database.
     #[arg(long)]
     pub data: Option<PathBuf>,
+    /// A PostgreSQL database to use instead of the embedded one, as a URL
+    /// (postgres://user@host:5432/brakeledger); several servers may share it. A password is
+    /// better given in BRAKELEDGER_STORE or [store] url than on the command line.
+    #[arg(long, value_name = "URL", conflicts_with = "data")]
+    pub store: Option<String>,
     /// Address to listen on, e.g. 127.0.0.1:50051.
     #[arg(long)]
     pub listen: Option<std::net::SocketAddr>,

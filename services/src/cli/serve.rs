@@ -9,6 +9,7 @@ use crate::cli::ServeArgs;
 use crate::config::{LogFormat, Settings};
 use crate::server;
 use crate::state::AppState;
+use crate::store::postgres::PostgresStore;
 use crate::store::sled_store::{SledStore, StoreOptions};
 
 /// Every server setting beyond the flags, for `serve --help`.
@@ -19,6 +20,7 @@ variables, then the flags above.
   TOML key (section)            environment                       default
   listen                        BRAKELEDGER_LISTEN                127.0.0.1:50051
   data_dir                      BRAKELEDGER_DATA                  ./brakeledger-data
+  url (store)                   BRAKELEDGER_STORE                 none: the embedded database in data_dir
   log_format                    (--json-logs)                     text (or json)
   log_filter                    BRAKELEDGER_LOG                   info (tracing env-filter syntax)
   operator_token_file  [auth]   BRAKELEDGER_OPERATOR_TOKEN_FILE   none
@@ -44,6 +46,7 @@ open. Without tokens the server serves only on a loopback address, unless --inse
   [storage]   cache_capacity_bytes, min_free_bytes, space_check_interval_ms,
               change_feed_capacity, watch_queue_events
   [integrity] on_mismatch
+  [store]     url, pool_size (PostgreSQL instead of the embedded database)
 
 deploy/brakeledger.toml is a commented example of every setting.";
 
@@ -59,6 +62,46 @@ fn open_failure(error: crate::store::StoreError, dir: &std::path::Path) -> anyho
     } else {
         anyhow::Error::new(error).context(format!("opening the database in {}", dir.display()))
     }
+}
+
+/// The store the settings name, and the engine behind it when it is shared with other replicas.
+struct OpenedStore {
+    store: Arc<dyn crate::store::Store>,
+    postgres: Option<Arc<PostgresStore>>,
+}
+
+impl OpenedStore {
+    /// Publishes forecasts stored by other replicas on the state's change feed.
+    fn follow_other_replicas(&self, state: &AppState) -> anyhow::Result<Option<crate::store::postgres::replicas::ListenerHandle>> {
+        let Some(postgres) = &self.postgres else { return Ok(None) };
+        let changes = state.changes.clone();
+        let handle = postgres
+            .listen_for_forecasts(move |after| {
+                let _ = changes.send(crate::state::ForecastChange { before: None, after: Arc::new(after) });
+            })
+            .context("following forecasts stored by other replicas")?;
+        Ok(Some(handle))
+    }
+}
+
+/// Opens the embedded database in the data directory, or the PostgreSQL database of
+/// `[store] url` / `--store`.
+async fn open_store(settings: &Settings) -> anyhow::Result<OpenedStore> {
+    if let Some(url) = settings.store.postgres_url() {
+        let (url, pool_size) = (url.to_owned(), settings.store.pool_size);
+        let store = tokio::task::spawn_blocking(move || PostgresStore::open_with(&url, pool_size))
+            .await?
+            .with_context(|| format!("opening the PostgreSQL store at {}", crate::store::postgres::redacted(settings.store.postgres_url().unwrap_or_default())))?;
+        tracing::info!(store = %crate::store::postgres::redacted(settings.store.postgres_url().unwrap_or_default()), replica = store.replica_id(), "using the PostgreSQL store");
+        let store = Arc::new(store);
+        return Ok(OpenedStore { store: Arc::clone(&store) as Arc<dyn crate::store::Store>, postgres: Some(store) });
+    }
+    let data_dir = settings.data_dir.clone();
+    let options = StoreOptions { on_mismatch: settings.integrity.on_mismatch, ..StoreOptions::from(&settings.storage) };
+    let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
+        .await?
+        .map_err(|e| open_failure(e, &settings.data_dir))?;
+    Ok(OpenedStore { store: Arc::new(store), postgres: None })
 }
 
 /// Sets up `tracing` output once for the process.
@@ -158,6 +201,10 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     if let Some(data) = args.data {
         settings.data_dir = data;
     }
+    if let Some(url) = args.store {
+        settings.store.url = Some(url);
+    }
+    settings.store.check()?;
     if let Some(listen) = args.listen {
         settings.listen = listen;
     }
@@ -171,12 +218,8 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
         settings.auth.insecure_no_auth = true;
     }
     init_logging(settings.log_format, &settings.log_filter);
-    let data_dir = settings.data_dir.clone();
-    let options = StoreOptions { on_mismatch: settings.integrity.on_mismatch, ..StoreOptions::from(&settings.storage) };
-    let store = tokio::task::spawn_blocking(move || SledStore::open_with(&data_dir, &options))
-        .await?
-        .map_err(|e| open_failure(e, &settings.data_dir))?;
-    let store: Arc<dyn crate::store::Store> = Arc::new(store);
+    let opened = open_store(&settings).await?;
+    let store = Arc::clone(&opened.store);
     let access = crate::auth::bootstrap::set_up(&settings.auth, settings.listen, Arc::clone(&store), client_token.as_deref(), crate::convert::now_ms())?;
     if let Some(warning) = &access.warning {
         tracing::warn!(listen = %settings.listen, "{warning}");
@@ -205,6 +248,8 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
             }
         });
     }
+    // Forecasts stored by other replicas reach this server's WatchDue streams.
+    let _listener = opened.follow_other_replicas(&state)?;
     let signals = Signals::install();
     server::run(listener, state.clone(), shutdown_signal(signals, state)).await?;
     Ok(())

@@ -167,9 +167,31 @@ fn json<T: Serialize>(value: &T) -> Vec<u8> {
     serde_json::to_vec(value).unwrap_or_default()
 }
 
+/// Where a backup's entries come from: every (key, stored value) of one of the
+/// [`RECORD_TREES`], as the sled engine keys and encodes them, whatever the engine.
+pub trait BackupSource {
+    /// Hands every entry of `tree` to `entry`, in key order.
+    fn each_entry(&self, tree: &str, entry: &mut dyn FnMut(&[u8], &[u8]) -> Result<(), BackupError>) -> Result<(), BackupError>;
+}
+
+impl BackupSource for Engine {
+    fn each_entry(&self, tree: &str, entry: &mut dyn FnMut(&[u8], &[u8]) -> Result<(), BackupError>) -> Result<(), BackupError> {
+        for stored in self.record_entries(tree)? {
+            let (key, value) = stored?;
+            entry(&key, &value)?;
+        }
+        Ok(())
+    }
+}
+
 /// Writes a backup of `engine` to `out`. The caller holds acknowledged writes (so the copy is
 /// consistent) and passes the ledger's committed tallies, which the copy must match.
 pub fn write(engine: &Engine, expected: Option<&Tallies>, taken_at_ms: i64, out: impl Write) -> Result<BackupSummary, BackupError> {
+    write_from(engine, expected, taken_at_ms, out)
+}
+
+/// Writes a backup of what `source` holds to `out` (see [`write`]).
+pub fn write_from(source: &dyn BackupSource, expected: Option<&Tallies>, taken_at_ms: i64, out: impl Write) -> Result<BackupSummary, BackupError> {
     let mut out = Counting { inner: BufWriter::new(out), crc: crc32fast::Hasher::new(), bytes: 0 };
     out.write_all(MAGIC)?;
     let header = Header { format_version: FORMAT_VERSION, schema_version: SCHEMA_VERSION, taken_at_ms, trees: RECORD_TREES.iter().map(|t| (*t).to_owned()).collect() };
@@ -178,17 +200,17 @@ pub fn write(engine: &Engine, expected: Option<&Tallies>, taken_at_ms: i64, out:
     let mut entries = 0u64;
     let mut payload = Vec::new();
     for (index, tree) in RECORD_TREES.iter().enumerate() {
-        for entry in engine.record_entries(tree)? {
-            let (key, value) = entry?;
-            tally_entry(tree, &key, &value, &mut tallies)?;
+        source.each_entry(tree, &mut |key, value| {
+            tally_entry(tree, key, value, &mut tallies)?;
             payload.clear();
             payload.push(index as u8);
             payload.extend_from_slice(&(key.len() as u32).to_le_bytes());
-            payload.extend_from_slice(&key);
-            payload.extend_from_slice(&value);
+            payload.extend_from_slice(key);
+            payload.extend_from_slice(value);
             write_frame(&mut out, b'R', &payload)?;
             entries += 1;
-        }
+            Ok(())
+        })?;
     }
     if let Some(expected) = expected {
         if !expected.same_as(&tallies) {
@@ -308,6 +330,13 @@ fn read(input: impl Read, mut entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Resul
         return Err(BackupError::Damaged("bytes follow the end frame".into()));
     }
     Ok(BackupSummary { entries, tallies, taken_at_ms: header.taken_at_ms, file_bytes: input.bytes, file_crc32: input.crc.finalize(), schema_version: header.schema_version })
+}
+
+/// Reads a backup file from start to end, checking everything, and hands each entry to `entry`
+/// as (tree name, key, stored value). Restoring into another engine verifies first, as
+/// [`restore`] does.
+pub fn for_each_entry(path: &Path, entry: impl FnMut(&str, Vec<u8>, Vec<u8>) -> Result<(), BackupError>) -> Result<BackupSummary, BackupError> {
+    read(File::open(path)?, entry)
 }
 
 /// Verifies a backup file from start to end without restoring it.

@@ -2,7 +2,8 @@
 //!
 //! The trait is small and synchronous; handlers call it from `spawn_blocking`. Every write
 //! method returns only after what it wrote is durable on disk ("acknowledged means durable").
-//! [`sled_store::SledStore`] is the embedded default.
+//! [`sled_store::SledStore`] is the embedded default; [`postgres::PostgresStore`] keeps the
+//! same records in a PostgreSQL database that several replicas share.
 //!
 //! Beside the engine: [`ledger`] (the record of what was acknowledged, kept apart from sled's
 //! files), [`integrity`] (start-up and offline verification against it), [`backup_file`] (the
@@ -15,6 +16,7 @@ pub mod disk_space;
 pub mod integrity;
 pub mod keys;
 pub mod ledger;
+pub mod postgres;
 pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
@@ -68,6 +70,21 @@ pub enum IngestOutcome {
     Stored,
     /// Its trip_id was already stored for the vehicle (or repeated earlier in the same call).
     Duplicate,
+}
+
+/// Held while this process re-estimates a fleet's priors (see [`Store::lock_fleet_priors`]);
+/// dropping it lets another replica do so.
+#[derive(Default)]
+pub struct FleetPriorsLock {
+    /// What the engine holds for the lock (a database session), released when dropped.
+    _held: Option<Box<dyn Send>>,
+}
+
+impl FleetPriorsLock {
+    /// A lock that lasts as long as `held` does.
+    pub fn holding(held: Box<dyn Send>) -> Self {
+        Self { _held: Some(held) }
+    }
 }
 
 /// A storage engine for brakeledger.
@@ -131,6 +148,19 @@ pub trait Store: Send + Sync + 'static {
     fn mark_stale(&self, fleet_id: &str, vehicle_ids: &[String]) -> StoreResult<()>;
     /// Up to `limit` stale vehicles, with the mark's generation (for [`Store::clear_stale`]).
     fn stale_vehicles(&self, limit: usize) -> StoreResult<Vec<StaleMark>>;
+    /// Up to `limit` stale vehicles for this process to recompute now. An engine shared by
+    /// several replicas claims them for a while, so that each vehicle is recomputed by one
+    /// replica; the embedded engine has one process and returns [`Store::stale_vehicles`].
+    fn claim_stale(&self, limit: usize) -> StoreResult<Vec<StaleMark>> {
+        self.stale_vehicles(limit)
+    }
+    /// Leave for this process to re-estimate a fleet's priors now: `None` while another
+    /// replica does; the leave lasts until the returned lock is dropped. The embedded engine
+    /// has one process and always grants it.
+    fn lock_fleet_priors(&self, fleet_id: &str) -> StoreResult<Option<FleetPriorsLock>> {
+        let _ = fleet_id;
+        Ok(Some(FleetPriorsLock::default()))
+    }
     /// Number of stale vehicles of one fleet.
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64>;
     /// Whether one vehicle's forecasts wait to be recomputed (a write since they were

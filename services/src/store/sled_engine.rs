@@ -68,7 +68,7 @@ impl From<TransactionError<StoreError>> for StoreError {
 /// A stored value: the postcard encoding of `value` followed by the CRC-32 (IEEE, little-endian)
 /// of those bytes, so a value damaged on disk is detected when read instead of decoding as
 /// something else.
-fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
+pub fn encode<T: Serialize>(value: &T) -> StoreResult<Vec<u8>> {
     let bytes = postcard::to_stdvec(value).map_err(|e| StoreError::Corrupt(format!("encode: {e}")))?;
     Ok(trip_blocks::seal(bytes))
 }
@@ -84,7 +84,8 @@ pub fn checked_body(bytes: &[u8]) -> StoreResult<&[u8]> {
     Ok(body)
 }
 
-fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
+/// The value [`encode`] stored, its checksum checked.
+pub fn decode<T: DeserializeOwned>(bytes: &[u8]) -> StoreResult<T> {
     postcard::from_bytes(checked_body(bytes)?).map_err(|e| StoreError::Corrupt(e.to_string()))
 }
 
@@ -233,23 +234,15 @@ impl Engine {
     /// Writes the blocks and the trip-id index of one vehicle's trips (migration and restore of
     /// schema-3 data), in the trips' order.
     fn write_vehicle_blocks(&self, prefix: &[u8], trips: Vec<TripRecord>) -> StoreResult<()> {
-        let mut days: BTreeMap<i64, Vec<TripRecord>> = BTreeMap::new();
-        let mut entries = Vec::with_capacity(trips.len());
-        for trip in &trips {
-            let day = utc_day(trip.end_ms);
-            days.entry(day).or_default().push(trip.clone());
-            entries.push(IdEntry { hash: trip_blocks::id_hash(&trip.trip_id), day });
-        }
+        let (blocks, segments) = trip_blocks::vehicle_entries(prefix, trips)?;
         let mut batch = sled::Batch::default();
-        for (day, mut block) in days {
-            let mut key = prefix.to_vec();
-            key.extend_from_slice(&keys::ordered_i64(day));
-            batch.insert(key, trip_blocks::encode_block(day, &mut block)?);
+        for (key, value) in blocks {
+            batch.insert(key, value);
         }
         self.trip_blocks.apply_batch(batch)?;
         let mut batch = sled::Batch::default();
-        for (segment, chunk) in entries.chunks(SEGMENT_ENTRIES).enumerate() {
-            batch.insert(trip_blocks::segment_key(prefix, segment as u32), trip_blocks::encode_segment(chunk));
+        for (key, value) in segments {
+            batch.insert(key, value);
         }
         self.trip_id_index.apply_batch(batch)?;
         Ok(())
@@ -430,7 +423,7 @@ impl Engine {
 }
 
 /// `fleet 0 vehicle 0 kind id` in the corrections tree (kind: `i` or `r`).
-fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, record_id: &str) -> Vec<u8> {
+pub fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, record_id: &str) -> Vec<u8> {
     let mut key = vehicle_prefix(fleet_id, vehicle_id);
     key.push(match kind {
         ServiceKind::Inspection => b'i',
@@ -1251,7 +1244,8 @@ fn due_index_keys(record: &VehicleForecasts) -> Vec<Vec<u8>> {
     out
 }
 
-fn add_trip_to_day(day: &mut DailyEnergy, trip: &TripRecord) {
+/// Adds one trip to its day's roll-up (per-axle energy, hot energy by the trip's hot share).
+pub fn add_trip_to_day(day: &mut DailyEnergy, trip: &TripRecord) {
     let axles = trip.axle_energy_j.len();
     day.axle_energy_j.resize(day.axle_energy_j.len().max(axles), 0.0);
     day.axle_hot_energy_j.resize(day.axle_hot_energy_j.len().max(axles), 0.0);

@@ -289,6 +289,31 @@ pub fn decode_block(fleet_id: &str, vehicle_id: &str, day: i64, body: &[u8]) -> 
     Ok(trips)
 }
 
+/// Stored entries as (key, sealed value) pairs, in key order.
+pub type KeyedValues = Vec<(Vec<u8>, Vec<u8>)>;
+
+/// The stored entries of one vehicle's trips: its day blocks (`trip_blocks`) and its trip-id
+/// index segments (`trip_id_index`, entries in the trips' order). `prefix` is the vehicle's
+/// `fleet 0 vehicle 0`. Used where whole histories are laid out at once: the schema-3
+/// migration, and backups taken from another engine.
+pub fn vehicle_entries(prefix: &[u8], trips: Vec<TripRecord>) -> StoreResult<(KeyedValues, KeyedValues)> {
+    let mut days: std::collections::BTreeMap<i64, Vec<TripRecord>> = std::collections::BTreeMap::new();
+    let mut entries = Vec::with_capacity(trips.len());
+    for trip in trips {
+        let day = utc_day(trip.end_ms);
+        entries.push(IdEntry { hash: id_hash(&trip.trip_id), day });
+        days.entry(day).or_default().push(trip);
+    }
+    let mut blocks = Vec::with_capacity(days.len());
+    for (day, mut block) in days {
+        let mut key = prefix.to_vec();
+        key.extend_from_slice(&super::keys::ordered_i64(day));
+        blocks.push((key, encode_block(day, &mut block)?));
+    }
+    let segments = entries.chunks(SEGMENT_ENTRIES).enumerate().map(|(n, chunk)| (segment_key(prefix, n as u32), encode_segment(chunk))).collect();
+    Ok((blocks, segments))
+}
+
 /// One trip-id index entry: hash of the id and the UTC day of its block.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct IdEntry {

@@ -18,6 +18,7 @@ mod long_stream;
 mod maintenance;
 mod memory_soak;
 mod plan;
+mod replicas;
 mod report_size;
 mod safe_defaults;
 mod shutdown;

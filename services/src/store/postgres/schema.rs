@@ -1,0 +1,222 @@
+//! The PostgreSQL schema: an ordered list of migrations, applied at start under an advisory
+//! lock (so replicas starting together migrate once), and the refusal of a newer schema.
+//!
+//! Every table that holds fleet data has a primary key, and every index, leading with
+//! `fleet_id`, so the tables can be distributed by fleet (see the README, "Sharding by
+//! fleet"). Two tables are global: `brakeledger_schema` (one row) and `access_tokens` (looked
+//! up by the hash of a secret; operator tokens belong to no fleet). Identifiers are
+//! `text COLLATE "C"`, so their order is byte order, the same as the sled engine's keys.
+//!
+//! Derived data (materialised forecasts, fleet priors) are stored as the same checksummed
+//! postcard bytes the sled engine stores: they are rebuilt from the records, never queried by
+//! field. Records are plain columns.
+
+use ::postgres::GenericClient;
+
+use crate::store::{StoreError, StoreResult};
+
+/// Schema version this build writes; a database with a higher one is refused.
+pub const SCHEMA_VERSION: u32 = 1;
+
+/// Advisory lock key held while migrating (any constant shared by every replica).
+const MIGRATION_LOCK: i64 = 0x6272_616b_656c_6467; // "brakeldg"
+
+/// The migrations, in order: entry `i` takes the schema from version `i` to `i + 1`.
+const MIGRATIONS: [&str; SCHEMA_VERSION as usize] = [r#"
+CREATE SEQUENCE stale_generation;
+CREATE SEQUENCE audit_sequence;
+
+-- Element-wise sum of two arrays of energies, the shorter padded with zeros (daily roll-up).
+CREATE FUNCTION brakeledger_add_arrays(a float8[], b float8[]) RETURNS float8[]
+LANGUAGE sql IMMUTABLE AS $$
+  SELECT coalesce(array_agg(coalesce(a[i], 0) + coalesce(b[i], 0) ORDER BY i), '{}')
+  FROM generate_series(1, greatest(coalesce(cardinality(a), 0), coalesce(cardinality(b), 0))) AS i
+$$;
+
+CREATE TABLE fleets (
+  fleet_id text COLLATE "C" PRIMARY KEY,
+  time_zone text NOT NULL,
+  display_name text NOT NULL
+);
+
+CREATE TABLE vehicles (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  vin text,
+  spec jsonb NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id)
+);
+
+CREATE TABLE vehicle_totals (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  trips_recorded bigint NOT NULL,
+  friction_energy_j float8 NOT NULL,
+  distance_m float8 NOT NULL,
+  last_trip_end_ms bigint,
+  PRIMARY KEY (fleet_id, vehicle_id)
+);
+
+CREATE TABLE trips (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  trip_id text COLLATE "C" NOT NULL,
+  start_ms bigint NOT NULL,
+  end_ms bigint NOT NULL,
+  distance_m float8 NOT NULL,
+  friction_energy_j float8 NOT NULL,
+  axle_energy_j float8[] NOT NULL,
+  axle_split_reported boolean NOT NULL,
+  brake_applications bigint NOT NULL,
+  regen_energy_j float8,
+  hot_energy_j float8 NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id, trip_id)
+);
+CREATE INDEX trips_by_end ON trips (fleet_id, vehicle_id, end_ms, trip_id);
+
+CREATE TABLE daily_energy (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  day bigint NOT NULL,
+  axle_energy_j float8[] NOT NULL,
+  axle_hot_energy_j float8[] NOT NULL,
+  trips bigint NOT NULL,
+  distance_m float8 NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id, day)
+);
+
+CREATE TABLE inspections (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  inspection_id text COLLATE "C" NOT NULL,
+  axle_index bigint NOT NULL,
+  component smallint NOT NULL,
+  thickness_mm float8 NOT NULL,
+  measured_at_ms bigint NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id, inspection_id)
+);
+
+CREATE TABLE replacements (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  replacement_id text COLLATE "C" NOT NULL,
+  axle_index bigint NOT NULL,
+  component smallint NOT NULL,
+  new_thickness_mm float8 NOT NULL,
+  replaced_at_ms bigint NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id, replacement_id)
+);
+
+CREATE TABLE corrections (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  kind "char" NOT NULL,
+  record_id text COLLATE "C" NOT NULL,
+  reason text NOT NULL,
+  corrected_at_ms bigint NOT NULL,
+  superseded_by text COLLATE "C",
+  PRIMARY KEY (fleet_id, vehicle_id, kind, record_id)
+);
+
+CREATE TABLE forecasts (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  body bytea NOT NULL,
+  PRIMARY KEY (fleet_id, vehicle_id)
+);
+
+CREATE TABLE due_index (
+  fleet_id text COLLATE "C" NOT NULL,
+  level smallint NOT NULL,
+  due_earliest_ms bigint NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  axle_index bigint NOT NULL,
+  component smallint NOT NULL,
+  PRIMARY KEY (fleet_id, level, due_earliest_ms, vehicle_id, axle_index, component)
+);
+CREATE INDEX due_index_by_vehicle ON due_index (fleet_id, vehicle_id);
+
+CREATE TABLE stale (
+  fleet_id text COLLATE "C" NOT NULL,
+  vehicle_id text COLLATE "C" NOT NULL,
+  generation bigint NOT NULL,
+  claimed_by text,
+  claimed_until_ms bigint,
+  PRIMARY KEY (fleet_id, vehicle_id)
+);
+
+CREATE TABLE priors (
+  fleet_id text COLLATE "C" PRIMARY KEY,
+  body bytea NOT NULL
+);
+
+CREATE TABLE access_tokens (
+  secret_sha256 bytea PRIMARY KEY,
+  token_id text NOT NULL,
+  fleet_id text COLLATE "C",
+  role text NOT NULL,
+  label text NOT NULL,
+  created_at_ms bigint NOT NULL,
+  created_by text NOT NULL,
+  revoked_at_ms bigint
+);
+
+CREATE TABLE audit (
+  fleet_id text COLLATE "C" NOT NULL,
+  at_ms bigint NOT NULL,
+  sequence bigint NOT NULL,
+  token_id text NOT NULL,
+  role text NOT NULL,
+  action text NOT NULL,
+  subject text NOT NULL,
+  PRIMARY KEY (fleet_id, at_ms, sequence)
+);
+"#];
+
+/// Creates or migrates the schema, or refuses a database written by a newer brakeledger.
+pub fn migrate(client: &mut ::postgres::Client) -> StoreResult<()> {
+    client.execute("SELECT pg_advisory_lock($1)", &[&MIGRATION_LOCK])?;
+    let result = migrate_locked(client);
+    let unlocked = client.execute("SELECT pg_advisory_unlock($1)", &[&MIGRATION_LOCK]);
+    result?;
+    unlocked?;
+    Ok(())
+}
+
+fn migrate_locked(client: &mut ::postgres::Client) -> StoreResult<()> {
+    client.batch_execute(
+        "CREATE TABLE IF NOT EXISTS brakeledger_schema (
+           one boolean PRIMARY KEY DEFAULT true CHECK (one),
+           version integer NOT NULL
+         )",
+    )?;
+    let found = stored_version(client)?;
+    if found > SCHEMA_VERSION {
+        return Err(StoreError::NewerSchema { found, supported: SCHEMA_VERSION });
+    }
+    for (index, sql) in MIGRATIONS.iter().enumerate().skip(found as usize) {
+        let to = index as i32 + 1;
+        let mut tx = client.transaction()?;
+        tx.batch_execute(sql)?;
+        tx.execute(
+            "INSERT INTO brakeledger_schema (one, version) VALUES (true, $1) ON CONFLICT (one) DO UPDATE SET version = EXCLUDED.version",
+            &[&to],
+        )?;
+        tx.commit()?;
+        tracing::info!(to, "PostgreSQL schema migrated");
+    }
+    Ok(())
+}
+
+/// The schema version stored (0 for a database brakeledger never wrote to).
+pub fn stored_version(client: &mut impl GenericClient) -> StoreResult<u32> {
+    let row = client.query_opt("SELECT version FROM brakeledger_schema", &[])?;
+    Ok(row.map_or(0, |r| r.get::<_, i32>(0).max(0) as u32))
+}
+
+/// Writes a schema version (tests of the refusal to open newer databases).
+pub fn force_version(client: &mut impl GenericClient, version: u32) -> StoreResult<()> {
+    let version = i32::try_from(version).map_err(|_| StoreError::Engine("schema version out of range".into()))?;
+    client.execute("UPDATE brakeledger_schema SET version = $1", &[&version])?;
+    Ok(())
+}
