@@ -35,6 +35,8 @@ Health and reflection stay open.
   [storage]   cache_capacity_bytes, min_free_bytes, space_check_interval_ms,
               change_feed_capacity, watch_queue_events
   [integrity] on_mismatch
+  [metrics]   listen (Prometheus text on its own port; default off)
+  [web]       listen (the planners' web page on its own port, --web-listen; default off)
 
 deploy/brakeledger.toml is a commented example.";
 
@@ -135,6 +137,19 @@ fn reload_tls_on_hangup(tls: Arc<crate::tls::TlsReloader>) {
     drop(tls);
 }
 
+/// Serves the web page on `listener` until the server begins to stop.
+pub fn spawn_web_page(listener: TcpListener, state: AppState) {
+    let mut stopping = state.stopping.subscribe();
+    tokio::spawn(async move {
+        let stopped = async move {
+            let _ = stopping.wait_for(|stop| *stop).await;
+        };
+        if let Err(error) = crate::web::serve(listener, state, stopped).await {
+            tracing::error!(%error, "web page listener failed");
+        }
+    });
+}
+
 /// Runs the server until a signal. `client_token` is the client's `--token` /
 /// `BRAKELEDGER_TOKEN`, which a server never uses: given as a flag it is refused, and from the
 /// environment it is refused when the server would otherwise run without tokens.
@@ -160,6 +175,9 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     }
     if args.insecure_no_auth {
         settings.auth.insecure_no_auth = true;
+    }
+    if let Some(address) = args.web_listen {
+        settings.web.listen = Some(address);
     }
     init_logging(settings.log_format, &settings.log_filter);
     let data_dir = settings.data_dir.clone();
@@ -195,6 +213,12 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
                 tracing::error!(%error, "metrics listener failed");
             }
         });
+    }
+    if let Some(address) = settings.web.listen {
+        let web_listener = TcpListener::bind(address).await.with_context(|| format!("web page listener on {address}"))?;
+        // Tests and scripts read this line to learn the page's port when listening on :0.
+        println!("brakeledger web page on http://{}/", web_listener.local_addr()?);
+        spawn_web_page(web_listener, state.clone());
     }
     let signals = Signals::install();
     server::run(listener, state.clone(), shutdown_signal(signals, state)).await?;
