@@ -100,8 +100,13 @@ pub async fn fleet_at_a_glance(State(state): State<AppState>, Path(fleet_id): Pa
             let note = if undated.is_empty() {
                 String::new()
             } else {
-                let named: Vec<String> = undated.iter().map(|u| format!("axle {} {}: {}", u.axle_index, vehicle_part_name(&vehicles, &u.vehicle_id, u.axle_index, u.component), u.reason)).collect();
-                escape(&format!("{} part(s) cannot be forecast: {}", undated.len(), named.join("; ")))
+                let mut reasons: Vec<&str> = Vec::new();
+                for reason in undated.iter().map(|u| u.reason.as_str()) {
+                    if !reasons.contains(&reason) {
+                        reasons.push(reason);
+                    }
+                }
+                escape(&format!("{} part(s) cannot be forecast: {}", undated.len(), reasons.join("; ")))
             };
             (status.replace(' ', "-"), vec![
                 link(&vehicle_href(&fleet_id, &vehicle.vehicle_id), &vehicle.vehicle_id),
