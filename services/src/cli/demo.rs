@@ -190,12 +190,13 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
 
 /// Where the web page is and how to sign in.
 fn web_page_note(address: std::net::SocketAddr, planner_token: &str, keep_serving: bool, out: &mut impl Write) -> anyhow::Result<()> {
-    let open = if keep_serving { "Open it now (Ctrl-C stops it)" } else { "It stops with the demo; run `brakeledger demo --keep-serving` to keep it up" };
+    let open = if keep_serving { "open it now; Ctrl-C stops it" } else { "it stops with the demo: run `brakeledger demo --keep-serving` to keep it up" };
     writeln!(
         out,
         "\n== Web page ==\n\nThe planners' web page is at http://{address}/ ({open}).\n\
          Sign in with the demo fleet's planner token: {planner_token}\n\
-         Fleet at a glance: http://{address}/fleets/{DEMO_FLEET}, visit plan with CSV and iCalendar downloads: http://{address}/fleets/{DEMO_FLEET}/plan"
+         Fleet at a glance: http://{address}/fleets/{DEMO_FLEET}\n\
+         Visit plan with CSV and iCalendar downloads: http://{address}/fleets/{DEMO_FLEET}/plan\n\n{SAFETY_CAUTION}"
     )?;
     out.flush()?;
     Ok(())

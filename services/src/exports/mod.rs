@@ -19,13 +19,13 @@ pub enum ExportError {
     Text(#[from] std::string::FromUtf8Error),
 }
 
-/// The status word of a due part: "overdue" (its median date has passed), "due now" (at or
-/// below its minimum), else "due".
+/// The status word of a dated part: "overdue" (its median date has passed), "due now" (at or
+/// below its minimum), else "forecast" (a due date lies ahead).
 pub fn due_status(part: &pb::PartForecast) -> &'static str {
     match (part.overdue, part.due_now) {
         (true, _) => "overdue",
         (false, true) => "due now",
-        (false, false) => "due",
+        (false, false) => "forecast",
     }
 }
 

@@ -81,14 +81,14 @@ pub fn badge(status: &str) -> String {
 pub fn page(title: &str, fleet_id: Option<&str>, body: &str) -> String {
     let nav = match fleet_id {
         Some(fleet) => format!(
-            "<nav>{} · {} · {} · {} · {}<form method=\"post\" action=\"/sign-out\" class=\"sign-out\"><button>Sign out</button></form></nav>",
+            "<nav>{} · {} · {} · {} {}<form method=\"post\" action=\"/sign-out\" class=\"sign-out\"><button>Sign out</button></form></nav>",
             link("/", "Fleets"),
             link(&fleet_href(fleet, ""), &format!("Fleet {fleet}")),
             link(&fleet_href(fleet, "/due"), "Due list"),
             link(&fleet_href(fleet, "/plan"), "Visit plan"),
             "<span class=\"muted\">brakeledger</span>"
         ),
-        None => format!("<nav>{} · <span class=\"muted\">brakeledger</span><form method=\"post\" action=\"/sign-out\" class=\"sign-out\"><button>Sign out</button></form></nav>", link("/", "Fleets")),
+        None => format!("<nav>{} <span class=\"muted\">brakeledger</span><form method=\"post\" action=\"/sign-out\" class=\"sign-out\"><button>Sign out</button></form></nav>", link("/", "Fleets")),
     };
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\

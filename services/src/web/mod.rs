@@ -62,13 +62,13 @@ pub fn router(state: AppState) -> axum::Router {
         .with_state(state)
 }
 
-/// Headers on every response: only our own scripts, styles and images run or load; the page is
+/// Headers on every response: only our own scripts, styles, images and fetches run or load; the page is
 /// never framed; content types are not guessed; nothing is cached (the page shows live data
 /// read with the caller's token).
 async fn with_safe_headers(mut response: Response) -> Response {
     let headers = response.headers_mut();
     let fixed = [
-        (header::CONTENT_SECURITY_POLICY, "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'"),
+        (header::CONTENT_SECURITY_POLICY, "default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; connect-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'"),
         (header::X_CONTENT_TYPE_OPTIONS, "nosniff"),
         (header::X_FRAME_OPTIONS, "DENY"),
         (header::REFERRER_POLICY, "no-referrer"),

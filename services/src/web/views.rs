@@ -146,7 +146,7 @@ pub struct DueQuery {
     pub axle: Option<String>,
     /// "pad" (or lining), "rotor" (or drum), or "any".
     pub part: Option<String>,
-    /// "overdue", "due-now", "due", "cannot-forecast", or "any".
+    /// "overdue", "due-now", "forecast", "cannot-forecast", or "any".
     pub status: Option<String>,
 }
 
@@ -159,7 +159,7 @@ pub struct DueFilter {
     pub axle: Option<u32>,
     /// One component only.
     pub component: pb::Component,
-    /// One status only ("overdue", "due-now", "due", "cannot-forecast").
+    /// One status only ("overdue", "due-now", "forecast", "cannot-forecast").
     pub status: Option<String>,
 }
 
@@ -183,8 +183,8 @@ impl DueFilter {
         };
         let status = match given(&query.status) {
             None => None,
-            Some(s) if ["overdue", "due-now", "due", "cannot-forecast"].contains(&s.as_str()) => Some(s),
-            Some(_) => return Err(WebError::BadQuery("status must be overdue, due-now, due, cannot-forecast or 'any'".into())),
+            Some(s) if ["overdue", "due-now", "forecast", "cannot-forecast"].contains(&s.as_str()) => Some(s),
+            Some(_) => return Err(WebError::BadQuery("status must be overdue, due-now, forecast, cannot-forecast or 'any'".into())),
         };
         Ok(Self { within_days, axle, component, status })
     }
@@ -243,7 +243,7 @@ pub async fn due_list(State(state): State<AppState>, Path(fleet_id): Path<String
     let any = || ("any".to_owned(), "any".to_owned());
     let axles: Vec<(String, String)> = std::iter::once(any()).chain((1..=max_axle).map(|a| (a.to_string(), a.to_string()))).collect();
     let parts = [any(), ("pad".into(), "pad or lining".into()), ("rotor".into(), "rotor or drum".into())];
-    let statuses = [any(), ("overdue".into(), "overdue".into()), ("due-now".into(), "due now".into()), ("due".into(), "due".into()), ("cannot-forecast".into(), "cannot forecast".into())];
+    let statuses = [any(), ("overdue".into(), "overdue".into()), ("due-now".into(), "due now".into()), ("forecast".into(), "forecast ahead".into()), ("cannot-forecast".into(), "cannot forecast".into())];
     let chosen_part = match filter.component {
         pb::Component::Friction => "pad",
         pb::Component::Disc => "rotor",
