@@ -8,29 +8,15 @@
 use std::hint::black_box;
 use std::time::Duration;
 
-use brakeledger_models::calibration::vehicle_inputs;
-use brakeledger_models::pipeline::{forecast_parts, PartInput};
-use brakeledger_models::simulator::{simulate, SimConfig};
+use brakeledger_models::calibration::repeated_fleet_inputs;
+use brakeledger_models::pipeline::forecast_parts;
 use brakeledger_models::{fit_part, ForecastSettings};
 use criterion::{criterion_group, criterion_main, Criterion};
 
 const PARTS: usize = 100_000;
 
-/// 100,000 part inputs: a simulated fleet's parts (invented data), repeated to the count.
-fn inputs() -> (Vec<PartInput>, f64) {
-    let fleet = simulate(&SimConfig { vehicles: 400, history_days: 730, future_days: 1, ..SimConfig::default() });
-    let base: Vec<PartInput> =
-        fleet.vehicles.iter().flat_map(|v| vehicle_inputs(v, fleet.start_day, fleet.cut_day, 120)).map(|(_, i)| i).collect();
-    // Each repetition of the fleet gets its own vehicle ids, so no two copies pool as one vehicle.
-    let all = (0..)
-        .flat_map(|copy| base.iter().map(move |p| PartInput { vehicle_id: format!("{}-copy{copy}", p.vehicle_id), ..p.clone() }))
-        .take(PARTS)
-        .collect();
-    (all, fleet.cut_day as f64)
-}
-
 fn bench(c: &mut Criterion) {
-    let (inputs, today) = inputs();
+    let (inputs, today) = repeated_fleet_inputs(PARTS);
     let settings = ForecastSettings::default();
     let mut group = c.benchmark_group("fit_and_forecast_100k_parts");
     group.sample_size(10).warm_up_time(Duration::from_secs(1)).measurement_time(Duration::from_secs(20));

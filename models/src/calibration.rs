@@ -283,6 +283,20 @@ pub fn forecast_fleet(fleet: &SimulatedFleet, settings: &ForecastSettings) -> Ha
     keys.into_iter().zip(results).filter_map(|(k, r)| r.outlook.due.map(|d| (k, d))).collect()
 }
 
+/// `parts` pipeline inputs for benchmarks: the parts of a 400-vehicle simulated fleet (730
+/// days of history, invented data) repeated to the count, each copy with its own vehicle ids so
+/// that no two copies pool as one vehicle. Returns the inputs and the cut day (today).
+pub fn repeated_fleet_inputs(parts: usize) -> (Vec<PartInput>, f64) {
+    let fleet = crate::simulator::simulate(&crate::simulator::SimConfig { vehicles: 400, history_days: 730, future_days: 1, ..Default::default() });
+    let base: Vec<PartInput> =
+        fleet.vehicles.iter().flat_map(|v| vehicle_inputs(v, fleet.start_day, fleet.cut_day, 120)).map(|(_, i)| i).collect();
+    let all = (0..)
+        .flat_map(|copy| base.iter().map(move |p| PartInput { vehicle_id: format!("{}-copy{copy}", p.vehicle_id), ..p.clone() }))
+        .take(parts)
+        .collect();
+    (all, fleet.cut_day as f64)
+}
+
 /// One part's current-cycle data in km, for the baselines.
 struct KmCycle {
     /// (km since the cycle origin, thickness) points; the origin is the fitting or first inspection.

@@ -43,30 +43,32 @@ pub fn estimate_energy_rate(
     }
     let recent = &daily_energy_mj[daily_energy_mj.len() - window..];
     let half_life = if half_life_days > 0.0 && half_life_days.is_finite() { half_life_days } else { f64::INFINITY };
+    // wᵢ = 2^(−i/h) by repeated multiplication (one exp per window, not per day).
+    let decay = (-std::f64::consts::LN_2 / half_life).exp();
     let mut sw = 0.0;
     let mut sw2 = 0.0;
     let mut swe = 0.0;
+    let mut swee = 0.0;
     let mut active = 0;
-    for (age, e) in recent.iter().rev().enumerate() {
+    let mut w = 1.0;
+    for e in recent.iter().rev() {
         let e = if e.is_finite() && *e > 0.0 { *e } else { 0.0 };
         if e > 0.0 {
             active += 1;
         }
-        let w = (-(age as f64) / half_life * std::f64::consts::LN_2).exp();
         sw += w;
         sw2 += w * w;
         swe += w * e;
+        swee += w * e * e;
+        w *= decay;
     }
     if active == 0 || sw <= 0.0 {
         return None;
     }
     let mean = swe / sw;
-    let mut ss = 0.0;
-    for (age, e) in recent.iter().rev().enumerate() {
-        let e = if e.is_finite() && *e > 0.0 { *e } else { 0.0 };
-        let w = (-(age as f64) / half_life * std::f64::consts::LN_2).exp();
-        ss += w * (e - mean) * (e - mean);
-    }
+    // Σwᵢ(eᵢ − μ)² = Σwᵢeᵢ² − μ·Σwᵢeᵢ; the difference of two sums is exact enough here
+    // (energies are non-negative and the mean is their weighted average), and kept ≥ 0.
+    let ss = (swee - mean * swe).max(0.0);
     let n_eff = sw * sw / sw2;
     let variance = if n_eff > 1.0 { ss / sw * n_eff / (n_eff - 1.0) } else { mean * mean };
     // A floor keeps the first-passage shape finite when every day was identical.

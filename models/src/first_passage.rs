@@ -87,6 +87,24 @@ impl FirstPassage {
         0.5 * (low + high)
     }
 
+    /// The passage time, days, that the transformation of Michael, Schucany & Haas (1976,
+    /// *The American Statistician* 30:88) makes of a χ²₁ value `chi_square` (ν² for a standard
+    /// normal ν) and a uniform `uniform` in (0, 1): the smaller root
+    /// `x = m/(1 + a + √(a² + 2a))`, `a = m·ν²/(2λ)` (the textbook
+    /// `m + m²ν²/(2λ) − (m/2λ)·√(4mλν² + m²ν⁴)`, rewritten so that it does not cancel), taken
+    /// with probability `m/(m + x)`, else `m²/x`. Fed independent χ²₁ and uniform values it is
+    /// inverse Gaussian; fed quasi-random ones it integrates over the passage time.
+    pub fn transform(&self, chi_square: f64, uniform: f64) -> f64 {
+        let m = self.mean_days;
+        let a = m * chi_square / (2.0 * self.shape_days);
+        let x = m / (1.0 + a + (a * a + 2.0 * a).sqrt());
+        if uniform * (m + x) <= m {
+            x
+        } else {
+            m * m / x
+        }
+    }
+
     /// One random passage time, days (Michael, Schucany & Haas 1976 via `rand_distr`).
     pub fn sample<R: Rng + ?Sized>(&self, rng: &mut R) -> f64 {
         match InverseGaussian::new(self.mean_days, self.shape_days) {

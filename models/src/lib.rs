@@ -19,6 +19,7 @@
 //! - [`pooling`]: the fleet prior per group (empirical Bayes) and its combination with a fit.
 //! - [`energy_rate`]: recency-weighted daily friction energy at a brake.
 //! - [`first_passage`]: the inverse Gaussian time to dissipate a remaining energy.
+//! - [`quasi_random`]: Sobol points and their normal scores for the due-date integral.
 //! - [`forecast`]: due-date distributions and thickness trajectories.
 //! - [`vehicle_forecast`]: all parts of one vehicle together, rotors borrowing from their pads.
 //! - [`visit_plan`]: workshop visits that book parts before their due dates.
@@ -39,6 +40,7 @@ pub mod physics;
 pub mod pipeline;
 pub mod plausibility;
 pub mod pooling;
+pub mod quasi_random;
 pub mod random_effects;
 pub mod regression;
 pub mod visit_plan;

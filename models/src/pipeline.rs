@@ -7,13 +7,16 @@
 //! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
 //! prior it is shrunk toward.
 
-use std::collections::{BTreeMap, HashMap};
+use std::borrow::Borrow;
+use std::collections::HashMap;
+
+use rayon::prelude::*;
 
 use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
 use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
-use crate::vehicle_forecast::{forecast_vehicle, PartData};
+use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -55,11 +58,12 @@ pub struct PartResult {
 
 /// Estimates every group's prior from `(group, vehicle key, own fit)` triples, then the pad
 /// coupling of each rotor (drum) group from the pad (lining) group of the same class and axle.
-pub fn estimate_group_priors(
-    fits: impl IntoIterator<Item = (GroupKey, u64, WearFit)>,
+/// The fits may be owned or borrowed (`WearFit` or `&WearFit`).
+pub fn estimate_group_priors<F: Borrow<WearFit>>(
+    fits: impl IntoIterator<Item = (GroupKey, u64, F)>,
     settings: &ForecastSettings,
 ) -> HashMap<GroupKey, WearPrior> {
-    let mut groups: HashMap<GroupKey, Vec<(u64, WearFit)>> = HashMap::new();
+    let mut groups: HashMap<GroupKey, Vec<(u64, F)>> = HashMap::new();
     for (group, key, fit) in fits {
         groups.entry(group).or_default().push((key, fit));
     }
@@ -89,42 +93,56 @@ pub fn estimate_group_priors(
 
 /// Fits every part (of any sign) and estimates one prior per group.
 pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, HashMap<GroupKey, WearPrior>) {
-    let fits: Vec<Option<WearFit>> = inputs.iter().map(|p| fit_part_any_sign(&p.history, settings).ok()).collect();
+    let fits: Vec<Option<WearFit>> = inputs.par_iter().map(|p| fit_part_any_sign(&p.history, settings).ok()).collect();
     let triples = inputs
         .iter()
         .zip(&fits)
-        .filter_map(|(input, fit)| fit.clone().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
+        .filter_map(|(input, fit)| fit.as_ref().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
     let priors = estimate_group_priors(triples, settings);
     (fits, priors)
 }
 
 /// Runs the pipeline over `inputs` for `today_day` (days since epoch); results in input order.
+/// Fits and vehicles are spread over rayon's threads; each vehicle's forecast depends only on
+/// its own data, the priors and its own seed, so the result does not depend on the threads.
 pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastSettings) -> Vec<PartResult> {
-    let (_, priors) = fit_and_pool(inputs, settings);
-    let mut by_vehicle: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
+    let (mut fits, priors) = fit_and_pool(inputs, settings);
+    let mut by_vehicle: HashMap<&str, Vec<usize>> = HashMap::new();
     for (i, input) in inputs.iter().enumerate() {
         by_vehicle.entry(input.vehicle_id.as_str()).or_default().push(i);
     }
+    // Each vehicle with its parts' indices and own fits.
+    type Members = Vec<(usize, Option<WearFit>)>;
+    let vehicles: Vec<(&str, Members)> = by_vehicle
+        .into_iter()
+        .map(|(vehicle_id, indices)| (vehicle_id, indices.into_iter().map(|i| (i, fits[i].take())).collect()))
+        .collect();
+    let computed: Vec<Vec<(usize, PartResult)>> = vehicles
+        .into_par_iter()
+        .map(|(vehicle_id, members)| {
+            // One random stream per vehicle, as in the service.
+            let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
+            let parts: Vec<PartData<'_>> = members
+                .iter()
+                .map(|&(i, _)| PartData {
+                    history: &inputs[i].history,
+                    daily_energy_mj: &inputs[i].daily_energy_mj,
+                    current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
+                })
+                .collect();
+            let class = &inputs[members[0].0].group.vehicle_class;
+            let prior_of = |axle_index: u32, component: Component| {
+                priors.get(&GroupKey { vehicle_class: class.clone(), axle_index, component })
+            };
+            let indices: Vec<usize> = members.iter().map(|m| m.0).collect();
+            let own_fits = members.into_iter().map(|m| m.1).collect();
+            let results = forecast_vehicle_fitted(vehicle_key(&[vehicle_id]), &parts, own_fits, prior_of, today_day, &vehicle_settings);
+            indices.into_iter().zip(results).map(|(i, r)| (i, PartResult { own_fit: r.own_fit, outlook: r.outlook })).collect()
+        })
+        .collect();
     let mut out: Vec<Option<PartResult>> = vec![None; inputs.len()];
-    for (vehicle_id, indices) in by_vehicle {
-        // One random stream per vehicle, as in the service.
-        let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
-        let parts: Vec<PartData<'_>> = indices
-            .iter()
-            .map(|&i| PartData {
-                history: &inputs[i].history,
-                daily_energy_mj: &inputs[i].daily_energy_mj,
-                current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
-            })
-            .collect();
-        let class = &inputs[indices[0]].group.vehicle_class;
-        let prior_of = |axle_index: u32, component: Component| {
-            priors.get(&GroupKey { vehicle_class: class.clone(), axle_index, component })
-        };
-        let results = forecast_vehicle(vehicle_key(&[vehicle_id]), &parts, prior_of, today_day, &vehicle_settings);
-        for (&i, r) in indices.iter().zip(results) {
-            out[i] = Some(PartResult { own_fit: r.own_fit, outlook: r.outlook });
-        }
+    for (i, r) in computed.into_iter().flatten() {
+        out[i] = Some(r);
     }
     out.into_iter().flatten().collect()
 }

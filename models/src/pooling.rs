@@ -53,6 +53,8 @@
 //! too precise for that grid, the prior's shape does not matter and the conjugate normal update
 //! is used ([`combine`]): `k_post = (k̂/s² + m/v)/(1/s² + 1/v)`, `Var = 1/(1/s² + 1/v)`.
 
+use std::borrow::Borrow;
+
 use serde::{Deserialize, Serialize};
 
 use crate::random_effects::paule_mandel;
@@ -189,8 +191,9 @@ fn usable(fit: &WearFit) -> bool {
 /// Estimates the group prior from the own-data fits of one group, each with its vehicle's key
 /// (module docs). Fits of any sign count. `None` with fewer than [`MIN_PRIOR_VEHICLES`] usable
 /// fits or when the pooled mean is not positive.
-pub fn estimate_prior(fits: &[(u64, WearFit)], settings: &ForecastSettings) -> Option<WearPrior> {
-    let usable: Vec<&(u64, WearFit)> = fits.iter().filter(|(_, f)| usable(f)).collect();
+/// The fits may be owned or borrowed (`WearFit` or `&WearFit`).
+pub fn estimate_prior<F: Borrow<WearFit>>(fits: &[(u64, F)], settings: &ForecastSettings) -> Option<WearPrior> {
+    let usable: Vec<(u64, &WearFit)> = fits.iter().map(|(k, f)| (*k, f.borrow())).filter(|(_, f)| usable(f)).collect();
     if usable.len() < MIN_PRIOR_VEHICLES {
         return None;
     }

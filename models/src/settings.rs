@@ -3,6 +3,27 @@
 
 use serde::{Deserialize, Serialize};
 
+/// How the due-date distribution integrates over the uncertain wear rate, thickness, energy
+/// use and passage time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+pub enum BandSampling {
+    /// The first points of a Sobol sequence, the same for every part
+    /// ([`crate::quasi_random`]), [`ForecastSettings::quasi_random_points`] of them.
+    #[default]
+    QuasiRandom,
+    /// Seeded pseudo-random draws (ChaCha8), [`ForecastSettings::monte_carlo_draws`] of them:
+    /// the earlier method, kept as a reference for the quasi-random one.
+    PseudoRandom,
+}
+
+fn default_true() -> bool {
+    true
+}
+
+fn default_quasi_random_points() -> usize {
+    128
+}
+
 /// Settings of the fit and the forecast.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ForecastSettings {
@@ -21,7 +42,15 @@ pub struct ForecastSettings {
     /// Applied to the future wear only. 0.25 was chosen on the tuning seeds of both test-fleet
     /// generators (see `calibration`), not measured on real fleets.
     pub wear_rate_relative_sd: f64,
-    /// Monte Carlo draws per part.
+    /// How the due-date integral is evaluated (see [`crate::forecast`]).
+    #[serde(default)]
+    pub band_sampling: BandSampling,
+    /// Quasi-random points per part ([`BandSampling::QuasiRandom`]), rounded up to a power of
+    /// two. 128 keeps the quantiles within about a day of a 100,000-draw reference on the
+    /// calibration fleets (see `calibration` and BENCHMARKS.md).
+    #[serde(default = "default_quasi_random_points")]
+    pub quasi_random_points: usize,
+    /// Pseudo-random draws per part ([`BandSampling::PseudoRandom`] only).
     pub monte_carlo_draws: usize,
     /// Seed of the Monte Carlo (mixed with the axle and component). Callers set one per vehicle
     /// (see [`crate::forecast::vehicle_seed`]) so that vehicles do not share random streams.
@@ -48,6 +77,10 @@ pub struct ForecastSettings {
     pub max_residual_autocorrelation: f64,
     /// Fewest vehicles with both a pad and a rotor fit before a rotor borrows from its pad.
     pub min_coupling_vehicles: usize,
+    /// Compute the thickness trajectory (for charts). A refresh that stores forecasts without
+    /// their trajectories turns it off.
+    #[serde(default = "default_true")]
+    pub with_trajectory: bool,
     /// Longest trajectory, days.
     pub trajectory_cap_days: f64,
     /// Most trajectory points (the step grows beyond daily to respect it).
@@ -62,6 +95,8 @@ impl Default for ForecastSettings {
             energy_half_life_days: 60.0,
             energy_rate_relative_sd: 0.12,
             wear_rate_relative_sd: 0.25,
+            band_sampling: BandSampling::QuasiRandom,
+            quasi_random_points: default_quasi_random_points(),
             monte_carlo_draws: 1000,
             seed: 0x5eed_b4a7,
             fit_half_life_days: 365.0,
@@ -72,6 +107,7 @@ impl Default for ForecastSettings {
             between_sd_floor_fraction: 0.10,
             max_residual_autocorrelation: 0.9,
             min_coupling_vehicles: 5,
+            with_trajectory: true,
             trajectory_cap_days: 3.0 * 365.0,
             trajectory_max_points: 200,
         }

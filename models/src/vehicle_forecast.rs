@@ -40,6 +40,22 @@ pub fn forecast_vehicle<'p>(
     today_day: f64,
     settings: &ForecastSettings,
 ) -> Vec<PartForecast> {
+    let own_fits: Vec<Option<WearFit>> = parts.iter().map(|p| fit_part_any_sign(p.history, settings).ok()).collect();
+    forecast_vehicle_fitted(vehicle_key, parts, own_fits, prior_of, today_day, settings)
+}
+
+/// [`forecast_vehicle`] with each part's own fit already made (`own_fits[i]` is
+/// [`fit_part_any_sign`] of `parts[i]`, as the pipeline keeps them from pooling), so that no
+/// part is fitted twice.
+pub fn forecast_vehicle_fitted<'p>(
+    vehicle_key: u64,
+    parts: &[PartData<'_>],
+    mut own_fits: Vec<Option<WearFit>>,
+    prior_of: impl Fn(u32, Component) -> Option<&'p WearPrior>,
+    today_day: f64,
+    settings: &ForecastSettings,
+) -> Vec<PartForecast> {
+    own_fits.resize(parts.len(), None);
     let mut out: Vec<Option<PartForecast>> = vec![None; parts.len()];
     // (axle, posterior mean, posterior variance, prior) of each forecast pad.
     let mut pads: Vec<(u32, f64, f64, RatePrior)> = Vec::new();
@@ -58,7 +74,7 @@ pub fn forecast_vehicle<'p>(
                 None => g.predictive_for(vehicle_key, settings),
             },
         });
-        let own_fit = fit_part_any_sign(part.history, settings).ok();
+        let own_fit = own_fits[index].take();
         let outlook = forecast_part(
             part.history,
             own_fit.as_ref(),

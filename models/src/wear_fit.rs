@@ -176,8 +176,9 @@ pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> 
         let Some((origin, hot_origin)) = cycle.origin_energy_mj() else { continue };
         let reference_mm = cycle.start.map_or(history.new_thickness_mm, |s| s.new_thickness_mm);
         cycle_first_row.push(y.len());
+        let mut row = vec![0.0; p];
         for point in &cycle.points {
-            let mut row = vec![0.0; p];
+            row.fill(0.0);
             let x = point.energy_mj - origin;
             let xh = point.hot_energy_mj - hot_origin;
             row[0] = x;

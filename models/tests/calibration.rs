@@ -167,3 +167,61 @@ fn print_tuning_reports() {
     failures.extend(misses("stress fleet", TUNING_SEEDS.stress_fleet, stress_fleet, TARGET));
     println!("misses of the bounds on tuning seeds:\n{}", if failures.is_empty() { "none".to_owned() } else { failures.join("\n") });
 }
+
+/// Differences between two forecasts' quantile days over the parts both date: for the 5th,
+/// 50th and 95th percentiles, the median and the 95th percentile of `|a − b|` (days).
+fn quantile_differences(
+    a: &std::collections::HashMap<brakeledger_models::calibration::PartKey, brakeledger_models::DueDistribution>,
+    b: &std::collections::HashMap<brakeledger_models::calibration::PartKey, brakeledger_models::DueDistribution>,
+) -> [(f64, f64); 3] {
+    [0.05, 0.5, 0.95].map(|p| {
+        let mut d: Vec<f64> = a.iter().filter_map(|(k, qa)| b.get(k).map(|qb| (qa.at(p) - qb.at(p)).abs())).collect();
+        d.sort_by(f64::total_cmp);
+        if d.is_empty() {
+            return (f64::NAN, f64::NAN);
+        }
+        (d[d.len() / 2], d[(d.len() * 95 / 100).min(d.len() - 1)])
+    })
+}
+
+/// How the quasi-random bands (the default: 128 Sobol points) compare with the earlier 1,000
+/// pseudo-random draws, both measured against 20,000 pseudo-random draws, on the tuning seeds
+/// of both generators; prints the differences of the 5 %, median and 95 % dates and each
+/// method's coverage and error. Run with
+/// `cargo test -p brakeledger-models --release --test tests -- --ignored compare_band_methods --nocapture`.
+#[test]
+#[ignore = "prints the comparison recorded in BENCHMARKS.md; about a minute"]
+fn compare_band_methods() {
+    use brakeledger_models::forecast::BandSampling;
+    let quasi = ForecastSettings::default();
+    let earlier = ForecastSettings { band_sampling: BandSampling::PseudoRandom, monte_carlo_draws: 1000, ..ForecastSettings::default() };
+    let reference = ForecastSettings { band_sampling: BandSampling::PseudoRandom, monte_carlo_draws: 20_000, ..ForecastSettings::default() };
+    let fleets: Vec<(String, SimulatedFleet)> = TUNING_SEEDS
+        .simulator
+        .iter()
+        .map(|&s| (format!("simulator {s}"), simulator_fleet(s)))
+        .chain(TUNING_SEEDS.stress_fleet.iter().map(|&s| (format!("stress {s}"), stress_fleet(s))))
+        .collect();
+    println!("|Δ| days: median / 95th percentile over parts, for the 5 %, 50 % and 95 % dates");
+    println!("| fleet | 128 Sobol vs 20k draws | 1,000 draws vs 20k draws | 128 Sobol vs 1,000 draws | coverage / MAE: Sobol | 1,000 draws | 20k draws |");
+    println!("|---|---|---|---|---|---|---|");
+    for (name, fleet) in &fleets {
+        let q = forecast_fleet(fleet, &quasi);
+        let e = forecast_fleet(fleet, &earlier);
+        let r = forecast_fleet(fleet, &reference);
+        let cell = |d: [(f64, f64); 3]| d.iter().map(|(m, p95)| format!("{m:.1}/{p95:.1}")).collect::<Vec<_>>().join(", ");
+        let score = |f: &std::collections::HashMap<_, _>| {
+            let s = accuracy_report(fleet, f, 0.8, quasi.energy_window_days).overall;
+            format!("{:.1} % / {:.1} d", 100.0 * s.band_coverage, s.median_mae_days)
+        };
+        println!(
+            "| {name} | {} | {} | {} | {} | {} | {} |",
+            cell(quantile_differences(&q, &r)),
+            cell(quantile_differences(&e, &r)),
+            cell(quantile_differences(&q, &e)),
+            score(&q),
+            score(&e),
+            score(&r)
+        );
+    }
+}

@@ -123,3 +123,43 @@ fn truncated_normal_matches_scipy() {
         assert!(((got_var - var) / var).abs() < 1e-5, "variance of N({m}, {s}²)|>0: {got_var} vs {var}");
     }
 }
+
+/// The raw six-dimensional Sobol points equal scipy 1.17.1's
+/// `scipy.stats.qmc.Sobol(d=6, scramble=False).random(128)` (Joe & Kuo direction numbers) at
+/// the rows printed by `python3 -c "from scipy.stats import qmc; x = qmc.Sobol(d=6,
+/// scramble=False).random(128); print([list(x[i]) for i in (1, 2, 5, 37, 100, 127)])"`.
+#[test]
+fn sobol_points_match_scipy() {
+    use brakeledger_models::quasi_random::sobol_points;
+    let points = sobol_points(128);
+    let scipy: [(usize, [f64; 6]); 6] = [
+        (1, [0.5, 0.5, 0.5, 0.5, 0.5, 0.5]),
+        (2, [0.75, 0.25, 0.25, 0.25, 0.75, 0.75]),
+        (5, [0.875, 0.875, 0.125, 0.375, 0.875, 0.625]),
+        (37, [0.921875, 0.640625, 0.578125, 0.921875, 0.765625, 0.296875]),
+        (100, [0.4140625, 0.2578125, 0.7734375, 0.7265625, 0.8828125, 0.7421875]),
+        (127, [0.0078125, 0.6640625, 0.5546875, 0.6328125, 0.4765625, 0.3359375]),
+    ];
+    assert_eq!(points[0], [0.0; 6]);
+    for (i, expected) in scipy {
+        assert_eq!(points[i], expected, "point {i}");
+    }
+}
+
+/// The Michael-Schucany-Haas transformation fed quasi-random χ²₁ and uniform values (4,096
+/// Sobol points) reproduces scipy's inverse Gaussian quantiles (the `SCIPY` cases above)
+/// within 0.5 %.
+#[test]
+fn passage_transform_on_sobol_points_matches_scipy_quantiles() {
+    use brakeledger_models::quasi_random::NormalScores;
+    let scores = NormalScores::new(4096);
+    for (r, mu, s2, _, quantiles) in SCIPY {
+        let fp = FirstPassage::new(r, mu, s2).expect("valid");
+        let mut days: Vec<f64> = scores.points.iter().zip(&scores.cells).map(|(z, u)| fp.transform(z[4] * z[4], u[5])).collect();
+        days.sort_by(f64::total_cmp);
+        for (p, expected) in quantiles {
+            let got = days[(p * days.len() as f64) as usize];
+            assert!((got / expected - 1.0).abs() < 0.005, "R={r}: q({p}) = {got}, scipy {expected}");
+        }
+    }
+}

@@ -22,13 +22,14 @@ use brakeledger_models::pipeline::{estimate_group_priors, GroupKey};
 use brakeledger_models::pooling::vehicle_key;
 use brakeledger_models::vehicle_forecast::{forecast_vehicle, PartData};
 use brakeledger_models::{ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
+use rayon::prelude::*;
 use tokio::sync::watch;
 
 use crate::config::ForecastConfig;
 use crate::error::{ServiceError, ServiceResult};
 use crate::state::{AppState, ForecastChange};
 use crate::store::{
-    DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, StaleMark, Store, StoredPart, VehicleForecasts,
+    DailyEnergy, FleetPriors, GroupPrior, ServiceHistory, Store, StoredPart, VehicleForecasts,
     VehicleRecord, MS_PER_DAY,
 };
 
@@ -156,8 +157,9 @@ pub struct ComputedPart {
 
 /// Computes every part of a vehicle at `now_ms` with the fleet's priors (pads first, rotors
 /// borrowing from their pads; the vehicle left out of the priors it is shrunk toward). The
-/// Monte Carlo seed is the vehicle's own (stable), so repeated calls agree and new data moves
-/// dates smoothly.
+/// due-date integral uses points that do not depend on the data or the clock (quasi-random by
+/// default; with pseudo-random draws the seed is the vehicle's own), so repeated calls agree
+/// and new data moves dates smoothly.
 pub fn compute_vehicle(data: &VehicleData, priors: &FleetPriors, now_ms: i64, settings: &ForecastSettings) -> Vec<ComputedPart> {
     let today_day = now_ms as f64 / MS_PER_DAY as f64;
     let ids = [data.vehicle.fleet_id.as_str(), data.vehicle.vehicle_id.as_str()];
@@ -207,7 +209,7 @@ pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) 
         let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
         vehicle.parts.iter().filter_map(move |part| {
             let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
-            part.own_fit.clone().map(|fit| (group, key, fit))
+            part.own_fit.as_ref().map(|fit| (group, key, fit))
         })
     });
     let mut groups: Vec<GroupPrior> = estimate_group_priors(fits, settings)
@@ -230,38 +232,41 @@ fn prior_moved(old: Option<&GroupPrior>, new: &GroupPrior) -> bool {
     }
 }
 
-/// Recomputes one stale vehicle; returns its change (or `None` when it is not registered).
-/// The caller clears the mark.
-fn refresh_vehicle(store: &dyn Store, mark: &StaleMark, priors: &FleetPriors, config: &ForecastConfig, now_ms: i64) -> ServiceResult<Option<ForecastChange>> {
-    let Some(data) = load_vehicle_data(store, &mark.fleet_id, &mark.vehicle_id)? else {
-        return Ok(None);
-    };
-    let settings = model_settings(config, 0.8);
-    let parts = compute_vehicle(&data, priors, now_ms, &settings);
-    let record = materialise(&data, &parts, now_ms);
-    let before = store.get_forecasts(&mark.fleet_id, &mark.vehicle_id)?.map(Arc::new);
-    store.put_forecasts(&record)?;
-    Ok(Some(ForecastChange { before, after: Arc::new(record) }))
-}
-
 /// One pass over up to `batch_vehicles` stale vehicles, then prior re-estimation for the fleets
-/// touched. Returns the changes and whether stale vehicles remain.
+/// touched. Returns the changes and whether stale vehicles remain. The batch's data is read
+/// first, its forecasts are computed on rayon's threads (pure computation, one vehicle each),
+/// then stored in mark order.
 pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
     let marks = store.stale_vehicles(config.batch_vehicles.max(1))?;
     if marks.is_empty() {
         return Ok((Vec::new(), false));
     }
     let mut priors_by_fleet: HashMap<String, FleetPriors> = HashMap::new();
-    let mut changes = Vec::new();
+    let mut loaded = Vec::with_capacity(marks.len());
     for mark in &marks {
         if !priors_by_fleet.contains_key(&mark.fleet_id) {
             let priors = store.get_priors(&mark.fleet_id)?.unwrap_or_default();
             priors_by_fleet.insert(mark.fleet_id.clone(), priors);
         }
-        let priors = &priors_by_fleet[&mark.fleet_id];
-        if let Some(change) = refresh_vehicle(store, mark, priors, config, now_ms)? {
-            changes.push(change);
+        // A vehicle no longer registered has nothing to compute; its mark is cleared below.
+        if let Some(data) = load_vehicle_data(store, &mark.fleet_id, &mark.vehicle_id)? {
+            loaded.push(data);
         }
+    }
+    // The refresh stores forecasts without their trajectories (see `materialise`).
+    let settings = ForecastSettings { with_trajectory: false, ..model_settings(config, 0.8) };
+    let records: Vec<VehicleForecasts> = loaded
+        .par_iter()
+        .map(|data| {
+            let priors = &priors_by_fleet[&data.vehicle.fleet_id];
+            materialise(data, &compute_vehicle(data, priors, now_ms, &settings), now_ms)
+        })
+        .collect();
+    let mut changes = Vec::with_capacity(records.len());
+    for record in records {
+        let before = store.get_forecasts(&record.fleet_id, &record.vehicle_id)?.map(Arc::new);
+        store.put_forecasts(&record)?;
+        changes.push(ForecastChange { before, after: Arc::new(record) });
     }
     for (fleet_id, old) in &priors_by_fleet {
         let forecasts = store.fleet_forecasts(fleet_id)?;

@@ -16,18 +16,26 @@ pub const SERVE_SETTINGS_HELP: &str = "\
 Settings, layered once at start-up: defaults, then the --config TOML file, then environment
 variables, then the flags above.
 
-  TOML key (section)            environment          default
-  listen                        BRAKELEDGER_LISTEN   127.0.0.1:50051
-  data_dir                      BRAKELEDGER_DATA     ./brakeledger-data
-  log_format                    (--json-logs)        text (or json)
-  log_filter                    BRAKELEDGER_LOG      info (tracing env-filter syntax)
-  auth_tokens                   BRAKELEDGER_TOKENS   none: no token needed
+  TOML key (section)            environment                       default
+  listen                        BRAKELEDGER_LISTEN                127.0.0.1:50051
+  data_dir                      BRAKELEDGER_DATA                  ./brakeledger-data
+  log_format                    (--json-logs)                     text (or json)
+  log_filter                    BRAKELEDGER_LOG                   info (tracing env-filter syntax)
+  operator_token_file  [auth]   BRAKELEDGER_OPERATOR_TOKEN_FILE   none
+  insecure_no_auth     [auth]   (--insecure-no-auth)              false
 
-Tokens: with auth_tokens = [\"token-a\", \"token-b\"] in the file, or
-BRAKELEDGER_TOKENS=token-a,token-b (preferred: from a secret store), every brakeledger.v1 call
-must carry `authorization: Bearer <token>`; clients pass it with --token or BRAKELEDGER_TOKEN.
-Health and reflection stay open.
+Tokens: the first operator token is read from operator_token_file (one line, at least 20
+characters; only its SHA-256 is stored). Every other token is made with `brakeledger token
+create --fleet F --role ingest|workshop|planner|fleet-admin` and revoked with `brakeledger token
+revoke`. Once the store holds tokens, every brakeledger.v1 call must carry `authorization:
+Bearer <token>`; clients pass it with --token or BRAKELEDGER_TOKEN. Health and reflection stay
+open. Without tokens the server serves only on a loopback address, unless --insecure-no-auth.
 
+  [limits]    ingest_trips_per_second, ingest_burst_trips, max_request_bytes,
+              max_response_bytes, max_call_seconds, earliest_record_date
+  [metrics]   listen (Prometheus text at GET /metrics)
+  [tls]       cert_file, key_file, client_ca_file (re-read at SIGHUP)
+  [health]    listen (plain-text listener for gRPC health only)
   [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, batch_vehicles
   [ingest]    chunk_trips, max_listed_rejections, max_rejection_groups, ack_delay_ms
   [http2]     stream_window_bytes, connection_window_bytes, max_concurrent_streams
@@ -38,7 +46,7 @@ Health and reflection stay open.
   [metrics]   listen (Prometheus text on its own port; default off)
   [web]       listen (the planners' web page on its own port, --web-listen; default off)
 
-deploy/brakeledger.toml is a commented example.";
+deploy/brakeledger.toml is a commented example of every setting.";
 
 /// What to say when the database cannot be opened: a data directory locked by another
 /// process is named as such (sled holds an exclusive lock on it while open).

@@ -11,7 +11,7 @@ use http::{header, HeaderMap};
 use super::reads::Reader;
 use super::session::caller;
 use super::views::{filtered_due, plan_ask, DueFilter, DueQuery, PlanQuery};
-use crate::cli::chart::{write_chart, ChartData};
+use crate::cli::chart::{render_chart, ChartData};
 use crate::error::WebError;
 use crate::exports;
 use crate::state::AppState;
@@ -68,16 +68,10 @@ pub async fn wear_chart(
     let reader = Reader::new(&state, caller(&state, &headers)?);
     let trajectory = reader.trajectory(&fleet_id, &vehicle_id, axle_index, component).await?;
     let about = reader.vehicle(&fleet_id, &vehicle_id).await?;
+    let time_zone = reader.time_zone(&fleet_id).await?;
     let name = crate::part_names::part_name(component as i32, crate::part_names::brake_type_of(about.vehicle.as_ref(), axle_index));
-    let data = ChartData { title: format!("vehicle {vehicle_id}, axle {axle_index} {name}"), trajectory, today: Some(Utc::now()) };
-    let svg = tokio::task::spawn_blocking(move || svg_of(&data)).await.map_err(|e| WebError::Chart(e.to_string()))??;
+    let data = ChartData { title: format!("vehicle {vehicle_id}, axle {axle_index} {name}"), trajectory, today: Some(Utc::now()), time_zone };
+    let svg = tokio::task::spawn_blocking(move || render_chart(&data)).await.map_err(|e| WebError::Chart(e.to_string()))?.map_err(|e| WebError::Chart(format!("{e:#}")))?;
     Ok(([(header::CONTENT_TYPE, "image/svg+xml")], svg).into_response())
 }
 
-/// The chart as SVG text. `chart.rs` writes files (and is being reworked separately), so the
-/// chart is drawn into a temporary file and read back rather than changing its internals.
-fn svg_of(data: &ChartData) -> Result<String, WebError> {
-    let file = tempfile::Builder::new().prefix("brakeledger-chart-").suffix(".svg").tempfile().map_err(|e| WebError::Chart(e.to_string()))?;
-    write_chart(file.path(), data).map_err(|e| WebError::Chart(format!("{e:#}")))?;
-    std::fs::read_to_string(file.path()).map_err(|e| WebError::Chart(e.to_string()))
-}

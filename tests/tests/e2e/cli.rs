@@ -3,6 +3,7 @@
 
 use brakeledger::cli::{run_with_output, Cli};
 use brakeledger_tests::{register, seed_vehicle, two_axle_vehicle, wait_for_forecasts, TestServer};
+use brakeledger_proto::v1 as pb;
 use clap::Parser;
 
 /// Runs `brakeledger --server <server> <args...>` and returns what it printed.
@@ -262,8 +263,14 @@ async fn a_data_directory_in_use_is_named_and_serve_help_lists_every_setting() {
     assert!(first.terminate().success());
 
     let help = Cli::try_parse_from(["brakeledger", "serve", "--help"]).expect_err("help is printed as an early exit").to_string();
-    for setting in ["--data", "--listen", "--config", "--json-logs", "BRAKELEDGER_TOKENS", "auth_tokens", "--token", "[storage]", "[shutdown]", "[http2]", "[ingest]", "[forecast]", "[integrity]"] {
+    let sections = ["[limits]", "[metrics]", "[tls]", "[health]", "[storage]", "[shutdown]", "[http2]", "[ingest]", "[forecast]", "[integrity]"];
+    let token_setup = ["--operator-token-file", "BRAKELEDGER_OPERATOR_TOKEN_FILE", "--insecure-no-auth", "token create", "BRAKELEDGER_TOKEN"];
+    for setting in ["--data", "--listen", "--config", "--json-logs"].iter().chain(&sections).chain(&token_setup) {
         assert!(help.contains(setting), "serve --help names {setting}: {help}");
+    }
+    // Settings the server refuses since tokens carry roles are not offered as a way in.
+    for removed in ["auth_tokens", "BRAKELEDGER_TOKENS"] {
+        assert!(!help.contains(removed), "serve --help still offers the removed {removed}: {help}");
     }
 }
 
@@ -277,4 +284,37 @@ async fn negative_numbers_reach_the_server_and_a_closed_pipe_is_not_an_error() {
     let closed = anyhow::Error::new(std::io::Error::from(std::io::ErrorKind::BrokenPipe)).context("writing the table");
     assert_eq!(brakeledger::cli::exit_code(Err(closed)), std::process::ExitCode::SUCCESS);
     assert_eq!(brakeledger::cli::exit_code(Err(anyhow::anyhow!("a real failure"))), std::process::ExitCode::FAILURE);
+}
+
+/// `chart` on a fleet in Chicago: dates in the fleet's zone with month ticks, today and the
+/// replacement that began the cycle labelled, the due band drawn on the time axis, and the
+/// thickness band never above today's.
+#[tokio::test]
+async fn the_chart_reads_in_the_fleet_time_zone_and_marks_today_fitting_and_due_band() {
+    let server = brakeledger_tests::TestServer::start().await;
+    server
+        .fleet()
+        .upsert_fleet(pb::UpsertFleetRequest { fleet: Some(pb::Fleet { fleet_id: "north".into(), time_zone: "America/Chicago".into(), display_name: String::new() }) })
+        .await
+        .expect("fleet");
+    brakeledger_tests::seed_vehicle(&server, "van-7", 200, 1.0, &[160, 80, 5]).await;
+    brakeledger_tests::wait_for_forecasts(&server).await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("pad.svg");
+    let out = brakeledger(&server, &["chart", "--fleet", "north", "--vehicle", "van-7", "--axle", "1", "--component", "pad", "--out", &path.to_string_lossy()]).await.expect("chart");
+    assert!(out.contains("axle 1 pad"), "{out}");
+    let svg = std::fs::read_to_string(&path).expect("chart written");
+    let texts: Vec<&str> = svg.split("<text").skip(1).filter_map(|t| Some(t.split_once('>')?.1.split_once("</text>")?.0.trim())).collect();
+    assert!(texts.contains(&"Date (America/Chicago)"), "{texts:?}");
+    let today = chrono::Utc::now().with_timezone(&chrono_tz::America::Chicago).date_naive();
+    assert!(texts.iter().any(|t| *t == format!("today {today}")) && texts.contains(&"today"), "{texts:?}");
+    assert!(texts.iter().any(|t| t.starts_with("fitted ")), "the replacement that began the cycle: {texts:?}");
+    let due = texts.iter().find(|t| t.starts_with("due: ")).expect("the due band in the legend");
+    let dates = dates_in(&due.replace(',', " "));
+    assert_eq!(dates.len(), 3, "{due}");
+    let (earliest, latest, median) = (dates[0], dates[1], dates[2]);
+    assert!(earliest <= median && median <= latest && earliest > today, "earliest, latest, median: {due}");
+    let month_labels = texts.iter().filter(|t| t.len() == 8 && t[4..].parse::<i32>().is_ok()).count();
+    assert!(month_labels >= 3, "month ticks: {texts:?}");
+    server.stop().await;
 }

@@ -13,6 +13,7 @@ mod forecast;
 mod full_disk;
 mod fleet;
 mod health;
+mod limits;
 mod ingest;
 mod long_stream;
 mod maintenance;
