@@ -33,6 +33,8 @@ pub struct Settings {
     pub limits: LimitsConfig,
     /// Prometheus metrics listener.
     pub metrics: MetricsConfig,
+    /// The planners' web page listener.
+    pub web: WebConfig,
     /// TLS on the gRPC listener.
     pub tls: TlsConfig,
     /// Plain-text health listener for probes.
@@ -98,6 +100,7 @@ impl Default for Settings {
             auth: AuthConfig::default(),
             limits: LimitsConfig::default(),
             metrics: MetricsConfig::default(),
+            web: WebConfig::default(),
             tls: TlsConfig::default(),
             health: HealthConfig::default(),
             forecast: ForecastConfig::default(),

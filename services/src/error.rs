@@ -1,7 +1,11 @@
-//! The service's error type and its one mapping to gRPC status.
+//! The service's error types and their one mapping each: [`ServiceError`] to gRPC status,
+//! [`WebError`] to an HTTP status of the web page.
 //!
 //! Every handler returns [`ServiceError`]; [`ServiceError::into_status`] is the only place that
 //! chooses a gRPC code. The `match` has no catch-all arm, so a new variant must choose its code.
+//! The web page reads through the gRPC handlers, so its refusals arrive as gRPC status;
+//! [`WebError::http_status`] is the only place that turns them into HTTP codes, again without a
+//! catch-all arm.
 
 use brakeledger_models::domain::FieldViolation;
 use tonic::{Code, Status};
@@ -146,3 +150,61 @@ impl From<ServiceError> for Status {
 
 /// Result type of handlers and service logic.
 pub type ServiceResult<T> = Result<T, ServiceError>;
+
+/// Everything that can go wrong while serving the web page.
+#[derive(Debug, thiserror::Error)]
+pub enum WebError {
+    /// A read was refused or failed with this status: exactly what a gRPC client asking the
+    /// same question would get (no token, another fleet's token, unknown fleet, ...).
+    #[error("{}", .0.message())]
+    Refused(Status),
+    /// A parameter of the page's address is not valid (the message names it).
+    #[error("{0}")]
+    BadQuery(String),
+    /// An export file could not be written.
+    #[error(transparent)]
+    Export(#[from] crate::exports::ExportError),
+    /// A wear chart could not be drawn.
+    #[error("drawing the wear chart: {0}")]
+    Chart(String),
+}
+
+impl From<ServiceError> for WebError {
+    fn from(error: ServiceError) -> Self {
+        WebError::Refused(error.into_status())
+    }
+}
+
+impl From<Status> for WebError {
+    fn from(status: Status) -> Self {
+        WebError::Refused(status)
+    }
+}
+
+impl WebError {
+    /// The HTTP status of the page that reports this error.
+    pub fn http_status(&self) -> http::StatusCode {
+        use http::StatusCode as Http;
+        match self {
+            WebError::Refused(status) => match status.code() {
+                Code::Ok => Http::OK,
+                Code::InvalidArgument | Code::OutOfRange => Http::BAD_REQUEST,
+                Code::Unauthenticated => Http::UNAUTHORIZED,
+                Code::PermissionDenied => Http::FORBIDDEN,
+                Code::NotFound => Http::NOT_FOUND,
+                Code::AlreadyExists | Code::Aborted => Http::CONFLICT,
+                Code::FailedPrecondition => Http::UNPROCESSABLE_ENTITY,
+                Code::ResourceExhausted => Http::TOO_MANY_REQUESTS,
+                Code::Unavailable => Http::SERVICE_UNAVAILABLE,
+                Code::DeadlineExceeded => Http::GATEWAY_TIMEOUT,
+                Code::Unimplemented => Http::NOT_IMPLEMENTED,
+                Code::Cancelled | Code::Unknown | Code::Internal | Code::DataLoss => Http::INTERNAL_SERVER_ERROR,
+            },
+            WebError::BadQuery(_) => Http::BAD_REQUEST,
+            WebError::Export(_) | WebError::Chart(_) => {
+                tracing::error!(error = %self, "web page failure");
+                Http::INTERNAL_SERVER_ERROR
+            }
+        }
+    }
+}

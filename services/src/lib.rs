@@ -18,6 +18,9 @@
 //! - [`drain`]: the shutdown drain (deadline for open ingest streams, then UNAVAILABLE).
 //! - [`write_health`]: gRPC health of the write services follows whether writes are accepted.
 //! - [`tls`]: TLS on the gRPC listener, reloaded on SIGHUP.
+//! - [`part_names`]: pad, lining, rotor and drum: parts named for people.
+//! - [`exports`]: the due list and the visit plan as CSV and iCalendar files.
+//! - [`web`]: the planners' web page, on its own listener (`[web] listen`).
 //! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
@@ -31,14 +34,17 @@ pub mod config;
 pub mod convert;
 pub mod drain;
 pub mod error;
+pub mod exports;
 pub mod forecaster;
 pub mod grpc;
 pub mod limits;
 pub mod metrics;
+pub mod part_names;
 pub mod server;
 pub mod state;
 pub mod store;
 pub mod tls;
+pub mod web;
 pub mod write_health;
 
 /// The caution printed with every forecast and plan.

@@ -1,5 +1,5 @@
 //! The one server entry point: [`run`] serves every brakeledger service, gRPC health and
-//! reflection on a listener until `shutdown` resolves, then drains in-flight calls (open
+//! reflection (as gRPC and as gRPC-Web) on a listener until `shutdown` resolves, then drains in-flight calls (open
 //! streams finish and get their reports), stops the forecast materialiser and flushes the store.
 
 use std::future::Future;
@@ -102,6 +102,10 @@ pub async fn run(listener: TcpListener, state: AppState, shutdown: impl Future<O
         // A window that adapts to the measured bandwidth-delay product would grow the stream
         // window past what the budget above assumes.
         .http2_adaptive_window(Some(false))
+        // gRPC-Web (HTTP/1.1 or HTTP/2, binary or base64 text) for dashboards in a browser,
+        // translated to gRPC before the metrics layer, so calls are counted alike.
+        .accept_http1(true)
+        .layer(tonic_web::GrpcWebLayer::new())
         .layer(crate::metrics::RequestMetricsLayer)
         .add_service(health_service)
         .add_service(reflection_v1)

@@ -87,6 +87,14 @@ impl TestServer {
         Self { addr, channel, stop: Some(stop), task: Some(task), data_dir: None, store: weak_store }
     }
 
+    /// A handle on a server running elsewhere (a [`ServerProcess`]): its clients only; `stop`
+    /// does nothing to it.
+    pub async fn attach(addr: SocketAddr) -> Self {
+        let channel = connect(addr).await;
+        let store: std::sync::Weak<dyn brakeledger::store::Store> = std::sync::Weak::<SledStore>::new();
+        Self { addr, channel, stop: None, task: None, data_dir: None, store }
+    }
+
     /// Begins a graceful stop without waiting: new calls are refused, open ones may finish.
     pub fn begin_stop(&mut self) {
         if let Some(stop) = self.stop.take() {
@@ -154,6 +162,8 @@ pub struct ServerProcess {
     pub child: std::process::Child,
     /// Where it listens.
     pub addr: SocketAddr,
+    /// Lines it printed on stdout after the first (such as the web page's address).
+    pub stdout_lines: Arc<std::sync::Mutex<Vec<String>>>,
 }
 
 impl ServerProcess {
@@ -193,7 +203,8 @@ impl ServerProcess {
         let stdout = child.stdout.take().expect("stdout");
         let mut stderr = child.stderr.take().expect("stderr");
         let mut line = String::new();
-        let _ = std::io::BufReader::new(stdout).read_line(&mut line);
+        let mut stdout = std::io::BufReader::new(stdout);
+        let _ = stdout.read_line(&mut line);
         let Some(addr) = line.trim().rsplit(' ').next().and_then(|a| a.parse().ok()) else {
             let mut output = String::new();
             let _ = stderr.read_to_string(&mut output);
@@ -206,7 +217,27 @@ impl ServerProcess {
                 eprintln!("[server] {line}");
             }
         });
-        Ok(Self { child, addr })
+        // Keep stdout open and its lines at hand (a closed pipe would fail the server's prints).
+        let stdout_lines = Arc::new(std::sync::Mutex::new(Vec::new()));
+        let kept = Arc::clone(&stdout_lines);
+        std::thread::spawn(move || {
+            for line in stdout.lines().map_while(Result::ok) {
+                kept.lock().expect("stdout lines").push(line);
+            }
+        });
+        Ok(Self { child, addr, stdout_lines })
+    }
+
+    /// Waits up to `limit` for a stdout line starting with `prefix`; returns the rest of it.
+    pub fn wait_for_line(&self, prefix: &str, limit: Duration) -> Option<String> {
+        let started = std::time::Instant::now();
+        while started.elapsed() < limit {
+            if let Some(line) = self.stdout_lines.lock().expect("stdout lines").iter().find(|l| l.starts_with(prefix)) {
+                return Some(line[prefix.len()..].trim().to_owned());
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+        None
     }
 
     /// Sends a signal (`"TERM"`, `"INT"`, ...) without waiting.

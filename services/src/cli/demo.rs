@@ -39,14 +39,17 @@ port with a temporary database; a seeded simulator invents a fleet and two years
 inspections and replacements, ending today; these go through the gRPC API as an integration
 would send them. Then the demo prints the parts due in the next 60 days, one vehicle's forecast,
 a workshop plan for the next two weeks and how close the forecasts came to the simulator's
-hidden true dates (next to two simpler methods), and writes a wear chart as SVG. Nothing is
-kept afterwards except the chart. The fleet, its vehicles and all numbers are invented.";
+hidden true dates (next to two simpler methods), and writes a wear chart as SVG. The planners'
+web page runs beside it; its address and a planner token to sign in with are printed (with
+--keep-serving it stays up after the output, until Ctrl-C). Nothing is kept afterwards except
+the chart. The fleet, its vehicles and all numbers are invented.";
 
 /// Examples of `demo`.
 pub const DEMO_EXAMPLES: &str = "\
 Examples:
   brakeledger demo
-  brakeledger demo --vehicles 400 --seed 11 --chart /tmp/wear.svg";
+  brakeledger demo --vehicles 400 --seed 11 --chart /tmp/wear.svg
+  brakeledger demo --keep-serving --web-listen 127.0.0.1:8090   # then open the printed address";
 
 /// The demo fleet's identifier.
 pub const DEMO_FLEET: &str = "demo-harbour";
@@ -80,6 +83,12 @@ pub struct DemoArgs {
     /// Workshop hours per day for the plan.
     #[arg(long, default_value_t = 16.0)]
     pub hours_per_day: f64,
+    /// Address of the planners' web page (port 0: any free port; the address is printed).
+    #[arg(long, default_value = "127.0.0.1:0")]
+    pub web_listen: std::net::SocketAddr,
+    /// Keep the server and the web page running after the demo's output, until Ctrl-C.
+    #[arg(long)]
+    pub keep_serving: bool,
 }
 
 /// Progress lines on stderr, stamped with the seconds since the start.
@@ -138,6 +147,9 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let auth = crate::config::AuthConfig { operator_token_file: Some(token_file), insecure_no_auth: false };
     let access = crate::auth::bootstrap::set_up(&auth, address, Arc::clone(&store), None, crate::convert::now_ms())?;
     let state = AppState::new(store, forecast_config).with_access(access.policy);
+    let web_listener = TcpListener::bind(args.web_listen).await.with_context(|| format!("web page listener on {}", args.web_listen))?;
+    let web_address = web_listener.local_addr()?;
+    crate::cli::serve::spawn_web_page(web_listener, state.clone());
     let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
     let server = tokio::spawn(crate::server::run(listener, state, async {
         let _ = stopped.await;
@@ -154,7 +166,15 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let mut reader = connect(&url, &planner).await?;
     progress.say(format!("server listening on {address} (tokens required), data in a temporary directory"));
 
-    let result = show(args, &mut feeder, &mut reader, &fleet, energy_window_days, &progress, out).await;
+    progress.say(format!("web page on http://{web_address}/"));
+    let mut result = show(args, &mut feeder, &mut reader, &fleet, energy_window_days, &progress, out).await;
+    if result.is_ok() {
+        result = web_page_note(web_address, &planner, args.keep_serving, out);
+    }
+    if result.is_ok() && args.keep_serving {
+        progress.say("serving until Ctrl-C");
+        let _ = tokio::signal::ctrl_c().await;
+    }
 
     let _ = stop.send(());
     match server.await {
@@ -165,6 +185,20 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
     drop(data_dir);
     result?;
     progress.say("done");
+    Ok(())
+}
+
+/// Where the web page is and how to sign in.
+fn web_page_note(address: std::net::SocketAddr, planner_token: &str, keep_serving: bool, out: &mut impl Write) -> anyhow::Result<()> {
+    let open = if keep_serving { "open it now; Ctrl-C stops it" } else { "it stops with the demo: run `brakeledger demo --keep-serving` to keep it up" };
+    writeln!(
+        out,
+        "\n== Web page ==\n\nThe planners' web page is at http://{address}/ ({open}).\n\
+         Sign in with the demo fleet's planner token: {planner_token}\n\
+         Fleet at a glance: http://{address}/fleets/{DEMO_FLEET}\n\
+         Visit plan with CSV and iCalendar downloads: http://{address}/fleets/{DEMO_FLEET}/plan\n\n{SAFETY_CAUTION}"
+    )?;
+    out.flush()?;
     Ok(())
 }
 

@@ -2,7 +2,6 @@
 //! due list, ListDue through every page): fetching, tables for people and JSON for scripts.
 //! Both end with the safety caution.
 
-use std::collections::HashMap;
 use std::io::Write;
 
 use anyhow::Context;
@@ -28,6 +27,7 @@ Examples:
   brakeledger due --fleet north --within-days 60
   brakeledger due --fleet north --before 2025-12-31 --component rotor
   brakeledger due --fleet north --within-days 30 --json > due.json
+  brakeledger due --fleet north --within-days 90 --format csv > due.csv
 
 A part is listed when the early end of its due-date band falls before the window's end.
 A part measured or estimated at or below its minimum is marked DUE NOW (all its dates are the
@@ -72,9 +72,24 @@ pub struct DueArgs {
     /// Band level: 0.5, 0.8, 0.9 or 0.95.
     #[arg(long, default_value_t = 0.8, value_parser = parse_band_level)]
     pub band_level: f64,
-    /// Print JSON instead of a table.
+    /// Print JSON instead of a table (the same as --format json).
     #[arg(long)]
     pub json: bool,
+    /// Output: table (default), json, or csv (RFC 4180, one header row; the parts that cannot
+    /// be forecast follow the dated ones, with their reason).
+    #[arg(long, value_enum, conflicts_with = "json")]
+    pub format: Option<DueFormat>,
+}
+
+/// What `due` prints.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum DueFormat {
+    /// Aligned text for people.
+    Table,
+    /// JSON for scripts.
+    Json,
+    /// CSV for spreadsheets.
+    Csv,
 }
 
 /// Default window of `due`, days.
@@ -445,8 +460,7 @@ pub async fn fetch_due_list(
     }
 }
 
-/// Vehicles by identifier, for part names.
-pub type VehicleIndex = HashMap<String, pb::Vehicle>;
+pub use crate::part_names::VehicleIndex;
 
 /// Runs `due`.
 pub async fn due(server: &ServerTarget, args: &DueArgs, out: &mut impl Write) -> anyhow::Result<()> {
@@ -459,7 +473,10 @@ pub async fn due(server: &ServerTarget, args: &DueArgs, out: &mut impl Write) ->
     let list = fetch_due_list(&mut connection, &args.fleet, due_before, args.band_level, args.component, true).await?;
     let vehicles: VehicleIndex =
         connection.all_vehicles(&args.fleet).await?.into_iter().map(|v| (v.vehicle_id.clone(), v)).collect();
-    if args.json {
+    let format = if args.json { DueFormat::Json } else { args.format.unwrap_or(DueFormat::Table) };
+    if format == DueFormat::Csv {
+        out.write_all(crate::exports::csv::due_list(&list.parts, &list.undated, &vehicles)?.as_bytes())?;
+    } else if format == DueFormat::Json {
         let view = DueListView {
             fleet_id: args.fleet.clone(),
             due_before: due_before.to_rfc3339_opts(chrono::SecondsFormat::Secs, true),

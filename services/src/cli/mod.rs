@@ -268,6 +268,9 @@ pub struct ServeArgs {
     /// change every fleet); logged as a warning at every start.
     #[arg(long)]
     pub insecure_no_auth: bool,
+    /// Also serve the planners' web page on this address, e.g. 127.0.0.1:8090 ([web] listen).
+    #[arg(long)]
+    pub web_listen: Option<std::net::SocketAddr>,
 }
 
 #[cfg(test)]

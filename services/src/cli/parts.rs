@@ -1,7 +1,10 @@
-//! Part names on the command line: the `--component` flag (pad, lining, rotor, drum) and the
-//! plain-words name of a component on a given axle for tables and charts.
+//! Part names on the command line: the `--component` flag (pad, lining, rotor, drum); the
+//! plain-words names of parts for tables and charts live in [`crate::part_names`] (shared with
+//! the exports and the web page) and are re-exported here.
 
 use brakeledger_proto::v1 as pb;
+
+pub use crate::part_names::{basis_name, brake_type_of, part_name};
 
 /// A component as named on the command line. `pad` and `lining` are the friction part;
 /// `rotor` and `drum` the part it rubs on.
@@ -22,40 +25,6 @@ impl PartArg {
             PartArg::Pad => pb::Component::Friction,
             PartArg::Rotor => pb::Component::Disc,
         }
-    }
-}
-
-/// The name of `component` for a brake type: pad, lining, rotor or drum. An unknown brake
-/// type gives the generic names "pad/lining" and "rotor/drum".
-pub fn part_name(component: i32, brake_type: Option<pb::BrakeType>) -> &'static str {
-    match (pb::Component::try_from(component), brake_type) {
-        (Ok(pb::Component::Friction), Some(pb::BrakeType::Disc)) => "pad",
-        (Ok(pb::Component::Friction), Some(pb::BrakeType::Drum)) => "lining",
-        (Ok(pb::Component::Disc), Some(pb::BrakeType::Disc)) => "rotor",
-        (Ok(pb::Component::Disc), Some(pb::BrakeType::Drum)) => "drum",
-        (Ok(pb::Component::Friction), _) => "pad/lining",
-        (Ok(pb::Component::Disc), _) => "rotor/drum",
-        _ => "?",
-    }
-}
-
-/// The brake type of an axle of a vehicle, when the vehicle is known.
-pub fn brake_type_of(vehicle: Option<&pb::Vehicle>, axle_index: u32) -> Option<pb::BrakeType> {
-    vehicle?
-        .axles
-        .iter()
-        .find(|a| a.axle_index == axle_index)
-        .and_then(|a| pb::BrakeType::try_from(a.brake_type).ok())
-        .filter(|t| *t != pb::BrakeType::Unspecified)
-}
-
-/// Plain words for where a forecast's wear rate came from.
-pub fn basis_name(basis: i32) -> &'static str {
-    match pb::ForecastBasis::try_from(basis) {
-        Ok(pb::ForecastBasis::VehicleData) => "own data",
-        Ok(pb::ForecastBasis::FleetPrior) => "fleet rate",
-        Ok(pb::ForecastBasis::Combined) => "combined",
-        _ => "-",
     }
 }
 

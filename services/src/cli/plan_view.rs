@@ -21,6 +21,8 @@ Examples:
   brakeledger plan --fleet north
   brakeledger plan --fleet north --from 2025-04-07 --days 28 --hours-per-day 16 --bundle-days 21
   brakeledger plan --fleet north --pad-job-hours 2 --rotor-job-hours 4 --json
+  brakeledger plan --fleet north --days 28 --format ics > brake-visits.ics
+  brakeledger plan --fleet north --days 28 --format csv > brake-visits.csv
 
 Parts already due (due now, or overdue) are booked first, on the first day with free hours.
 Every other part is booked as late as is safe: on or before the day that leaves
@@ -61,9 +63,26 @@ pub struct PlanArgs {
     /// Band level: 0.5, 0.8, 0.9 or 0.95.
     #[arg(long, default_value_t = 0.8, value_parser = parse_band_level)]
     pub band_level: f64,
-    /// Print JSON instead of tables.
+    /// Print JSON instead of tables (the same as --format json).
     #[arg(long)]
     pub json: bool,
+    /// Output: table (default), json, csv (one row per job, then the parts not booked) or ics
+    /// (iCalendar, RFC 5545: one all-day event per visit, for a shared workshop calendar).
+    #[arg(long, value_enum, conflicts_with = "json")]
+    pub format: Option<PlanFormat>,
+}
+
+/// What `plan` prints.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum PlanFormat {
+    /// Aligned text for people.
+    Table,
+    /// JSON for scripts.
+    Json,
+    /// CSV for spreadsheets.
+    Csv,
+    /// iCalendar for calendars.
+    Ics,
 }
 
 /// The settings of a plan request besides the fleet and the days.
@@ -138,19 +157,24 @@ pub async fn plan(server: &ServerTarget, args: &PlanArgs, out: &mut impl Write) 
     let response = fetch_plan(&mut connection, &args.fleet, zone, first_day, args.days, settings).await?;
     let vehicles: VehicleIndex =
         connection.all_vehicles(&args.fleet).await?.into_iter().map(|v| (v.vehicle_id.clone(), v)).collect();
-    if args.json {
-        serde_json::to_writer_pretty(&mut *out, &plan_view(&response, &vehicles)).context("writing JSON")?;
-        writeln!(out)?;
-    } else {
-        let last_day = first_day + chrono::Duration::days(i64::from(args.days) - 1);
-        let heading = format!(
-            "Workshop plan for fleet {}, {first_day} to {last_day} ({}), {} h per day, safety margin {} day(s)",
-            args.fleet,
-            if response.time_zone.is_empty() { "UTC" } else { &response.time_zone },
-            number(args.hours_per_day, 1),
-            response.safety_margin_days
-        );
-        write!(out, "{}", render_plan(&heading, &response, &vehicles))?;
+    match if args.json { PlanFormat::Json } else { args.format.unwrap_or(PlanFormat::Table) } {
+        PlanFormat::Json => {
+            serde_json::to_writer_pretty(&mut *out, &plan_view(&response, &vehicles)).context("writing JSON")?;
+            writeln!(out)?;
+        }
+        PlanFormat::Csv => out.write_all(crate::exports::csv::visit_plan(&response, &vehicles)?.as_bytes())?,
+        PlanFormat::Ics => out.write_all(crate::exports::icalendar::visit_plan(&response, &args.fleet, &vehicles, chrono::Utc::now()).as_bytes())?,
+        PlanFormat::Table => {
+            let last_day = first_day + chrono::Duration::days(i64::from(args.days) - 1);
+            let heading = format!(
+                "Workshop plan for fleet {}, {first_day} to {last_day} ({}), {} h per day, safety margin {} day(s)",
+                args.fleet,
+                if response.time_zone.is_empty() { "UTC" } else { &response.time_zone },
+                number(args.hours_per_day, 1),
+                response.safety_margin_days
+            );
+            write!(out, "{}", render_plan(&heading, &response, &vehicles))?;
+        }
     }
     Ok(())
 }

@@ -47,6 +47,7 @@ open. Without tokens the server serves only on a loopback address, unless --inse
               change_feed_capacity, watch_queue_events
   [integrity] on_mismatch
   [store]     url, pool_size (PostgreSQL instead of the embedded database)
+  [web]       listen (the planners' web page on its own port, --web-listen; default off)
 
 deploy/brakeledger.toml is a commented example of every setting.";
 
@@ -187,6 +188,19 @@ fn reload_tls_on_hangup(tls: Arc<crate::tls::TlsReloader>) {
     drop(tls);
 }
 
+/// Serves the web page on `listener` until the server begins to stop.
+pub fn spawn_web_page(listener: TcpListener, state: AppState) {
+    let mut stopping = state.stopping.subscribe();
+    tokio::spawn(async move {
+        let stopped = async move {
+            let _ = stopping.wait_for(|stop| *stop).await;
+        };
+        if let Err(error) = crate::web::serve(listener, state, stopped).await {
+            tracing::error!(%error, "web page listener failed");
+        }
+    });
+}
+
 /// Runs the server until a signal. `client_token` is the client's `--token` /
 /// `BRAKELEDGER_TOKEN`, which a server never uses: given as a flag it is refused, and from the
 /// environment it is refused when the server would otherwise run without tokens.
@@ -216,6 +230,9 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     }
     if args.insecure_no_auth {
         settings.auth.insecure_no_auth = true;
+    }
+    if let Some(address) = args.web_listen {
+        settings.web.listen = Some(address);
     }
     init_logging(settings.log_format, &settings.log_filter);
     let opened = open_store(&settings).await?;
@@ -250,6 +267,12 @@ pub async fn serve(args: ServeArgs, client_token: Option<String>) -> anyhow::Res
     }
     // Forecasts stored by other replicas reach this server's WatchDue streams.
     let _listener = opened.follow_other_replicas(&state)?;
+    if let Some(address) = settings.web.listen {
+        let web_listener = TcpListener::bind(address).await.with_context(|| format!("web page listener on {address}"))?;
+        // Tests and scripts read this line to learn the page's port when listening on :0.
+        println!("brakeledger web page on http://{}/", web_listener.local_addr()?);
+        spawn_web_page(web_listener, state.clone());
+    }
     let signals = Signals::install();
     server::run(listener, state.clone(), shutdown_signal(signals, state)).await?;
     Ok(())

@@ -1,7 +1,7 @@
 //! Settings an operator sets for access, limits and monitoring: where the first operator token
 //! comes from, whether the server may run without tokens, per-token ingest rates, message sizes,
-//! the earliest date a record may carry, and where metrics are served (`[auth]`, `[limits]` and
-//! `[metrics]` in the TOML file).
+//! the earliest date a record may carry, where metrics are served and where the planners' web
+//! page is served (`[auth]`, `[limits]`, `[metrics]` and `[web]` in the TOML file).
 
 use std::path::PathBuf;
 
@@ -76,6 +76,15 @@ impl LimitsConfig {
 pub struct MetricsConfig {
     /// Address of the metrics listener (`GET /metrics`, Prometheus text format), apart from
     /// the gRPC port so it can stay on an internal network. Default: none (no listener).
+    pub listen: Option<std::net::SocketAddr>,
+}
+
+/// `[web]`: the planners' web page.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, Eq)]
+#[serde(default, deny_unknown_fields)]
+pub struct WebConfig {
+    /// Address of the web page's listener (plain HTTP/1.1), apart from the gRPC port. Browsers
+    /// sign in with a token, as gRPC clients do. Default: none (no web page).
     pub listen: Option<std::net::SocketAddr>,
 }
 

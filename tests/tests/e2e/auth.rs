@@ -13,9 +13,9 @@ use tonic::{Code, Request};
 use tonic_health::pb::{health_client::HealthClient, HealthCheckRequest};
 use tonic_types::StatusExt;
 
-const OPERATOR: &str = "operator-secret-for-the-e2e-tests-0001";
+pub(crate) const OPERATOR: &str = "operator-secret-for-the-e2e-tests-0001";
 
-fn with_token<T>(message: T, secret: Option<&str>) -> Request<T> {
+pub(crate) fn with_token<T>(message: T, secret: Option<&str>) -> Request<T> {
     let mut request = Request::new(message);
     if let Some(secret) = secret {
         let value: MetadataValue<_> = format!("Bearer {secret}").parse().expect("header");
@@ -24,7 +24,7 @@ fn with_token<T>(message: T, secret: Option<&str>) -> Request<T> {
     request
 }
 
-async fn create_token(channel: &Channel, by: &str, fleet: &str, role: pb::Role) -> Result<pb::CreateTokenResponse, tonic::Status> {
+pub(crate) async fn create_token(channel: &Channel, by: &str, fleet: &str, role: pb::Role) -> Result<pb::CreateTokenResponse, tonic::Status> {
     pb::access_service_client::AccessServiceClient::new(channel.clone())
         .create_token(with_token(pb::CreateTokenRequest { fleet_id: fleet.into(), role: role as i32, label: format!("{fleet} {role:?}") }, Some(by)))
         .await
@@ -32,7 +32,7 @@ async fn create_token(channel: &Channel, by: &str, fleet: &str, role: pb::Role) 
 }
 
 /// Sets up fleets north and south (a vehicle each) with the operator token.
-async fn two_fleets(server: &TestServer) {
+pub(crate) async fn two_fleets(server: &TestServer) {
     for fleet in ["north", "south"] {
         let mut client = server.fleet();
         client

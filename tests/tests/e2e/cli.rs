@@ -239,6 +239,7 @@ async fn the_demo_runs_and_its_forecasts_meet_the_calibration_bounds() {
         assert!(text.contains(heading), "missing {heading}:\n{text}");
     }
     assert!(text.trim_end().ends_with(brakeledger::SAFETY_CAUTION));
+    assert!(text.contains("== Web page ==\n\nThe planners' web page is at http://127.0.0.1:"), "the demo names its web page:\n{text}");
     let scored = number_after(&text, "forecasts read over gRPC; ");
     assert!(scored >= 500.0, "at least 500 parts scored, got {scored}");
     let coverage = number_after(&text, "inside the 80 % band for ");
