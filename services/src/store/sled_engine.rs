@@ -1309,10 +1309,35 @@ mod tests {
         trips
     }
 
+    /// Opens the sled database in `dir`, waiting (up to 20 s) while a database dropped a moment
+    /// ago still holds the directory's lock: sled releases it from a background thread.
+    fn open_when_released(dir: &std::path::Path) -> sled::Db {
+        for _ in 0..400 {
+            match sled::open(dir) {
+                Ok(db) => return db,
+                Err(sled::Error::Io(error)) if error.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
+                Err(error) => panic!("open {}: {error}", dir.display()),
+            }
+        }
+        panic!("the database in {} stayed locked", dir.display())
+    }
+
+    /// [`SledStore::open`], waiting as
+    /// [`open_when_released`] does.
+    fn open_store_when_released(dir: &std::path::Path) -> StoreResult<SledStore> {
+        for _ in 0..400 {
+            match SledStore::open(dir) {
+                Err(error) if error.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
+                opened => return opened,
+            }
+        }
+        SledStore::open(dir)
+    }
+
     /// Writes a schema-3 data directory: one record per trip in `trips`, the `trip_ids` index,
     /// roll-ups and totals, and the acknowledged-write ledger, as schema 3 wrote them.
     fn write_schema_3(dir: &std::path::Path, trips: &[TripRecord], daily: &[(Vec<u8>, DailyEnergy)], totals: &[(Vec<u8>, VehicleTotals)]) {
-        let db = sled::open(dir).unwrap();
+        let db = open_when_released(dir);
         db.open_tree("meta").unwrap().insert(SCHEMA_KEY, &3u32.to_be_bytes()).unwrap();
         let fleet = FleetRecord::default_for("north");
         db.open_tree("fleets").unwrap().insert(b"north", encode(&fleet).unwrap()).unwrap();
@@ -1353,7 +1378,7 @@ mod tests {
 
         let dir = tempfile::tempdir().unwrap();
         write_schema_3(dir.path(), &trips, &daily, &totals);
-        let store = SledStore::open(dir.path()).expect("migrated at start-up");
+        let store = open_store_when_released(dir.path()).expect("migrated at start-up");
         for vehicle in vehicles {
             let mut expected: Vec<TripRecord> = trips.iter().filter(|t| t.vehicle_id == vehicle).cloned().collect();
             expected.sort_by(|a, b| (a.end_ms, &a.trip_id).cmp(&(b.end_ms, &b.trip_id)));
@@ -1371,11 +1396,11 @@ mod tests {
         assert_eq!(store.ingest_trips(&[resent, new]).unwrap(), vec![IngestOutcome::Duplicate, IngestOutcome::Stored]);
         drop(store);
 
-        let db = sled::open(dir.path()).unwrap();
+        let db = open_when_released(dir.path());
         assert_eq!(Engine::stored_schema_version(&db).unwrap(), Some(SCHEMA_VERSION));
         assert!(db.open_tree("trips").unwrap().is_empty() && db.open_tree("trip_ids").unwrap().is_empty(), "old trees dropped");
         drop(db);
-        let store = SledStore::open(dir.path()).expect("verified against the ledger after the migration");
+        let store = open_store_when_released(dir.path()).expect("verified against the ledger after the migration");
         assert_eq!(store.vehicle_totals("north", "van-1").unwrap().trips_recorded, 61);
     }
 
@@ -1391,7 +1416,7 @@ mod tests {
         write_schema_3(dir.path(), &trips, &[], &totals.into_iter().collect::<Vec<_>>());
         {
             // Blocks built and marked, then the process stopped while dropping the old trees.
-            let engine = Engine::with_trees(sled::open(dir.path()).unwrap()).unwrap();
+            let engine = Engine::with_trees(open_when_released(dir.path())).unwrap();
             engine.move_trips_into_blocks().unwrap();
             let db = &engine.db;
             let (trip_tree, id_tree) = (db.open_tree("trips").unwrap(), db.open_tree("trip_ids").unwrap());
@@ -1401,7 +1426,7 @@ mod tests {
             }
             db.flush().unwrap();
         }
-        let store = SledStore::open(dir.path()).expect("the migration finishes");
+        let store = open_store_when_released(dir.path()).expect("the migration finishes");
         assert_eq!(store.vehicle_trips("north", "van-2").unwrap().len(), SEGMENT_ENTRIES + 300);
     }
 
