@@ -141,6 +141,21 @@ fn everything_missing(ledger: &LedgerState) -> Vec<String> {
     acknowledged_counts(ledger).into_iter().map(|line| format!("{line}, all of them missing")).collect()
 }
 
+/// Opens the sled database in `dir`. A process that closed it a moment ago (a restart, or a
+/// test reopening a directory) may still hold its lock for a few milliseconds while sled's
+/// background thread finishes, so a lock refusal is retried for up to 2 s before it counts as
+/// "in use by another process".
+fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled::Result<sled::Db> {
+    let open = || sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open();
+    for _ in 0..40 {
+        match open() {
+            Err(sled::Error::Io(io)) if io.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
+            opened => return opened,
+        }
+    }
+    open()
+}
+
 /// Opens the database in `dir` and checks it against its ledger. In [`Mode::Serve`] a
 /// directory with findings is refused with [`StoreError::Damaged`] (or opened read-only when
 /// so configured); in [`Mode::Check`] the findings are returned with the engine.
@@ -178,7 +193,7 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
 
     // An I/O failure that says nothing about the contents (the database locked by another
     // process, no permission) is an error of its own, not damage.
-    let db = guarded("opening the database", || match sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open() {
+    let db = guarded("opening the database", || match open_when_unlocked(dir, cache_capacity_bytes) {
         Ok(db) => Ok(Ok(db)),
         Err(sled::Error::Io(io)) if !matches!(io.kind(), std::io::ErrorKind::UnexpectedEof | std::io::ErrorKind::InvalidData) => Ok(Err(io)),
         Err(other) => Err(StoreError::from(other)),
