@@ -145,7 +145,7 @@ fn everything_missing(ledger: &LedgerState) -> Vec<String> {
 /// test reopening a directory) may still hold its lock for a few milliseconds while sled's
 /// background thread finishes, so a lock refusal is retried for up to 2 s before it counts as
 /// "in use by another process".
-fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled::Result<sled::Db> {
+pub(crate) fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled::Result<sled::Db> {
     let open = || sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open();
     for _ in 0..40 {
         match open() {

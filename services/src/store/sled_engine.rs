@@ -1309,29 +1309,10 @@ mod tests {
         trips
     }
 
-    /// Opens the sled database in `dir`, waiting (up to 20 s) while a database dropped a moment
-    /// ago still holds the directory's lock: sled releases it from a background thread.
+    /// Opens the sled database in `dir` as the store does, waiting while a database dropped a
+    /// moment ago still holds the directory's lock.
     fn open_when_released(dir: &std::path::Path) -> sled::Db {
-        for _ in 0..400 {
-            match sled::open(dir) {
-                Ok(db) => return db,
-                Err(sled::Error::Io(error)) if error.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
-                Err(error) => panic!("open {}: {error}", dir.display()),
-            }
-        }
-        panic!("the database in {} stayed locked", dir.display())
-    }
-
-    /// [`SledStore::open`], waiting as
-    /// [`open_when_released`] does.
-    fn open_store_when_released(dir: &std::path::Path) -> StoreResult<SledStore> {
-        for _ in 0..400 {
-            match SledStore::open(dir) {
-                Err(error) if error.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
-                opened => return opened,
-            }
-        }
-        SledStore::open(dir)
+        super::super::integrity::open_when_unlocked(dir, 8 << 20).expect("open the database")
     }
 
     /// Writes a schema-3 data directory: one record per trip in `trips`, the `trip_ids` index,
@@ -1378,7 +1359,7 @@ mod tests {
 
         let dir = tempfile::tempdir().unwrap();
         write_schema_3(dir.path(), &trips, &daily, &totals);
-        let store = open_store_when_released(dir.path()).expect("migrated at start-up");
+        let store = SledStore::open(dir.path()).expect("migrated at start-up");
         for vehicle in vehicles {
             let mut expected: Vec<TripRecord> = trips.iter().filter(|t| t.vehicle_id == vehicle).cloned().collect();
             expected.sort_by(|a, b| (a.end_ms, &a.trip_id).cmp(&(b.end_ms, &b.trip_id)));
@@ -1400,7 +1381,7 @@ mod tests {
         assert_eq!(Engine::stored_schema_version(&db).unwrap(), Some(SCHEMA_VERSION));
         assert!(db.open_tree("trips").unwrap().is_empty() && db.open_tree("trip_ids").unwrap().is_empty(), "old trees dropped");
         drop(db);
-        let store = open_store_when_released(dir.path()).expect("verified against the ledger after the migration");
+        let store = SledStore::open(dir.path()).expect("verified against the ledger after the migration");
         assert_eq!(store.vehicle_totals("north", "van-1").unwrap().trips_recorded, 61);
     }
 
@@ -1426,7 +1407,7 @@ mod tests {
             }
             db.flush().unwrap();
         }
-        let store = open_store_when_released(dir.path()).expect("the migration finishes");
+        let store = SledStore::open(dir.path()).expect("the migration finishes");
         assert_eq!(store.vehicle_trips("north", "van-2").unwrap().len(), SEGMENT_ENTRIES + 300);
     }
 
