@@ -7,7 +7,12 @@
 //! with variance σ²/n) and `d` the energy since that anchor (MJ). When the cycle's latest
 //! inspection lies more than 3 residual SDs (of the group, or of the gauge) off the wear line,
 //! the line no longer describes the part and the anchor becomes that inspection (variance: the
-//! gauge noise), with a note: a fresh measurement outranks an extrapolation. The wear rate `k` (mm/MJ)
+//! gauge noise), with a note: a fresh measurement outranks an extrapolation. A part with no
+//! replacement and no inspection on record (a vehicle taken over part-worn and not yet
+//! inspected) is taken to lie anywhere between new and its minimum, evenly: anchor `(new +
+//! min)/2` today with variance `(new − min)²/12`, the moments of that even spread. Its band is
+//! wide and starts near today, and a note asks for an inspection; "no date" would hide it from
+//! every due list instead. The wear rate `k` (mm/MJ)
 //! is normal with the posterior mean and variance from [`crate::pooling`] (own fit, fleet
 //! prior, or both; both combined under a lognormal prior by
 //! [`crate::pooling::combine_lognormal`]). The residual SD σ used to scale the own fit's rate
@@ -350,6 +355,11 @@ pub fn forecast_part(
         }
         (None, true) => None,
     });
+    // Nothing on record (a vehicle taken over part-worn, not yet inspected): today's thickness
+    // is taken as anywhere between new and the minimum, evenly (module docs), so that the part
+    // has a date with a wide band rather than none at all.
+    let thickness_assumed = anchor.is_none();
+    let anchor = anchor.or_else(|| unknown_thickness_anchor(history, current_cumulative_energy_mj));
     let origin_energy = current.and_then(|c| c.origin_energy_mj()).map_or(0.0, |o| o.0);
     let energy_since_fitted_mj = (current_cumulative_energy_mj - origin_energy).max(0.0);
 
@@ -371,6 +381,12 @@ pub fn forecast_part(
         trajectory: Vec::new(),
     };
 
+    if thickness_assumed && anchor.is_some() {
+        notes.push(format!(
+            "no replacement or inspection on record: today's thickness is assumed to lie anywhere between new ({:.1} mm) and the minimum ({:.1} mm); inspect the part to narrow the band",
+            history.new_thickness_mm, history.min_thickness_mm
+        ));
+    }
     let Some((anchor_mm, anchor_var, anchor_energy)) = anchor else {
         notes.push("no replacement or inspection on record: today's thickness is unknown".into());
         outlook.notes = notes;
@@ -505,6 +521,16 @@ pub fn forecast_part(
     );
     outlook.notes = notes;
     outlook
+}
+
+/// The anchor `(thickness mm, variance mm², energy origin MJ)` of a part with nothing on
+/// record: the mean and variance of a thickness spread evenly between the minimum and new
+/// (`(new + min)/2`, `(new − min)²/12`), taken as today's (`current_cumulative_energy_mj`).
+/// `None` when the nominal thicknesses leave no usable wear.
+fn unknown_thickness_anchor(history: &PartHistory, current_cumulative_energy_mj: f64) -> Option<(f64, f64, f64)> {
+    let usable = history.new_thickness_mm - history.min_thickness_mm;
+    (usable.is_finite() && usable > 0.0)
+        .then(|| (history.min_thickness_mm + 0.5 * usable, usable * usable / 12.0, current_cumulative_energy_mj))
 }
 
 /// Marks a part due now: every quantile at today, whatever the rate or the recent energy.

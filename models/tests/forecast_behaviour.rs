@@ -333,3 +333,28 @@ fn a_part_with_neither_rate_nor_thickness_has_no_date_and_says_why() {
     assert!(o.due.is_none() && !o.due_now);
     assert!(!o.notes.is_empty());
 }
+
+/// A part with nothing on record (a vehicle taken over part-worn) is dated, not left out: its
+/// thickness is spread evenly between new (22 mm) and the minimum (3 mm), whose mean and
+/// variance are (a + b)/2 and (b − a)²/12 (the continuous uniform distribution; NIST/SEMATECH
+/// e-Handbook of Statistical Methods, §1.3.6.6.2, recalled from memory). With the prior's rate
+/// 5e-4 mm/MJ and 500/7 MJ a day, the median is near (22 − 3)/2 mm of wear away: 9.5 / 5e-4 /
+/// (500/7) = 266 days. A forecast from the new thickness would say twice that; one from the
+/// minimum, today. The band is wide on both sides, and the note asks for an inspection.
+#[test]
+fn a_part_with_nothing_on_record_is_dated_from_an_even_spread_of_thickness() {
+    let h = pad(vec![]);
+    let sharp = RatePrior { variance: 1e-14, ..prior() };
+    let o = forecast_part(&h, None, Some(&sharp), &energy(), TODAY, 40_000.0, &ForecastSettings::default());
+    let due = o.due.expect("a date");
+    assert!(!o.due_now);
+    let expected = 9.5 / 5e-4 / (500.0 / 7.0);
+    let median = due.at(0.5) - TODAY;
+    assert!((median / expected - 1.0).abs() < 0.08, "median {median} days vs {expected}");
+    assert!(due.at(0.1) - TODAY < 0.45 * median && due.at(0.9) - TODAY > 1.5 * median, "{:?}", due.band(0.8));
+    assert!((o.current_thickness_mm - 12.5).abs() < 1e-9, "{}", o.current_thickness_mm);
+    assert!(o.notes.iter().any(|n| n.contains("assumed") && n.contains("inspect")), "{:?}", o.notes);
+    // Still no date without a rate, or without recent energy.
+    assert!(forecast_part(&h, None, None, &energy(), TODAY, 40_000.0, &ForecastSettings::default()).due.is_none());
+    assert!(forecast_part(&h, None, Some(&sharp), &vec![0.0; 120], TODAY, 40_000.0, &ForecastSettings::default()).due.is_none());
+}
