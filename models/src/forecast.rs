@@ -381,12 +381,6 @@ pub fn forecast_part(
         trajectory: Vec::new(),
     };
 
-    if thickness_assumed && anchor.is_some() {
-        notes.push(format!(
-            "no replacement or inspection on record: today's thickness is assumed to lie anywhere between new ({:.1} mm) and the minimum ({:.1} mm); inspect the part to narrow the band",
-            history.new_thickness_mm, history.min_thickness_mm
-        ));
-    }
     let Some((anchor_mm, anchor_var, anchor_energy)) = anchor else {
         notes.push("no replacement or inspection on record: today's thickness is unknown".into());
         outlook.notes = notes;
@@ -406,12 +400,21 @@ pub fn forecast_part(
             outlook.current_thickness_high_mm = t;
             return due_now(outlook, notes, today_day, format!("measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now", history.min_thickness_mm));
         }
+        if thickness_assumed {
+            notes.push("no replacement or inspection on record: today's thickness is unknown".into());
+        }
         if notes.is_empty() {
             notes.push("no wear rate: no due date".into());
         }
         outlook.notes = notes;
         return outlook;
     };
+    if thickness_assumed {
+        notes.push(format!(
+            "no replacement or inspection on record: today's thickness is assumed to lie anywhere between new ({:.1} mm) and the minimum ({:.1} mm); inspect the part to narrow the band",
+            history.new_thickness_mm, history.min_thickness_mm
+        ));
+    }
     // A latest inspection far off the wear line (beyond 3 residual SDs of the group, or of the
     // gauge) means the line no longer describes this part (changed duty, a sticking caliper, an
     // unrecorded part swap). Today's thickness is then projected from that inspection rather

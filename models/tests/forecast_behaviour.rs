@@ -355,6 +355,8 @@ fn a_part_with_nothing_on_record_is_dated_from_an_even_spread_of_thickness() {
     assert!((o.current_thickness_mm - 12.5).abs() < 1e-9, "{}", o.current_thickness_mm);
     assert!(o.notes.iter().any(|n| n.contains("assumed") && n.contains("inspect")), "{:?}", o.notes);
     // Still no date without a rate, or without recent energy.
-    assert!(forecast_part(&h, None, None, &energy(), TODAY, 40_000.0, &ForecastSettings::default()).due.is_none());
+    let no_rate = forecast_part(&h, None, None, &energy(), TODAY, 40_000.0, &ForecastSettings::default());
+    assert!(no_rate.due.is_none() && no_rate.current_thickness_mm.is_nan());
+    assert!(no_rate.notes.iter().any(|n| n.contains("thickness is unknown")), "{:?}", no_rate.notes);
     assert!(forecast_part(&h, None, Some(&sharp), &vec![0.0; 120], TODAY, 40_000.0, &ForecastSettings::default()).due.is_none());
 }
