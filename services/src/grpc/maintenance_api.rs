@@ -120,6 +120,33 @@ impl MaintenanceApi {
         })
     }
 
+    /// Stores a validated inspection or replacement once; then wakes the forecaster, counts it
+    /// and, when it was new, writes the audit entry `subject`. Returns whether it was a
+    /// duplicate; the same id with other values is an error naming both.
+    async fn store_workshop_record(&self, caller: &Caller, sent: ServiceEntry, subject: String) -> ServiceResult<bool> {
+        let entry = sent.clone();
+        let duplicate = match entry {
+            ServiceEntry::Inspection(record) => {
+                let outcome = self.state.blocking(move |store| Ok(store.record_inspection(&record)?)).await?;
+                stored_once(outcome, &sent, ServiceEntry::Inspection)?
+            }
+            ServiceEntry::Replacement(record) => {
+                let outcome = self.state.blocking(move |store| Ok(store.record_replacement(&record)?)).await?;
+                stored_once(outcome, &sent, ServiceEntry::Replacement)?
+            }
+        };
+        let (label, rpc) = match &sent {
+            ServiceEntry::Inspection(_) => ("inspection", "brakeledger.v1.MaintenanceService/RecordInspection"),
+            ServiceEntry::Replacement(_) => ("replacement", "brakeledger.v1.MaintenanceService/RecordReplacement"),
+        };
+        self.state.wake_forecaster.notify_one();
+        crate::metrics::workshop_record(label, !duplicate);
+        if !duplicate {
+            self.state.audit(caller, &fleet_of(&sent), rpc, subject).await;
+        }
+        Ok(duplicate)
+    }
+
     /// A validated replacement of a registered vehicle (0 mm fitted means the vehicle's new
     /// thickness).
     async fn replacement_record(&self, r: pb::RecordReplacementRequest) -> ServiceResult<ReplacementRecord> {
@@ -160,14 +187,7 @@ impl MaintenanceService for MaintenanceApi {
         caller.require(&request.get_ref().fleet_id, Permission::WriteWorkshopRecords)?;
         let record = self.inspection_record(request.into_inner()).await?;
         let subject = format!("vehicle {} axle {} {:?} inspection {}: {} mm", record.vehicle_id, record.axle_index, record.component, record.inspection_id, record.thickness_mm);
-        let sent = ServiceEntry::Inspection(record.clone());
-        let outcome = self.state.blocking(move |store| Ok(store.record_inspection(&record)?)).await?;
-        let duplicate = stored_once(outcome, &sent, ServiceEntry::Inspection)?;
-        self.state.wake_forecaster.notify_one();
-        crate::metrics::workshop_record("inspection", !duplicate);
-        if !duplicate {
-            self.state.audit(&caller, &fleet_of(&sent), "brakeledger.v1.MaintenanceService/RecordInspection", subject).await;
-        }
+        let duplicate = self.store_workshop_record(&caller, ServiceEntry::Inspection(record), subject).await?;
         Ok(Response::new(pb::RecordInspectionResponse { duplicate }))
     }
 
@@ -176,14 +196,7 @@ impl MaintenanceService for MaintenanceApi {
         caller.require(&request.get_ref().fleet_id, Permission::WriteWorkshopRecords)?;
         let record = self.replacement_record(request.into_inner()).await?;
         let subject = format!("vehicle {} axle {} {:?} replacement {}: new {} mm", record.vehicle_id, record.axle_index, record.component, record.replacement_id, record.new_thickness_mm);
-        let sent = ServiceEntry::Replacement(record.clone());
-        let outcome = self.state.blocking(move |store| Ok(store.record_replacement(&record)?)).await?;
-        let duplicate = stored_once(outcome, &sent, ServiceEntry::Replacement)?;
-        self.state.wake_forecaster.notify_one();
-        crate::metrics::workshop_record("replacement", !duplicate);
-        if !duplicate {
-            self.state.audit(&caller, &fleet_of(&sent), "brakeledger.v1.MaintenanceService/RecordReplacement", subject).await;
-        }
+        let duplicate = self.store_workshop_record(&caller, ServiceEntry::Replacement(record), subject).await?;
         Ok(Response::new(pb::RecordReplacementResponse { duplicate }))
     }
 
