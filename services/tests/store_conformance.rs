@@ -558,6 +558,40 @@ fn forecasts_stored_by_one_replica_reach_the_listener_of_another() {
     assert!(received.recv_timeout(std::time::Duration::from_millis(500)).is_err());
 }
 
+/// A listener whose connection is cut (its server process terminated, as a restart or a network
+/// failure would) reconnects and replays what was stored meanwhile: a forecast stored by
+/// another replica while no LISTEN was in place still arrives.
+#[test]
+fn a_listener_that_lost_its_connection_replays_what_it_missed() {
+    let Some(database) = TestDatabase::create() else { return };
+    let one = PostgresStore::open(&database.url).unwrap();
+    let two = PostgresStore::open(&database.url).unwrap();
+    one.upsert_fleet(&FleetRecord { fleet_id: "north".into(), time_zone: "UTC".into(), display_name: "North".into() }).unwrap();
+    let (sender, received) = std::sync::mpsc::channel();
+    let _listening = two.listen_for_forecasts(move |f| drop(sender.send(f.vehicle_id))).unwrap();
+    std::thread::sleep(std::time::Duration::from_millis(300)); // the listener's LISTEN is in place
+    one.put_forecasts(&forecasts("before", vec![part(1, Component::Friction, 20_100.0)])).unwrap();
+    assert_eq!(received.recv_timeout(std::time::Duration::from_secs(10)).unwrap(), "before");
+    // Cut the listener's connections; it waits a second before it reconnects.
+    let mut admin = ::postgres::Client::connect(&database.url, ::postgres::NoTls).unwrap();
+    let cut = admin
+        .query(
+            "SELECT pg_terminate_backend(pid) FROM pg_stat_activity WHERE datname = current_database() AND application_name = $1",
+            &[&brakeledger::store::postgres::replicas::LISTENER_APPLICATION_NAME],
+        )
+        .unwrap();
+    assert!(!cut.is_empty(), "the listener's connections were found");
+    one.put_forecasts(&forecasts("while-away", vec![part(1, Component::Friction, 20_200.0)])).unwrap();
+    let mut heard = Vec::new();
+    while let Ok(vehicle) = received.recv_timeout(std::time::Duration::from_secs(10)) {
+        heard.push(vehicle);
+        if heard.iter().any(|v| v == "while-away") {
+            break;
+        }
+    }
+    assert!(heard.iter().any(|v| v == "while-away"), "the forecast stored while the listener was away was replayed: {heard:?}");
+}
+
 /// The move from the embedded engine to PostgreSQL: a backup of a sled directory restored into
 /// PostgreSQL, exported again, holds exactly the same entries (same keys, same stored bytes).
 #[test]

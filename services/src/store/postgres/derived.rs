@@ -18,8 +18,9 @@ pub fn put_forecasts(tx: &mut Transaction<'_>, record: &VehicleForecasts, replic
     let (fleet_id, vehicle_id) = (&record.fleet_id, &record.vehicle_id);
     let body = encode(record)?;
     tx.execute(
-        "INSERT INTO forecasts (fleet_id, vehicle_id, body) VALUES ($1, $2, $3)
-         ON CONFLICT (fleet_id, vehicle_id) DO UPDATE SET body = EXCLUDED.body",
+        "INSERT INTO forecasts (fleet_id, vehicle_id, body, stored_at_ms)
+         VALUES ($1, $2, $3, (extract(epoch FROM clock_timestamp()) * 1000)::bigint)
+         ON CONFLICT (fleet_id, vehicle_id) DO UPDATE SET body = EXCLUDED.body, stored_at_ms = EXCLUDED.stored_at_ms",
         &[fleet_id, vehicle_id, &body],
     )?;
     tx.execute("DELETE FROM due_index WHERE fleet_id = $1 AND vehicle_id = $2", &[fleet_id, vehicle_id])?;
@@ -51,6 +52,24 @@ pub fn put_forecasts(tx: &mut Transaction<'_>, record: &VehicleForecasts, replic
 pub fn get_forecasts(client: &mut impl GenericClient, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
     let row = client.query_opt("SELECT body FROM forecasts WHERE fleet_id = $1 AND vehicle_id = $2", &[&fleet_id, &vehicle_id])?;
     row.map(|r| decode(r.get::<_, &[u8]>(0))).transpose()
+}
+
+/// Every fleet's forecasts stored at or after `since_ms` (the database's clock), fleet by
+/// fleet: what a change listener replays after it lost its connection.
+pub fn forecasts_stored_since(client: &mut impl GenericClient, since_ms: i64) -> StoreResult<Vec<VehicleForecasts>> {
+    let fleets = client.query("SELECT fleet_id FROM fleets ORDER BY fleet_id", &[])?;
+    let mut out = Vec::new();
+    for fleet in fleets {
+        let fleet_id: &str = fleet.get(0);
+        let rows = client.query(
+            "SELECT body FROM forecasts WHERE fleet_id = $1 AND stored_at_ms >= $2 ORDER BY vehicle_id",
+            &[&fleet_id, &since_ms],
+        )?;
+        for row in rows {
+            out.push(decode(row.get::<_, &[u8]>(0))?);
+        }
+    }
+    Ok(out)
 }
 
 /// See [`Store::fleet_forecasts`].

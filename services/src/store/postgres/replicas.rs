@@ -9,7 +9,10 @@
 //! - **Change feed**: every stored forecast is announced with `NOTIFY` in its transaction;
 //!   [`listen_for_forecasts`] follows the channel on a connection of its own and hands the
 //!   forecasts stored by *other* replicas to a callback (the server publishes them to its
-//!   WatchDue streams).
+//!   WatchDue streams). Notifications sent while its connection was down are lost, so after a
+//!   reconnect it replays every forecast stored since shortly before the connection was last
+//!   known alive (`forecasts.stored_at_ms`, the database's clock); WatchDue diffs what it is
+//!   given, so a forecast it already had changes nothing.
 
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
@@ -17,7 +20,7 @@ use std::time::Duration;
 
 use ::postgres::fallible_iterator::FallibleIterator;
 
-use super::derived::{get_forecasts, stale_mark, FORECASTS_CHANNEL};
+use super::derived::{forecasts_stored_since, get_forecasts, stale_mark, FORECASTS_CHANNEL};
 use super::{describe, limit_of, Connection};
 use crate::store::*;
 
@@ -88,20 +91,30 @@ impl Drop for ListenerHandle {
     }
 }
 
+/// Margin taken before the moment the listener was last known alive when replaying after a
+/// reconnect, ms.
+const REPLAY_MARGIN_MS: i64 = 5_000;
+
+/// `application_name` of the listener's connections (what an operator sees in
+/// `pg_stat_activity`).
+pub const LISTENER_APPLICATION_NAME: &str = "brakeledger-change-listener";
+
 /// Follows the forecasts channel on a thread of its own and calls `changed` with the
 /// forecasts another replica stored (read back from the database). Reconnects after a lost
-/// connection; a change missed meanwhile is caught by WatchDue's own resynchronisation only
-/// if the stream falls behind, so a reconnect is logged as a warning.
+/// connection, then replays the forecasts stored since [`REPLAY_MARGIN_MS`] before it was last
+/// known alive (module docs), so a change made while it was away still arrives.
 pub fn listen_for_forecasts(url: &str, own_replica_id: &str, changed: impl Fn(VehicleForecasts) + Send + 'static) -> StoreResult<ListenerHandle> {
-    let config: ::postgres::Config = url.parse().map_err(|e| StoreError::Engine(format!("the PostgreSQL URL does not parse: {e}")))?;
+    let mut config: ::postgres::Config = url.parse().map_err(|e| StoreError::Engine(format!("the PostgreSQL URL does not parse: {e}")))?;
+    config.application_name(LISTENER_APPLICATION_NAME);
     let own = own_replica_id.to_owned();
     let stop = Arc::new(AtomicBool::new(false));
     let stopped = Arc::clone(&stop);
     std::thread::Builder::new()
         .name("brakeledger-pg-listen".into())
         .spawn(move || {
+            let mut alive_at_ms = None;
             while !stopped.load(Ordering::SeqCst) {
-                if let Err(error) = follow(&config, &own, &stopped, &changed) {
+                if let Err(error) = follow(&config, &own, &stopped, &changed, &mut alive_at_ms) {
                     tracing::warn!(%error, "the PostgreSQL change listener lost its connection; reconnecting");
                     std::thread::sleep(Duration::from_secs(1));
                 }
@@ -118,11 +131,30 @@ struct Announcement {
     vehicle_id: String,
 }
 
-fn follow(config: &::postgres::Config, own: &str, stop: &AtomicBool, changed: &impl Fn(VehicleForecasts)) -> StoreResult<()> {
+/// Listens until stopped or the connection fails. `alive_at_ms` is when the listener was last
+/// known to be listening, by the database's clock: `None` on the first start; after a lost
+/// connection, what was stored since (less a margin) is replayed once LISTEN is in place again.
+fn follow(
+    config: &::postgres::Config,
+    own: &str,
+    stop: &AtomicBool,
+    changed: &impl Fn(VehicleForecasts),
+    alive_at_ms: &mut Option<i64>,
+) -> StoreResult<()> {
     let mut listening = config.connect(::postgres::NoTls)?;
     let mut reading = config.connect(::postgres::NoTls)?;
     listening.batch_execute(&format!("LISTEN {FORECASTS_CHANNEL}"))?;
+    let listening_since_ms: i64 = reading.query_one("SELECT (extract(epoch FROM clock_timestamp()) * 1000)::bigint", &[])?.get(0);
+    let listening_since = std::time::Instant::now();
+    if let Some(last_alive_ms) = *alive_at_ms {
+        let missed = forecasts_stored_since(&mut reading, last_alive_ms - REPLAY_MARGIN_MS)?;
+        tracing::info!(replayed = missed.len(), "the PostgreSQL change listener is back; replaying forecasts stored meanwhile");
+        for forecasts in missed {
+            changed(forecasts);
+        }
+    }
     while !stop.load(Ordering::SeqCst) {
+        *alive_at_ms = Some(listening_since_ms + listening_since.elapsed().as_millis() as i64);
         let mut batch: Vec<String> = Vec::new();
         {
             let mut notifications = listening.notifications();

@@ -16,7 +16,7 @@ use ::postgres::GenericClient;
 use crate::store::{StoreError, StoreResult};
 
 /// Schema version this build writes; a database with a higher one is refused.
-pub const SCHEMA_VERSION: u32 = 1;
+pub const SCHEMA_VERSION: u32 = 2;
 
 /// Advisory lock key held while migrating (any constant shared by every replica).
 const MIGRATION_LOCK: i64 = 0x6272_616b_656c_6467; // "brakeldg"
@@ -171,7 +171,14 @@ CREATE TABLE audit (
   subject text NOT NULL,
   PRIMARY KEY (fleet_id, at_ms, sequence)
 );
-"#];
+"#,
+    // 1 → 2: when each forecast row was last stored, by the database's clock, so that a change
+    // listener that lost its connection can replay what it missed (`replicas::listen_for_forecasts`).
+    r#"
+ALTER TABLE forecasts ADD COLUMN stored_at_ms bigint NOT NULL DEFAULT 0;
+CREATE INDEX forecasts_by_stored_at ON forecasts (fleet_id, stored_at_ms);
+"#,
+];
 
 /// Creates or migrates the schema, or refuses a database written by a newer brakeledger.
 pub fn migrate(client: &mut ::postgres::Client) -> StoreResult<()> {
