@@ -192,23 +192,6 @@ fn stored_rows(trips: &[pb::TripSummary]) -> Vec<TripRecord> {
         .collect()
 }
 
-/// The same columns and primary key as the service's `trips` table, nothing else.
-const COPY_TABLE: &str = "(
-  fleet_id text COLLATE \"C\" NOT NULL,
-  vehicle_id text COLLATE \"C\" NOT NULL,
-  trip_id text COLLATE \"C\" NOT NULL,
-  start_ms bigint NOT NULL,
-  end_ms bigint NOT NULL,
-  distance_m float8 NOT NULL,
-  friction_energy_j float8 NOT NULL,
-  axle_energy_j float8[] NOT NULL,
-  axle_split_reported boolean NOT NULL,
-  brake_applications bigint NOT NULL,
-  regen_energy_j float8,
-  hot_energy_j float8 NOT NULL,
-  PRIMARY KEY (fleet_id, vehicle_id, trip_id)
-)";
-
 const COPY_TYPES: [Type; 12] =
     [Type::TEXT, Type::TEXT, Type::TEXT, Type::INT8, Type::INT8, Type::FLOAT8, Type::FLOAT8, Type::FLOAT8_ARRAY, Type::BOOL, Type::INT8, Type::FLOAT8, Type::FLOAT8];
 
@@ -237,13 +220,19 @@ fn copy_rows(tx: &mut postgres::Transaction<'_>, table: &str, rows: &[TripRecord
     writer.finish().expect("COPY end");
 }
 
-/// COPY baselines on `url`: (one COPY in one transaction, one COPY and commit per chunk), trips/s.
+/// COPY baselines on `url`, into tables made `LIKE` the service's `trips` (the same columns,
+/// types, collations and NOT NULLs) with its primary key and no other index: (one COPY in one
+/// transaction, one COPY and commit per chunk), trips/s.
 fn copy_baselines(url: &str, rows: &[TripRecord]) -> (f64, f64) {
     let mut client = postgres::Client::connect(url, postgres::NoTls).expect("connect for COPY");
     client
-        .batch_execute(&format!(
-            "CREATE SCHEMA copy_baseline; CREATE TABLE copy_baseline.trips_one {COPY_TABLE}; CREATE TABLE copy_baseline.trips_chunked {COPY_TABLE};"
-        ))
+        .batch_execute(
+            "CREATE SCHEMA copy_baseline;
+             CREATE TABLE copy_baseline.trips_one (LIKE public.trips);
+             ALTER TABLE copy_baseline.trips_one ADD PRIMARY KEY (fleet_id, vehicle_id, trip_id);
+             CREATE TABLE copy_baseline.trips_chunked (LIKE public.trips);
+             ALTER TABLE copy_baseline.trips_chunked ADD PRIMARY KEY (fleet_id, vehicle_id, trip_id);",
+        )
         .expect("baseline tables");
     let started = Instant::now();
     let mut tx = client.transaction().expect("begin");
