@@ -479,6 +479,16 @@ fn backup_export_verifies(engine: &Engine) {
     assert_eq!((totals.fleet.count, totals.vehicles.count, totals.trips.count, totals.inspections.count), (1, 1, 2, 1));
 }
 
+/// A store whose last handle is dropped on an async worker thread (as the server's is when
+/// its runtime shuts down) closes without panicking.
+fn dropped_on_an_async_worker(engine: &Engine) {
+    let store = (engine.second)();
+    store.upsert_fleet(&FleetRecord::default_for("north")).unwrap();
+    let runtime = tokio::runtime::Builder::new_multi_thread().worker_threads(1).enable_all().build().unwrap();
+    runtime.block_on(async move { tokio::spawn(async move { drop(store) }).await }).expect("the store was dropped without a panic");
+    assert!(engine.store.get_fleet("north").unwrap().is_some(), "the other handle still works");
+}
+
 macro_rules! conformance {
     ($($test:ident),* $(,)?) => {
         mod sled {
@@ -502,6 +512,7 @@ conformance!(
     tokens_and_audit,
     schema_version_refused,
     backup_export_verifies,
+    dropped_on_an_async_worker,
 );
 
 // ---------------------------------------------------------------------------------------------

@@ -14,9 +14,8 @@
 use std::sync::Arc;
 use std::time::Instant;
 
-use brakeledger::store::{sled_store::SledStore, FleetRecord, Store, StoredPart, TripRecord, VehicleForecasts};
-use brakeledger_models::domain::Component;
-use brakeledger_models::{DueDistribution, ForecastBasis, PartOutlook};
+use brakeledger::store::{sled_store::SledStore, FleetRecord, Store, TripRecord};
+use brakeledger_tests::dated_forecasts::dated_forecasts;
 use brakeledger_proto::v1 as pb;
 use brakeledger_tests::{now_s, trip, trip_record, two_axle_vehicle, TestServer};
 
@@ -73,45 +72,7 @@ fn synthetic_forecasts(store: &dyn Store) {
     // ListDue answers NOT_FOUND for a fleet never set up that holds no vehicle.
     store.upsert_fleet(&FleetRecord::default_for("bench")).expect("fleet");
     for v in 0..FLEET_VEHICLES {
-        let parts = (1..=2u32)
-            .flat_map(|axle| {
-                Component::ALL.into_iter().map(move |component| {
-                    // Due days spread over ten years, deterministic per part.
-                    let base = 20_000.0 + ((v * 7919 + axle as usize * 104_729 + component as usize * 13) % 3650) as f64;
-                    StoredPart {
-                        axle_index: axle,
-                        component,
-                        own_fit: None,
-                        outlook: PartOutlook {
-                            current_thickness_mm: 10.0,
-                            current_thickness_low_mm: 9.0,
-                            current_thickness_high_mm: 11.0,
-                            min_thickness_mm: 3.0,
-                            wear_rate_mm_per_mj: 0.002,
-                            wear_rate_stderr_mm_per_mj: 0.0002,
-                            daily_energy_mj: 20.0,
-                            due: Some(DueDistribution { quantile_days: (1..=99).map(|q| base + q as f64).collect() }),
-                            due_now: false,
-                            basis: ForecastBasis::Combined,
-                            inspections_used: 4,
-                            notes: Vec::new(),
-                            fitted_day: None,
-                            energy_since_fitted_mj: 0.0,
-                            trajectory: Vec::new(),
-                        },
-                    }
-                })
-            })
-            .collect();
-        store
-            .put_forecasts(&VehicleForecasts {
-                fleet_id: "bench".into(),
-                vehicle_id: format!("v{v:05}"),
-                vehicle_class: "bench".into(),
-                computed_at_ms: 0,
-                parts,
-            })
-            .expect("put");
+        store.put_forecasts(&dated_forecasts("bench", &format!("v{v:05}"), v)).expect("put");
     }
 }
 

@@ -52,7 +52,8 @@ pub enum Finish<T> {
 
 /// PostgreSQL-backed [`Store`].
 pub struct PostgresStore {
-    pool: Pool,
+    /// Always `Some` until the store is dropped (see the `Drop` impl).
+    pool: Option<Pool>,
     /// The connection string (the change listener opens a connection of its own).
     url: String,
     /// Names this process in stale-vehicle claims and change notifications.
@@ -138,7 +139,7 @@ impl PostgresStore {
                 .connection_timeout(Duration::from_secs(10))
                 .build(manager)
                 .map_err(pool_error)?;
-            Ok(Self { pool, url: url.to_owned(), replica_id: replicas::new_replica_id(), claim_lease_ms: replicas::DEFAULT_CLAIM_LEASE_MS })
+            Ok(Self { pool: Some(pool), url: url.to_owned(), replica_id: replicas::new_replica_id(), claim_lease_ms: replicas::DEFAULT_CLAIM_LEASE_MS })
         })
     }
 
@@ -164,7 +165,8 @@ impl PostgresStore {
     }
 
     fn connection(&self) -> StoreResult<Connection> {
-        self.pool.get().map_err(pool_error)
+        let pool = self.pool.as_ref().ok_or_else(|| StoreError::Engine("the PostgreSQL store is closed".into()))?;
+        pool.get().map_err(pool_error)
     }
 
     /// Runs `work` on a pooled connection.
@@ -204,6 +206,19 @@ impl PostgresStore {
                 }
             }
         })
+    }
+}
+
+impl Drop for PostgresStore {
+    /// Closes the pooled connections on a thread of their own: the `postgres` client closes a
+    /// connection by blocking on a runtime of its own, which panics on a thread inside a tokio
+    /// runtime (the server's last handle on the store goes while its runtime shuts down, where
+    /// that panic, in a destructor, aborted the process). A store is dropped once per process
+    /// or test, so the thread costs nothing that matters.
+    fn drop(&mut self) {
+        if let Some(pool) = self.pool.take() {
+            let _ = std::thread::Builder::new().name("postgres-close".into()).spawn(move || drop(pool)).map(|closing| closing.join());
+        }
     }
 }
 

@@ -15,12 +15,33 @@ use super::Finish;
 use crate::store::sled_engine::add_trip_to_day;
 use crate::store::*;
 
-/// An array of energies as PostgreSQL's array literal (`{1.5,2}`): multi-row statements pass
-/// one text per row and cast it, since PostgreSQL has no ragged two-dimensional arrays.
-/// Rust prints the shortest text that reads back to the same f64, and so does PostgreSQL.
-fn array_literal(values: &[f64]) -> String {
-    let parts: Vec<String> = values.iter().map(|v| v.to_string()).collect();
-    format!("{{{}}}", parts.join(","))
+/// The energy arrays of several rows as one flat array and each row's start and length in it.
+/// PostgreSQL has no ragged two-dimensional arrays, so a multi-row statement takes the flat
+/// array once and slices each row's part out of it (`flat[start + 1 : start + length]`).
+/// Everything travels in binary, so the values arrive exactly as stored here (an earlier
+/// version sent one text literal per row, which the server had to parse back into doubles).
+struct FlatArrays {
+    values: Vec<f64>,
+    starts: Vec<i32>,
+    lengths: Vec<i32>,
+}
+
+impl FlatArrays {
+    fn of<'a>(rows: impl Iterator<Item = &'a [f64]>) -> StoreResult<Self> {
+        let mut flat = Self { values: Vec::new(), starts: Vec::new(), lengths: Vec::new() };
+        for row in rows {
+            flat.starts.push(subscript(flat.values.len())?);
+            flat.lengths.push(subscript(row.len())?);
+            flat.values.extend_from_slice(row);
+        }
+        subscript(flat.values.len())?;
+        Ok(flat)
+    }
+}
+
+/// A position in a flat array as PostgreSQL's (int4) array subscript.
+fn subscript(n: usize) -> StoreResult<i32> {
+    i32::try_from(n).map_err(|_| StoreError::Engine(format!("{n} energies in one statement: too many for an array subscript")))
 }
 
 /// See [`Store::upsert_fleet`].
@@ -112,11 +133,10 @@ pub fn ingest_trips(tx: &mut Transaction<'_>, trips: &[TripRecord]) -> StoreResu
 /// trip) ids of those stored now (the others were stored already, perhaps by a concurrent
 /// transaction that committed first).
 pub fn insert_trips(tx: &mut Transaction<'_>, candidates: &[&TripRecord]) -> StoreResult<HashSet<(String, String, String)>> {
-    let column = |f: &dyn Fn(&TripRecord) -> String| candidates.iter().map(|t| f(t)).collect::<Vec<String>>();
-    let fleets = column(&|t| t.fleet_id.clone());
-    let vehicles = column(&|t| t.vehicle_id.clone());
-    let ids = column(&|t| t.trip_id.clone());
-    let axles = column(&|t| array_literal(&t.axle_energy_j));
+    let fleets: Vec<&str> = candidates.iter().map(|t| t.fleet_id.as_str()).collect();
+    let vehicles: Vec<&str> = candidates.iter().map(|t| t.vehicle_id.as_str()).collect();
+    let ids: Vec<&str> = candidates.iter().map(|t| t.trip_id.as_str()).collect();
+    let axles = FlatArrays::of(candidates.iter().map(|t| t.axle_energy_j.as_slice()))?;
     let starts: Vec<i64> = candidates.iter().map(|t| t.start_ms).collect();
     let ends: Vec<i64> = candidates.iter().map(|t| t.end_ms).collect();
     let distances: Vec<f64> = candidates.iter().map(|t| t.distance_m).collect();
@@ -128,13 +148,13 @@ pub fn insert_trips(tx: &mut Transaction<'_>, candidates: &[&TripRecord]) -> Sto
     let stored_rows = tx.query(
         "INSERT INTO trips (fleet_id, vehicle_id, trip_id, start_ms, end_ms, distance_m, friction_energy_j, axle_energy_j,
                             axle_split_reported, brake_applications, regen_energy_j, hot_energy_j)
-         SELECT f, v, t, s, e, d, fe, ax::float8[], sp, ba, re, he
-         FROM unnest($1::text[], $2::text[], $3::text[], $4::int8[], $5::int8[], $6::float8[], $7::float8[], $8::text[],
-                     $9::bool[], $10::int8[], $11::float8[], $12::float8[]) WITH ORDINALITY AS u(f, v, t, s, e, d, fe, ax, sp, ba, re, he, n)
+         SELECT f, v, t, s, e, d, fe, ($14::float8[])[ao + 1 : ao + al], sp, ba, re, he
+         FROM unnest($1::text[], $2::text[], $3::text[], $4::int8[], $5::int8[], $6::float8[], $7::float8[], $8::int4[],
+                     $9::bool[], $10::int8[], $11::float8[], $12::float8[], $13::int4[]) WITH ORDINALITY AS u(f, v, t, s, e, d, fe, ao, sp, ba, re, he, al, n)
          ORDER BY n
          ON CONFLICT (fleet_id, vehicle_id, trip_id) DO NOTHING
          RETURNING fleet_id, vehicle_id, trip_id",
-        &[&fleets, &vehicles, &ids, &starts, &ends, &distances, &energies, &axles, &reported, &applications, &regen, &hot],
+        &[&fleets, &vehicles, &ids, &starts, &ends, &distances, &energies, &axles.starts, &reported, &applications, &regen, &hot, &axles.lengths, &axles.values],
     )?;
     Ok(stored_rows.iter().map(|r| (r.get(0), r.get(1), r.get(2))).collect())
 }
@@ -144,21 +164,22 @@ pub fn add_daily<S: AsRef<str>>(tx: &mut Transaction<'_>, daily: &BTreeMap<(S, S
     let fleets: Vec<&str> = daily.keys().map(|k| k.0.as_ref()).collect();
     let vehicles: Vec<&str> = daily.keys().map(|k| k.1.as_ref()).collect();
     let days: Vec<i64> = daily.keys().map(|k| k.2).collect();
-    let energy: Vec<String> = daily.values().map(|d| array_literal(&d.axle_energy_j)).collect();
-    let hot: Vec<String> = daily.values().map(|d| array_literal(&d.axle_hot_energy_j)).collect();
+    let energy = FlatArrays::of(daily.values().map(|d| d.axle_energy_j.as_slice()))?;
+    let hot = FlatArrays::of(daily.values().map(|d| d.axle_hot_energy_j.as_slice()))?;
     let trips: Vec<i64> = daily.values().map(|d| i64::from(d.trips)).collect();
     let distances: Vec<f64> = daily.values().map(|d| d.distance_m).collect();
     tx.execute(
         "INSERT INTO daily_energy (fleet_id, vehicle_id, day, axle_energy_j, axle_hot_energy_j, trips, distance_m)
-         SELECT f, v, d, a::float8[], h::float8[], t, m
-         FROM unnest($1::text[], $2::text[], $3::int8[], $4::text[], $5::text[], $6::int8[], $7::float8[]) WITH ORDINALITY AS u(f, v, d, a, h, t, m, n)
+         SELECT f, v, d, ($10::float8[])[ao + 1 : ao + al], ($11::float8[])[ho + 1 : ho + hl], t, m
+         FROM unnest($1::text[], $2::text[], $3::int8[], $4::int4[], $5::int4[], $6::int8[], $7::float8[], $8::int4[], $9::int4[])
+              WITH ORDINALITY AS u(f, v, d, ao, ho, t, m, al, hl, n)
          ORDER BY n
          ON CONFLICT (fleet_id, vehicle_id, day) DO UPDATE SET
            axle_energy_j = brakeledger_add_arrays(daily_energy.axle_energy_j, EXCLUDED.axle_energy_j),
            axle_hot_energy_j = brakeledger_add_arrays(daily_energy.axle_hot_energy_j, EXCLUDED.axle_hot_energy_j),
            trips = daily_energy.trips + EXCLUDED.trips,
            distance_m = daily_energy.distance_m + EXCLUDED.distance_m",
-        &[&fleets, &vehicles, &days, &energy, &hot, &trips, &distances],
+        &[&fleets, &vehicles, &days, &energy.starts, &hot.starts, &trips, &distances, &energy.lengths, &hot.lengths, &energy.values, &hot.values],
     )?;
     Ok(())
 }
