@@ -379,6 +379,13 @@ fn due_index_ranges_and_cursors(engine: &Engine) {
     assert_eq!(store.get_forecasts("north", "v-a").unwrap().unwrap().parts.len(), 1);
     assert_eq!(store.fleet_forecasts("north").unwrap().len(), 5);
     assert_eq!(store.get_forecasts("north", "v-z").unwrap(), None);
+    // A page's vehicles in one read: those with forecasts, each once, as one at a time gives them.
+    let mut many = store.get_many_forecasts("north", &["v-e", "v-a", "v-z", "v-c"]).unwrap();
+    many.sort_by(|a, b| a.vehicle_id.cmp(&b.vehicle_id));
+    let one_by_one: Vec<VehicleForecasts> = ["v-a", "v-c", "v-e"].iter().map(|v| store.get_forecasts("north", v).unwrap().unwrap()).collect();
+    assert_eq!(many, one_by_one);
+    assert!(store.get_many_forecasts("south", &["v-a"]).unwrap().is_empty(), "another fleet's vehicle of the same id is not read");
+    assert!(store.get_many_forecasts("north", &[]).unwrap().is_empty());
 }
 
 fn stale_marks_and_generations(engine: &Engine) {

@@ -57,15 +57,17 @@ pub fn scan_due_filtered(
     }
 }
 
-/// The `DuePart` messages of index entries, reading each vehicle's forecasts once.
+/// The `DuePart` messages of index entries, reading the forecasts of their vehicles in one
+/// store call ([`Store::get_many_forecasts`]).
 pub fn due_parts(store: &dyn Store, fleet_id: &str, cursors: &[DueCursor], level: f64, zone: chrono_tz::Tz, now_ms: i64) -> ServiceResult<Vec<pb::DuePart>> {
-    let mut vehicles: HashMap<String, Option<VehicleForecasts>> = HashMap::new();
+    let mut wanted: Vec<&str> = cursors.iter().map(|c| c.vehicle_id.as_str()).collect();
+    wanted.sort_unstable();
+    wanted.dedup();
+    let vehicles: HashMap<String, VehicleForecasts> =
+        store.get_many_forecasts(fleet_id, &wanted)?.into_iter().map(|f| (f.vehicle_id.clone(), f)).collect();
     let mut parts = Vec::with_capacity(cursors.len());
     for cursor in cursors {
-        if !vehicles.contains_key(&cursor.vehicle_id) {
-            vehicles.insert(cursor.vehicle_id.clone(), store.get_forecasts(fleet_id, &cursor.vehicle_id)?);
-        }
-        let Some(Some(record)) = vehicles.get(&cursor.vehicle_id) else { continue };
+        let Some(record) = vehicles.get(&cursor.vehicle_id) else { continue };
         if let Some(part) = record.parts.iter().find(|p| p.axle_index == cursor.axle_index && p.component == cursor.component) {
             parts.push(due_part(record, part, level, zone, now_ms));
         }

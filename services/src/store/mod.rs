@@ -132,6 +132,16 @@ pub trait Store: Send + Sync + 'static {
     fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()>;
     /// The materialised forecasts of one vehicle.
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>>;
+    /// The materialised forecasts of several vehicles of one fleet (a page of the due list),
+    /// those that have any, in no particular order. An engine with a round trip per read
+    /// answers in one; the default reads one vehicle at a time.
+    fn get_many_forecasts(&self, fleet_id: &str, vehicle_ids: &[&str]) -> StoreResult<Vec<VehicleForecasts>> {
+        let mut out = Vec::with_capacity(vehicle_ids.len());
+        for vehicle_id in vehicle_ids {
+            out.extend(self.get_forecasts(fleet_id, vehicle_id)?);
+        }
+        Ok(out)
+    }
     /// Every materialised forecast of a fleet (for fleet-wide pooling).
     fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>>;
     /// Due-index range scan: parts whose `due_earliest` at band level `level` is before

@@ -54,6 +54,15 @@ pub fn get_forecasts(client: &mut impl GenericClient, fleet_id: &str, vehicle_id
     row.map(|r| decode(r.get::<_, &[u8]>(0))).transpose()
 }
 
+/// See [`Store::get_many_forecasts`]: one query for all of them.
+pub fn get_many_forecasts(client: &mut impl GenericClient, fleet_id: &str, vehicle_ids: &[&str]) -> StoreResult<Vec<VehicleForecasts>> {
+    if vehicle_ids.is_empty() {
+        return Ok(Vec::new());
+    }
+    let rows = client.query("SELECT body FROM forecasts WHERE fleet_id = $1 AND vehicle_id = ANY($2)", &[&fleet_id, &vehicle_ids])?;
+    rows.iter().map(|r| decode(r.get::<_, &[u8]>(0))).collect()
+}
+
 /// Every fleet's forecasts stored at or after `since_ms` (the database's clock), fleet by
 /// fleet: what a change listener replays after it lost its connection.
 pub fn forecasts_stored_since(client: &mut impl GenericClient, since_ms: i64) -> StoreResult<Vec<VehicleForecasts>> {

@@ -316,6 +316,10 @@ impl Store for PostgresStore {
         self.with_client(|c| derived::get_forecasts(c, fleet_id, vehicle_id))
     }
 
+    fn get_many_forecasts(&self, fleet_id: &str, vehicle_ids: &[&str]) -> StoreResult<Vec<VehicleForecasts>> {
+        self.with_client(|c| derived::get_many_forecasts(c, fleet_id, vehicle_ids))
+    }
+
     fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>> {
         self.with_client(|c| derived::fleet_forecasts(c, fleet_id))
     }
