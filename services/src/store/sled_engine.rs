@@ -1438,6 +1438,22 @@ mod tests {
     }
 
     #[test]
+    fn a_write_loads_only_the_index_entries_its_own_trips_can_match() {
+        let engine = Engine::from_db(sled::Config::new().temporary(true).open().unwrap()).unwrap();
+        let trips = fixture_trips();
+        engine.ingest_trips(&trips).unwrap();
+        let stored = trips.iter().find(|t| t.vehicle_id == "van-2").unwrap().clone();
+        let batch = [stored.clone(), TripRecord { trip_id: "new-one".into(), ..stored.clone() }];
+        let wanted: HashSet<u32> = batch.iter().map(|t| trip_blocks::id_hash(&t.trip_id)).collect();
+        let loaded = VehicleTrips::load(vehicle_prefix("north", "van-2"), &wanted, &engine.trip_id_index, &engine.totals).map_err(|_| "load").unwrap();
+        // The vehicle has 1,324 trips stored; only the stored trip's hash is kept (the new id's
+        // hash is not in the index), so a write's memory follows the write, not the history.
+        assert_eq!(loaded.stored, (SEGMENT_ENTRIES + 300) as u64);
+        assert_eq!(loaded.days_by_hash.len(), 1);
+        assert_eq!(engine.ingest_trips(&batch).unwrap(), vec![IngestOutcome::Duplicate, IngestOutcome::Stored]);
+    }
+
+    #[test]
     fn stale_marks_are_counted_without_a_scan() {
         let store = SledStore::temporary().unwrap();
         store.ingest_trips(&fixture_trips()).unwrap();
