@@ -1063,7 +1063,9 @@ struct VehicleTrips {
     prefix: Vec<u8>,
     /// Trips stored before this write (= entries in the index, see `totals`).
     stored: u64,
-    /// Days of the stored trips, by id hash.
+    /// Days of the stored trips whose id hash is one of this write's (the only ones a duplicate
+    /// check can need), by id hash. Keeping only those bounds the memory of a write by the
+    /// write's size, not by the vehicle's history.
     days_by_hash: HashMap<u32, Vec<i64>>,
     /// Entries of the last, partly filled segment (rewritten with the new entries).
     open_segment: Vec<IdEntry>,
@@ -1075,14 +1077,15 @@ struct VehicleTrips {
 }
 
 impl VehicleTrips {
-    fn load(prefix: Vec<u8>, index: &impl ReadKey, totals: &impl ReadKey) -> TxResult<Self> {
+    /// The vehicle's index as a write of trips with these id hashes (`wanted`) needs it.
+    fn load(prefix: Vec<u8>, wanted: &HashSet<u32>, index: &impl ReadKey, totals: &impl ReadKey) -> TxResult<Self> {
         let total_key = &prefix[..prefix.len() - 1];
         let stored = match totals.read_key(total_key)? {
             Some(bytes) => decode::<VehicleTotals>(&bytes).map_err(abort)?.trips_recorded,
             None => 0,
         };
         let segments = stored.div_ceil(SEGMENT_ENTRIES as u64);
-        let mut days_by_hash: HashMap<u32, Vec<i64>> = HashMap::with_capacity(stored as usize);
+        let mut days_by_hash: HashMap<u32, Vec<i64>> = HashMap::with_capacity(wanted.len());
         let mut open_segment = Vec::new();
         for segment in 0..segments {
             let expected = if segment + 1 == segments { stored - segment * SEGMENT_ENTRIES as u64 } else { SEGMENT_ENTRIES as u64 };
@@ -1093,7 +1096,7 @@ impl VehicleTrips {
             if entries.len() as u64 != expected {
                 return Err(missing());
             }
-            for entry in &entries {
+            for entry in entries.iter().filter(|entry| wanted.contains(&entry.hash)) {
                 days_by_hash.entry(entry.hash).or_default().push(entry.day);
             }
             if expected < SEGMENT_ENTRIES as u64 {
@@ -1173,6 +1176,10 @@ fn sort_out_trips(
     index: &impl ReadKey,
     totals: &impl ReadKey,
 ) -> TxResult<(Vec<IngestOutcome>, BTreeMap<Vec<u8>, VehicleTrips>)> {
+    let mut wanted: HashMap<Vec<u8>, HashSet<u32>> = HashMap::new();
+    for trip in trips {
+        wanted.entry(vehicle_prefix(&trip.fleet_id, &trip.vehicle_id)).or_default().insert(trip_blocks::id_hash(&trip.trip_id));
+    }
     let mut vehicles: BTreeMap<Vec<u8>, VehicleTrips> = BTreeMap::new();
     let mut outcomes = Vec::with_capacity(trips.len());
     for trip in trips {
@@ -1180,7 +1187,8 @@ fn sort_out_trips(
         let vehicle = match vehicles.entry(prefix) {
             std::collections::btree_map::Entry::Occupied(entry) => entry.into_mut(),
             std::collections::btree_map::Entry::Vacant(entry) => {
-                let loaded = VehicleTrips::load(entry.key().clone(), index, totals)?;
+                let hashes = wanted.get(entry.key()).ok_or_else(|| abort(StoreError::Engine("trip hashes of a vehicle".into())))?;
+                let loaded = VehicleTrips::load(entry.key().clone(), hashes, index, totals)?;
                 entry.insert(loaded)
             }
         };
@@ -1427,6 +1435,22 @@ mod tests {
         let other = TripRecord { vehicle_id: "van-3".into(), ..trips[0].clone() };
         assert_eq!(store.ingest_trips(&[other.clone(), other]).unwrap(), vec![IngestOutcome::Stored, IngestOutcome::Duplicate]);
         assert_eq!(store.vehicle_totals("north", "van-2").unwrap().trips_recorded, (SEGMENT_ENTRIES + 300) as u64);
+    }
+
+    #[test]
+    fn a_write_loads_only_the_index_entries_its_own_trips_can_match() {
+        let engine = Engine::from_db(sled::Config::new().temporary(true).open().unwrap()).unwrap();
+        let trips = fixture_trips();
+        engine.ingest_trips(&trips).unwrap();
+        let stored = trips.iter().find(|t| t.vehicle_id == "van-2").unwrap().clone();
+        let batch = [stored.clone(), TripRecord { trip_id: "new-one".into(), ..stored.clone() }];
+        let wanted: HashSet<u32> = batch.iter().map(|t| trip_blocks::id_hash(&t.trip_id)).collect();
+        let loaded = VehicleTrips::load(vehicle_prefix("north", "van-2"), &wanted, &engine.trip_id_index, &engine.totals).map_err(|_| "load").unwrap();
+        // The vehicle has 1,324 trips stored; only the stored trip's hash is kept (the new id's
+        // hash is not in the index), so a write's memory follows the write, not the history.
+        assert_eq!(loaded.stored, (SEGMENT_ENTRIES + 300) as u64);
+        assert_eq!(loaded.days_by_hash.len(), 1);
+        assert_eq!(engine.ingest_trips(&batch).unwrap(), vec![IngestOutcome::Duplicate, IngestOutcome::Stored]);
     }
 
     #[test]

@@ -2,13 +2,21 @@
 //! vehicles, in shuffled order), then half of it again (all duplicates), then an online backup,
 //! while its resident set (VmRSS in /proc/<pid>/status) is sampled. The sled page cache is
 //! `[storage] cache_capacity_bytes` (64 MiB by default) and every queue the server keeps is
-//! bounded by its configuration (see `config::reliability`). What is left grows with the data
-//! stored (sled 0.34 keeps bookkeeping for every page of the database in memory), not with the
-//! number of writes: the test checks a stated bound for this many trips, that the growth does
-//! not accelerate, stops when idle, and that writes of nothing new add nothing.
+//! bounded by its configuration (see `config::reliability`).
 //!
-//! `BRAKELEDGER_SOAK_TRIPS` sets the number of trips (default 300,000); the samples are printed
-//! so that the curve can be recorded (README, "Reliability").
+//! What used to grow with the data: each ingest chunk loaded the whole trip-id index of every
+//! vehicle it touched into a map (about 60 bytes per trip ever stored, twice), so the heap's
+//! high-water mark, and with it the resident set, rose by about 0.6 MiB per 1,000 trips stored
+//! (0.9 early in this soak). A chunk now keeps only the index entries its own trips' hashes
+//! match. What is left is sled's page cache filling towards its capacity and the allocator's
+//! slack, which still grow (about 0.15 MiB per 1,000 trips here; no plateau within 300,000
+//! trips). The test checks stated bounds that the old code fails (its peak was 221 MiB and it
+//! grew 0.59 MiB per 1,000 trips from a quarter of the stream to the end): the peak, the growth
+//! per 1,000 trips from a quarter of the stream to its end, that memory does not grow while
+//! idle, and that writes of nothing new add nothing.
+//!
+//! `BRAKELEDGER_SOAK_TRIPS` sets the number of trips (default 300,000; the bounds hold for the
+//! default); the samples are printed so that the curve can be recorded (README, "Reliability").
 
 use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Arc;
@@ -18,10 +26,14 @@ use brakeledger_proto::v1 as pb;
 use brakeledger_tests::load::shuffle;
 use brakeledger_tests::{connect, now_s, trip, two_axle_vehicle, ServerProcess};
 
-/// The bound the resident set must stay under for the default 300,000 trips, MiB: the 64 MiB
-/// page cache, the runtime, the HTTP/2 windows of one connection and sled's per-page
-/// bookkeeping (measured about 0.5 MiB per 1,000 trips stored), with room to spare.
-const RSS_BOUND_MIB: f64 = 320.0;
+/// The bound the resident set must stay under for the default 300,000 trips, MiB: the runtime,
+/// the HTTP/2 windows of one connection, what sled's page cache holds of the 12 MB stored, and
+/// the allocator's slack (measured peaks 152 and 125 MiB; 221 MiB before the ingest stopped loading whole
+/// trip-id indexes).
+const RSS_BOUND_MIB: f64 = 190.0;
+/// The bound on the resident set's growth per 1,000 trips stored, from a quarter of the stream
+/// to its end, MiB (measured 0.16 and 0.17; 0.59 before).
+const GROWTH_BOUND_MIB_PER_1000: f64 = 0.32;
 const VEHICLES: usize = 200;
 
 fn rss_mib(pid: u32) -> Option<f64> {
@@ -32,7 +44,7 @@ fn rss_mib(pid: u32) -> Option<f64> {
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn rss_follows_the_data_stored_not_the_writes_and_stays_under_the_bound() {
+async fn rss_stays_under_the_bound_and_grows_little_with_the_trips_stored() {
     let total: usize = std::env::var("BRAKELEDGER_SOAK_TRIPS").ok().and_then(|v| v.parse().ok()).unwrap_or(300_000);
     let dir = tempfile::tempdir().expect("temp dir");
     let server = ServerProcess::spawn(&std::path::PathBuf::from(env!("CARGO_BIN_EXE_brakeledger-test-server")), dir.path());
@@ -109,14 +121,19 @@ async fn rss_follows_the_data_stored_not_the_writes_and_stays_under_the_bound() 
     let quarter = |i: usize| stored[(stored.len() - 1) * i / 4];
     let per_k = |a: &(f64, u64, f64), b: &(f64, u64, f64)| (b.2 - a.2) / ((b.1 - a.1) as f64 / 1000.0);
     let (early, late) = (per_k(quarter(1), quarter(2)), per_k(quarter(2), quarter(4)));
+    let growth = per_k(quarter(1), quarter(4));
     eprintln!(
-        "soak: peak {peak:.1} MiB; growth while storing {early:.2} then {late:.2} MiB per 1,000 trips; at the end of storing {at_store_end:.1}, after 3 s idle {idle_end:.1}, after the duplicates {after_duplicates:.1}, after a {backup_bytes}-byte backup in {:.2} s {after_backup:.1} MiB",
+        "soak: peak {peak:.1} MiB; growth while storing {early:.2} then {late:.2} MiB per 1,000 trips ({growth:.2} from a quarter to the end); at the end of storing {at_store_end:.1}, after 3 s idle {idle_end:.1}, after the duplicates {after_duplicates:.1}, after a {backup_bytes}-byte backup in {:.2} s {after_backup:.1} MiB",
         backup_time.as_secs_f64()
     );
-    assert!(peak < RSS_BOUND_MIB, "RSS peaked at {peak:.1} MiB, over the {RSS_BOUND_MIB} MiB bound");
-    // Growth follows the data stored, not the number of writes: it does not accelerate while
-    // storing, stops when idle, and writes that store nothing new add (almost) nothing.
-    assert!(late < early * 1.5 + 0.05, "RSS growth accelerates: {early:.2} then {late:.2} MiB per 1,000 trips");
+    let bounded = total <= 300_000;
+    if bounded {
+        assert!(peak < RSS_BOUND_MIB, "RSS peaked at {peak:.1} MiB, over the {RSS_BOUND_MIB} MiB bound");
+    }
+    assert!(growth < GROWTH_BOUND_MIB_PER_1000, "RSS grows {growth:.2} MiB per 1,000 trips stored, over the {GROWTH_BOUND_MIB_PER_1000} bound");
+    // What growth is left follows the data stored, not the number of writes: it stops when
+    // idle, and writes that store nothing new add (almost) nothing. (The curve rises in steps
+    // as the allocator takes more memory, so the halves of the stream are printed, not compared.)
     assert!(idle_end < at_store_end + 8.0, "RSS grows while idle: {at_store_end:.1} then {idle_end:.1} MiB");
     assert!(after_duplicates < idle_end * 1.1 + 8.0, "duplicates grow RSS: {idle_end:.1} then {after_duplicates:.1} MiB");
 }
