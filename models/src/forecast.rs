@@ -382,7 +382,7 @@ pub fn forecast_part(
     };
 
     let Some((anchor_mm, anchor_var, anchor_energy)) = anchor else {
-        notes.push("no replacement or inspection on record: today's thickness is unknown".into());
+        notes.push(UNKNOWN_THICKNESS_NOTE.into());
         outlook.notes = notes;
         return outlook;
     };
@@ -401,7 +401,7 @@ pub fn forecast_part(
             return due_now(outlook, notes, today_day, format!("measured at {t:.1} mm, at or below the minimum of {:.1} mm: due now", history.min_thickness_mm));
         }
         if thickness_assumed {
-            notes.push("no replacement or inspection on record: today's thickness is unknown".into());
+            notes.push(UNKNOWN_THICKNESS_NOTE.into());
         }
         if notes.is_empty() {
             notes.push("no wear rate: no due date".into());
@@ -525,6 +525,9 @@ pub fn forecast_part(
     outlook.notes = notes;
     outlook
 }
+
+/// The note of a part with nothing on record and no date.
+const UNKNOWN_THICKNESS_NOTE: &str = "no replacement or inspection on record: today's thickness is unknown";
 
 /// The anchor `(thickness mm, variance mm², energy origin MJ)` of a part with nothing on
 /// record: the mean and variance of a thickness spread evenly between the minimum and new

@@ -135,12 +135,12 @@ impl MaintenanceApi {
                 stored_once(outcome, &sent, ServiceEntry::Replacement)?
             }
         };
-        let (label, rpc) = match &sent {
-            ServiceEntry::Inspection(_) => ("inspection", "brakeledger.v1.MaintenanceService/RecordInspection"),
-            ServiceEntry::Replacement(_) => ("replacement", "brakeledger.v1.MaintenanceService/RecordReplacement"),
+        let rpc = match &sent {
+            ServiceEntry::Inspection(_) => "brakeledger.v1.MaintenanceService/RecordInspection",
+            ServiceEntry::Replacement(_) => "brakeledger.v1.MaintenanceService/RecordReplacement",
         };
         self.state.wake_forecaster.notify_one();
-        crate::metrics::workshop_record(label, !duplicate);
+        crate::metrics::workshop_record(sent.kind().word(), !duplicate);
         if !duplicate {
             self.state.audit(caller, &fleet_of(&sent), rpc, subject).await;
         }

@@ -18,9 +18,11 @@ pub fn put_forecasts(tx: &mut Transaction<'_>, record: &VehicleForecasts, replic
     let (fleet_id, vehicle_id) = (&record.fleet_id, &record.vehicle_id);
     let body = encode(record)?;
     tx.execute(
-        "INSERT INTO forecasts (fleet_id, vehicle_id, body, stored_at_ms)
-         VALUES ($1, $2, $3, (extract(epoch FROM clock_timestamp()) * 1000)::bigint)
-         ON CONFLICT (fleet_id, vehicle_id) DO UPDATE SET body = EXCLUDED.body, stored_at_ms = EXCLUDED.stored_at_ms",
+        concat!(
+            "INSERT INTO forecasts (fleet_id, vehicle_id, body, stored_at_ms) VALUES ($1, $2, $3, ",
+            database_now_ms!(),
+            ") ON CONFLICT (fleet_id, vehicle_id) DO UPDATE SET body = EXCLUDED.body, stored_at_ms = EXCLUDED.stored_at_ms"
+        ),
         &[fleet_id, vehicle_id, &body],
     )?;
     tx.execute("DELETE FROM due_index WHERE fleet_id = $1 AND vehicle_id = $2", &[fleet_id, vehicle_id])?;

@@ -18,6 +18,15 @@
 //! audit), [`backup`] (the backup file, both ways), [`replicas`], [`scratch`] (a database of
 //! its own for each test).
 
+/// The database server's clock in ms since the Unix epoch, as a SQL expression (a literal, for
+/// `concat!`): claim leases and the forecasts' storage time are read from one clock shared by
+/// every replica, never from a replica's own.
+macro_rules! database_now_ms {
+    () => {
+        "(extract(epoch FROM clock_timestamp()) * 1000)::bigint"
+    };
+}
+
 pub mod access;
 pub mod backup;
 pub mod derived;

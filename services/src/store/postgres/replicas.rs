@@ -39,7 +39,10 @@ pub fn new_replica_id() -> String {
 /// See [`Store::claim_stale`].
 pub fn claim_stale(client: &mut ::postgres::Client, replica_id: &str, lease_ms: i64, limit: usize) -> StoreResult<Vec<StaleMark>> {
     let rows = client.query(
-        "WITH now AS (SELECT (extract(epoch FROM clock_timestamp()) * 1000)::bigint AS ms),
+        concat!(
+            "WITH now AS (SELECT ",
+            database_now_ms!(),
+            " AS ms),
               free AS (
                 SELECT fleet_id, vehicle_id FROM stale, now
                 WHERE claimed_by IS NULL OR claimed_by = $1 OR claimed_until_ms < now.ms
@@ -47,7 +50,8 @@ pub fn claim_stale(client: &mut ::postgres::Client, replica_id: &str, lease_ms: 
                 FOR UPDATE OF stale SKIP LOCKED)
          UPDATE stale SET claimed_by = $1, claimed_until_ms = (SELECT ms FROM now) + $2
          FROM free WHERE stale.fleet_id = free.fleet_id AND stale.vehicle_id = free.vehicle_id
-         RETURNING stale.fleet_id, stale.vehicle_id, stale.generation",
+         RETURNING stale.fleet_id, stale.vehicle_id, stale.generation"
+        ),
         &[&replica_id, &lease_ms, &limit_of(limit)],
     )?;
     let mut marks: Vec<StaleMark> = rows.iter().map(stale_mark).collect();
@@ -144,7 +148,7 @@ fn follow(
     let mut listening = config.connect(::postgres::NoTls)?;
     let mut reading = config.connect(::postgres::NoTls)?;
     listening.batch_execute(&format!("LISTEN {FORECASTS_CHANNEL}"))?;
-    let listening_since_ms: i64 = reading.query_one("SELECT (extract(epoch FROM clock_timestamp()) * 1000)::bigint", &[])?.get(0);
+    let listening_since_ms: i64 = reading.query_one(concat!("SELECT ", database_now_ms!()), &[])?.get(0);
     let listening_since = std::time::Instant::now();
     if let Some(last_alive_ms) = *alive_at_ms {
         let missed = forecasts_stored_since(&mut reading, last_alive_ms - REPLAY_MARGIN_MS)?;
