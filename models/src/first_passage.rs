@@ -94,6 +94,7 @@ impl FirstPassage {
     /// `m + m²ν²/(2λ) − (m/2λ)·√(4mλν² + m²ν⁴)`, rewritten so that it does not cancel), taken
     /// with probability `m/(m + x)`, else `m²/x`. Fed independent χ²₁ and uniform values it is
     /// inverse Gaussian; fed quasi-random ones it integrates over the passage time.
+    #[inline]
     pub fn transform(&self, chi_square: f64, uniform: f64) -> f64 {
         let m = self.mean_days;
         let a = m * chi_square / (2.0 * self.shape_days);
