@@ -58,6 +58,17 @@ use crate::wear_history::PartHistory;
 /// Number of probabilities in a [`DueDistribution`] (0.01 ... 0.99).
 pub const DUE_QUANTILES: usize = 99;
 
+/// The probabilities of a [`DueDistribution`]: 0.01, 0.02, ..., 0.99 (each `i/100` in f64).
+const DUE_PROBABILITIES: [f64; DUE_QUANTILES] = {
+    let mut p = [0.0; DUE_QUANTILES];
+    let mut i = 0;
+    while i < DUE_QUANTILES {
+        p[i] = (i + 1) as f64 / 100.0;
+        i += 1;
+    }
+    p
+};
+
 /// What a forecast's wear rate rests on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub enum ForecastBasis {
@@ -92,9 +103,9 @@ impl DueDistribution {
         keys.sort_unstable();
         let n = keys.len();
         let draws = |i: usize| day_from_key(keys[i]);
-        let quantile_days = (1..=DUE_QUANTILES)
-            .map(|i| {
-                let p = i as f64 / 100.0;
+        let quantile_days = DUE_PROBABILITIES
+            .iter()
+            .map(|p| {
                 let pos = p * (n - 1) as f64;
                 // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
                 let lo = pos as usize;
@@ -337,17 +348,32 @@ pub fn forecast_part(
     current_cumulative_energy_mj: f64,
     settings: &ForecastSettings,
 ) -> PartOutlook {
+    let energy = recent_energy(daily_energy_mj, settings);
+    forecast_part_with_energy(history, own_fit, prior, energy, today_day, current_cumulative_energy_mj, settings)
+}
+
+/// The recent daily energy at a brake as [`forecast_part`] reads it from `daily_energy_mj`
+/// (depends only on [`crate::energy_rate::energy_window`] of it, so pad and rotor of one axle
+/// share it).
+pub fn recent_energy(daily_energy_mj: &[f64], settings: &ForecastSettings) -> Option<EnergyRate> {
+    estimate_energy_rate(daily_energy_mj, settings.energy_window_days, settings.energy_half_life_days, settings.energy_rate_relative_sd)
+}
+
+/// [`forecast_part`] with the recent daily energy already estimated ([`recent_energy`]).
+pub fn forecast_part_with_energy(
+    history: &PartHistory,
+    own_fit: Option<&WearFit>,
+    prior: Option<&RatePrior>,
+    energy: Option<EnergyRate>,
+    today_day: f64,
+    current_cumulative_energy_mj: f64,
+    settings: &ForecastSettings,
+) -> PartOutlook {
     let mut notes = Vec::new();
     let level = if settings.band_level.is_finite() { settings.band_level.clamp(0.01, 0.98) } else { 0.8 };
     let z = normal_quantile(0.5 + level / 2.0);
     let sigma0 = prior.map_or(settings.gauge_sd_mm, |p| p.residual_sd_mm).max(f64::MIN_POSITIVE);
     let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
-    let energy = estimate_energy_rate(
-        daily_energy_mj,
-        settings.energy_window_days,
-        settings.energy_half_life_days,
-        settings.energy_rate_relative_sd,
-    );
 
     let cycles = history.cycles();
     let current = cycles.last();

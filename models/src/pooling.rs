@@ -407,19 +407,25 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
     let mut log_density = [0.0; LOG_RATE_GRID_POINTS + 1];
     let mut k = low.exp();
     let mut top = f64::NEG_INFINITY;
+    let (prior_scale, own_scale) = (0.5 / log_var, 0.5 / own_variance);
     for (j, ld) in log_density.iter_mut().enumerate() {
         let u = low + step * j as f64;
-        *ld = -(u - log_mean).powi(2) / (2.0 * log_var) - (own_mean - k).powi(2) / (2.0 * own_variance);
+        *ld = -(u - log_mean).powi(2) * prior_scale - (own_mean - k).powi(2) * own_scale;
         top = top.max(*ld);
         k *= ratio;
     }
     let (mut w0, mut w1, mut w2) = (0.0, 0.0, 0.0);
     let mut k = low.exp();
     for ld in &log_density {
-        let w = (ld - top).exp();
-        w0 += w;
-        w1 += w * k;
-        w2 += w * k * k;
+        // A point below e⁻⁶⁰ of the largest weight (which is 1) cannot move the sums, whose
+        // last bit is worth 2⁻⁵² of at least 1: skip its `exp`. Where the own estimate is much
+        // sharper than the prior, that is most of the grid.
+        if ld - top > -60.0 {
+            let w = (ld - top).exp();
+            w0 += w;
+            w1 += w * k;
+            w2 += w * k * k;
+        }
         k *= ratio;
     }
     let mean = w1 / w0;
