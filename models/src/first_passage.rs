@@ -99,10 +99,13 @@ impl FirstPassage {
         let m = self.mean_days;
         let a = m * chi_square / (2.0 * self.shape_days);
         let x = m / (1.0 + a + (a * a + 2.0 * a).sqrt());
+        // Both roots, then a select: which one is taken is a coin flip for the processor, and
+        // a mispredicted branch costs more than the division.
+        let larger = m * m / x;
         if uniform * (m + x) <= m {
             x
         } else {
-            m * m / x
+            larger
         }
     }
 

@@ -112,10 +112,12 @@ impl DueDistribution {
                 let hi = (lo + 1).min(n - 1);
                 let frac = pos - lo as f64;
                 let (low, high) = (draws(lo), draws(hi));
+                // Computed before the choice, which is then a select rather than a branch.
+                let between = low + frac * (high - low);
                 if frac == 0.0 || low == high {
                     low
                 } else {
-                    low + frac * (high - low)
+                    between
                 }
             })
             .collect();

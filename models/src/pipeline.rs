@@ -127,9 +127,9 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     type Members = Vec<(usize, Option<WearFit>)>;
     let vehicles: Vec<(u64, Members)> =
         order.chunk_by(same_vehicle).map(|parts| (parts[0].0, parts.iter().map(|&(_, i)| (i, fits[i].take())).collect())).collect();
-    let computed: Vec<(usize, PartResult)> = vehicles
+    let computed: Vec<Vec<(usize, PartResult)>> = vehicles
         .into_par_iter()
-        .flat_map_iter(|(key, members)| {
+        .map(|(key, members)| {
             let vehicle_id = inputs[members[0].0].vehicle_id.as_str();
             // One random stream per vehicle, as in the service.
             let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
@@ -146,12 +146,17 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
             let indices: Vec<usize> = members.iter().map(|m| m.0).collect();
             let own_fits = members.into_iter().map(|m| m.1).collect();
             let results = forecast_vehicle_fitted(key, &parts, own_fits, prior_of, today_day, &vehicle_settings);
-            indices.into_iter().zip(results).map(|(i, r)| (i, PartResult { own_fit: r.own_fit, outlook: r.outlook }))
+            indices.into_iter().zip(results).map(|(i, r)| (i, PartResult { own_fit: r.own_fit, outlook: r.outlook })).collect()
         })
         .collect();
     let mut out: Vec<Option<PartResult>> = std::iter::repeat_with(|| None).take(inputs.len()).collect();
-    for (i, r) in computed {
+    for (i, r) in computed.into_iter().flatten() {
         out[i] = Some(r);
     }
-    out.into_iter().flatten().collect()
+    // Every slot is filled (each part belongs to one vehicle). `filter_map` collects in place
+    // (an `Option<PartResult>` is as large as a `PartResult`); `flatten` would copy the lot
+    // into a second vector of fresh pages.
+    #[allow(clippy::filter_map_identity)]
+    let results: Vec<PartResult> = out.into_iter().filter_map(|r| r).collect();
+    results
 }
