@@ -98,10 +98,11 @@ impl FirstPassage {
     pub fn transform(&self, chi_square: f64, uniform: f64) -> f64 {
         let m = self.mean_days;
         let a = m * chi_square / (2.0 * self.shape_days);
-        let x = m / (1.0 + a + (a * a + 2.0 * a).sqrt());
-        // Both roots, then a select: which one is taken is a coin flip for the processor, and
-        // a mispredicted branch costs more than the division.
-        let larger = m * m / x;
+        let denominator = 1.0 + a + (a * a + 2.0 * a).sqrt();
+        let x = m / denominator;
+        // Both roots (m²/x = m·denominator), then a select: which one is taken is a coin flip
+        // for the processor, and a mispredicted branch costs more than a multiplication.
+        let larger = m * denominator;
         if uniform * (m + x) <= m {
             x
         } else {

@@ -377,8 +377,8 @@ pub fn forecast_part_with_energy(
     let sigma0 = prior.map_or(settings.gauge_sd_mm, |p| p.residual_sd_mm).max(f64::MIN_POSITIVE);
     let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
 
-    let cycles = history.cycles();
-    let current = cycles.last();
+    let current_cycle = history.current_cycle();
+    let current = Some(&current_cycle);
     let fitted_day = current.and_then(|c| c.start.map(|s| s.day));
     // Anchor A (mm), its variance, and the energy origin of d.
     let anchor: Option<(f64, f64, f64)> = current.and_then(|c| match (&c.start, c.points.is_empty()) {
