@@ -606,25 +606,43 @@ struct DueInputs {
 }
 
 impl DueInputs {
-    /// Days from today to the minimum for one point of the integral: `zk`, `za`, `zm` standard
-    /// normal scores of the rate, the anchor and the mean daily energy, `drift` the factor
-    /// `exp(drift_sd·z)` of the rate's drift; `passage` draws the inverse Gaussian passage
-    /// time. `None`: already at the minimum.
+    /// One point of the integral: `zk`, `za`, `zm` standard normal scores of the rate, the
+    /// anchor and the mean daily energy, `drift` the factor `exp(drift_sd·z)` of the rate's
+    /// drift. Returns the thickness left above the minimum (mm), the rate from today on
+    /// (mm/MJ) and the mean daily energy (MJ/day); `None`: already at the minimum.
     #[inline]
-    fn days(&self, zk: f64, za: f64, zm: f64, drift: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+    fn point(&self, zk: f64, za: f64, zm: f64, drift: f64) -> Option<(f64, f64, f64)> {
         let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
         let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
         if margin <= 0.0 {
             return None;
         }
-        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
-        let remaining_mj = margin / (k * drift);
         let mean = self.energy.mean_mj_per_day;
         let mu = (mean + self.mean_energy_sd * zm).max(0.05 * mean);
+        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
+        Some((margin, k * drift, mu))
+    }
+
+    /// Days from today to the minimum for one point ([`Self::point`]); `passage` draws the
+    /// inverse Gaussian passage time. `None`: already at the minimum.
+    fn days(&self, zk: f64, za: f64, zm: f64, drift: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+        let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
+        let remaining_mj = margin / rate;
         Some(match FirstPassage::new(remaining_mj, mu, self.energy.variance_mj2_per_day) {
             Ok(fp) => passage(&fp),
             Err(_) => remaining_mj / mu,
         })
+    }
+
+    /// [`Self::days`] with the passage time by [`FirstPassage::transform`] of `chi_square` and
+    /// `uniform`, through [`FirstPassage::transform_margin`] (two divisions, not five).
+    #[inline]
+    fn days_by_transform(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> Option<f64> {
+        let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
+        Some(
+            FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform)
+                .unwrap_or_else(|| margin / rate / mu),
+        )
     }
 }
 
@@ -642,7 +660,7 @@ fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution
         let mut keys = buffer.borrow_mut();
         keys.clear();
         for ((z, u), f) in scores.points.iter().zip(&scores.cells).zip(drift.iter()) {
-            let days = inputs.days(z[0], z[3], z[1], *f, |fp| fp.transform(z[4] * z[4], u[5]));
+            let days = inputs.days_by_transform(z[0], z[3], z[1], *f, z[4] * z[4], u[5]);
             let due_day = inputs.today_day + days.unwrap_or(0.0);
             if !due_day.is_nan() {
                 keys.push(day_key(due_day));
