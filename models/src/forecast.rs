@@ -114,7 +114,7 @@ impl DueDistribution {
                 let (low, high) = (draws(lo), draws(hi));
                 // Computed before the choice, which is then a select rather than a branch.
                 let between = low + frac * (high - low);
-                if frac == 0.0 || low == high {
+                if (frac == 0.0) | (low == high) {
                     low
                 } else {
                     between

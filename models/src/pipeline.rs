@@ -17,7 +17,7 @@ use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
 use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
-use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData};
+use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData, PartForecast};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -127,7 +127,7 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     type Members = Vec<(usize, Option<WearFit>)>;
     let vehicles: Vec<(u64, Members)> =
         order.chunk_by(same_vehicle).map(|parts| (parts[0].0, parts.iter().map(|&(_, i)| (i, fits[i].take())).collect())).collect();
-    let computed: Vec<Vec<(usize, PartResult)>> = vehicles
+    let computed: Vec<(Vec<usize>, Vec<PartForecast>)> = vehicles
         .into_par_iter()
         .map(|(key, members)| {
             let vehicle_id = inputs[members[0].0].vehicle_id.as_str();
@@ -145,13 +145,14 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
             let prior_of = |axle_index: u32, component: Component| prior_by_group.get(&(class, axle_index, component)).copied();
             let indices: Vec<usize> = members.iter().map(|m| m.0).collect();
             let own_fits = members.into_iter().map(|m| m.1).collect();
-            let results = forecast_vehicle_fitted(key, &parts, own_fits, prior_of, today_day, &vehicle_settings);
-            indices.into_iter().zip(results).map(|(i, r)| (i, PartResult { own_fit: r.own_fit, outlook: r.outlook })).collect()
+            (indices, forecast_vehicle_fitted(key, &parts, own_fits, prior_of, today_day, &vehicle_settings))
         })
         .collect();
     let mut out: Vec<Option<PartResult>> = std::iter::repeat_with(|| None).take(inputs.len()).collect();
-    for (i, r) in computed.into_iter().flatten() {
-        out[i] = Some(r);
+    for (indices, forecasts) in computed {
+        for (i, r) in indices.into_iter().zip(forecasts) {
+            out[i] = Some(PartResult { own_fit: r.own_fit, outlook: r.outlook });
+        }
     }
     // Every slot is filled (each part belongs to one vehicle). `filter_map` collects in place
     // (an `Option<PartResult>` is as large as a `PartResult`); `flatten` would copy the lot

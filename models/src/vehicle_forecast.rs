@@ -107,5 +107,8 @@ pub fn forecast_vehicle_fitted<'p>(
         }
         out[index] = Some(PartForecast { own_fit, outlook });
     }
-    out.into_iter().flatten().collect()
+    // Every slot is filled; `filter_map` collects in place, `flatten` would copy.
+    #[allow(clippy::filter_map_identity)]
+    let forecasts: Vec<PartForecast> = out.into_iter().filter_map(|f| f).collect();
+    forecasts
 }
