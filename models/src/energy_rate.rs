@@ -29,6 +29,13 @@ pub struct EnergyRate {
     pub active_days: usize,
 }
 
+/// The days [`estimate_energy_rate`] reads: the last `window_days` (at least one) of
+/// `daily_energy_mj`, or all of them when there are fewer. Equal windows give equal estimates.
+pub fn energy_window(daily_energy_mj: &[f64], window_days: usize) -> &[f64] {
+    let window = window_days.max(1).min(daily_energy_mj.len());
+    &daily_energy_mj[daily_energy_mj.len() - window..]
+}
+
 /// Estimates the daily energy from `daily_energy_mj` (oldest first). Returns `None` when the
 /// window is empty or holds no energy.
 pub fn estimate_energy_rate(
@@ -37,11 +44,11 @@ pub fn estimate_energy_rate(
     half_life_days: f64,
     relative_sd: f64,
 ) -> Option<EnergyRate> {
-    let window = window_days.max(1).min(daily_energy_mj.len());
+    let recent = energy_window(daily_energy_mj, window_days);
+    let window = recent.len();
     if window == 0 {
         return None;
     }
-    let recent = &daily_energy_mj[daily_energy_mj.len() - window..];
     let half_life = if half_life_days > 0.0 && half_life_days.is_finite() { half_life_days } else { f64::INFINITY };
     // wᵢ = 2^(−i/h) by repeated multiplication (one exp per window, not per day).
     let decay = (-std::f64::consts::LN_2 / half_life).exp();

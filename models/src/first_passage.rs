@@ -94,15 +94,33 @@ impl FirstPassage {
     /// `m + m²ν²/(2λ) − (m/2λ)·√(4mλν² + m²ν⁴)`, rewritten so that it does not cancel), taken
     /// with probability `m/(m + x)`, else `m²/x`. Fed independent χ²₁ and uniform values it is
     /// inverse Gaussian; fed quasi-random ones it integrates over the passage time.
+    #[inline]
     pub fn transform(&self, chi_square: f64, uniform: f64) -> f64 {
         let m = self.mean_days;
-        let a = m * chi_square / (2.0 * self.shape_days);
-        let x = m / (1.0 + a + (a * a + 2.0 * a).sqrt());
-        if uniform * (m + x) <= m {
-            x
-        } else {
-            m * m / x
-        }
+        smaller_or_larger_root(m, m * chi_square / (2.0 * self.shape_days), uniform)
+    }
+
+    /// `FirstPassage::new(margin_mm / rate_mm_per_mj, daily_mean_mj, daily_variance_mj2)`
+    /// followed by [`Self::transform`]`(chi_square, uniform)`, for a remaining energy given as
+    /// the thickness left over the wear rate, with the divisions folded into one: with
+    /// `q = 1/(margin·rate·μ)`, `m = R/μ = margin²·q` and `m·ν²/(2λ) = ν²·σ²/(2Rμ) = ν²·σ²·rate²·q/2`.
+    /// The same value up to rounding; `None` where [`Self::new`] would refuse (a non-positive
+    /// or non-finite input).
+    #[inline]
+    pub fn transform_margin(
+        margin_mm: f64,
+        rate_mm_per_mj: f64,
+        daily_mean_mj: f64,
+        daily_variance_mj2: f64,
+        chi_square: f64,
+        uniform: f64,
+    ) -> Option<f64> {
+        let q = 1.0 / (margin_mm * rate_mm_per_mj * daily_mean_mj);
+        let m = margin_mm * margin_mm * q;
+        let a = 0.5 * chi_square * daily_variance_mj2 * rate_mm_per_mj * rate_mm_per_mj * q;
+        let valid = |v: f64| v.is_finite() && v > 0.0;
+        (valid(margin_mm) && valid(rate_mm_per_mj) && valid(daily_mean_mj) && valid(daily_variance_mj2) && valid(m) && valid(q))
+            .then(|| smaller_or_larger_root(m, a, uniform))
     }
 
     /// One random passage time, days (Michael, Schucany & Haas 1976 via `rand_distr`).
@@ -111,5 +129,46 @@ impl FirstPassage {
             Ok(d) => d.sample(rng),
             Err(_) => self.mean_days,
         }
+    }
+}
+
+/// The Michael-Schucany-Haas step of [`FirstPassage::transform`] given the mean `m` and
+/// `a = m·ν²/(2λ)`: the smaller root `x = m/D`, `D = 1 + a + √(a² + 2a)`, taken with
+/// probability `m/(m + x)` (`uniform` below it), else the larger `m²/x = m·D`.
+#[inline]
+fn smaller_or_larger_root(m: f64, a: f64, uniform: f64) -> f64 {
+    let denominator = 1.0 + a + (a * a + 2.0 * a).sqrt();
+    let x = m / denominator;
+    // Both roots, then a select: which one is taken is a coin flip for the processor, and a
+    // mispredicted branch costs more than a multiplication.
+    let larger = m * denominator;
+    if uniform * (m + x) <= m {
+        x
+    } else {
+        larger
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The folded form gives what `new` then `transform` give (that pair is checked against
+    /// scipy's inverse Gaussian in `tests/distributions.rs`), to rounding.
+    #[test]
+    fn transform_margin_is_new_then_transform() {
+        for &(margin, rate, mean, variance) in &[(8.0, 4e-4, 60.0, 900.0), (0.02, 1e-3, 5.0, 400.0), (15.0, 2e-5, 300.0, 1.0)] {
+            let fp = FirstPassage::new(margin / rate, mean, variance).expect("valid");
+            for &chi in &[1e-6, 0.3, 1.0, 4.0, 30.0] {
+                for &u in &[0.01, 0.4, 0.6, 0.99] {
+                    let folded = FirstPassage::transform_margin(margin, rate, mean, variance, chi, u).expect("valid");
+                    let reference = fp.transform(chi, u);
+                    assert!((folded - reference).abs() <= 1e-13 * reference, "{folded} vs {reference}");
+                }
+            }
+        }
+        assert!(FirstPassage::transform_margin(0.0, 1e-3, 50.0, 100.0, 1.0, 0.5).is_none());
+        assert!(FirstPassage::transform_margin(5.0, 1e-3, 50.0, 0.0, 1.0, 0.5).is_none());
+        assert!(FirstPassage::transform_margin(5.0, f64::NAN, 50.0, 100.0, 1.0, 0.5).is_none());
     }
 }

@@ -39,6 +39,8 @@
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
 //! technician or local roadworthiness rules.
 
+use std::cell::RefCell;
+
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::StandardNormal;
@@ -55,6 +57,17 @@ use crate::wear_history::PartHistory;
 
 /// Number of probabilities in a [`DueDistribution`] (0.01 ... 0.99).
 pub const DUE_QUANTILES: usize = 99;
+
+/// The probabilities of a [`DueDistribution`]: 0.01, 0.02, ..., 0.99 (each `i/100` in f64).
+const DUE_PROBABILITIES: [f64; DUE_QUANTILES] = {
+    let mut p = [0.0; DUE_QUANTILES];
+    let mut i = 0;
+    while i < DUE_QUANTILES {
+        p[i] = (i + 1) as f64 / 100.0;
+        i += 1;
+    }
+    p
+};
 
 /// What a forecast's wear rate rests on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -76,24 +89,35 @@ pub struct DueDistribution {
 
 impl DueDistribution {
     /// Builds the 99 quantiles from draws (days since epoch). `None` if there are no finite draws.
-    pub fn from_draws(mut draws: Vec<f64>) -> Option<Self> {
-        draws.retain(|d| !d.is_nan());
-        if draws.is_empty() {
+    pub fn from_draws(draws: Vec<f64>) -> Option<Self> {
+        let mut keys: Vec<i64> = draws.iter().filter(|d| !d.is_nan()).map(|d| day_key(*d)).collect();
+        Self::from_day_keys(&mut keys)
+    }
+
+    /// [`Self::from_draws`] from the [`day_key`]s of the draws that are not NaN, sorted here in
+    /// place (a caller may reuse one buffer for every part).
+    fn from_day_keys(keys: &mut [i64]) -> Option<Self> {
+        if keys.is_empty() {
             return None;
         }
-        sort_days(&mut draws);
-        let n = draws.len();
-        let quantile_days = (1..=DUE_QUANTILES)
-            .map(|i| {
-                let p = i as f64 / 100.0;
+        keys.sort_unstable();
+        let n = keys.len();
+        let draws = |i: usize| day_from_key(keys[i]);
+        let quantile_days = DUE_PROBABILITIES
+            .iter()
+            .map(|p| {
                 let pos = p * (n - 1) as f64;
-                let lo = pos.floor() as usize;
+                // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
+                let lo = pos as usize;
                 let hi = (lo + 1).min(n - 1);
                 let frac = pos - lo as f64;
-                if frac == 0.0 || draws[lo] == draws[hi] {
-                    draws[lo]
+                let (low, high) = (draws(lo), draws(hi));
+                // Computed before the choice, which is then a select rather than a branch.
+                let between = low + frac * (high - low);
+                if (frac == 0.0) | (low == high) {
+                    low
                 } else {
-                    draws[lo] + frac * (draws[hi] - draws[lo])
+                    between
                 }
             })
             .collect();
@@ -125,21 +149,18 @@ impl DueDistribution {
     }
 }
 
-/// Sorts `values` (no NaN) ascending, as `f64::total_cmp` would, by sorting their bit patterns
-/// as integers (the order-preserving map of the IEEE 754 total order: flip every bit below the
-/// sign of a negative value), which is about twice as fast for the hundred-odd values of a
-/// forecast.
-fn sort_days(values: &mut [f64]) {
-    let key = |v: f64| {
-        let bits = v.to_bits() as i64;
-        bits ^ (((bits >> 63) as u64) >> 1) as i64
-    };
-    let mut keys: Vec<i64> = values.iter().map(|v| key(*v)).collect();
-    keys.sort_unstable();
-    for (v, k) in values.iter_mut().zip(keys) {
-        // The map is its own inverse.
-        *v = f64::from_bits((k ^ (((k >> 63) as u64) >> 1) as i64) as u64);
-    }
+/// The sort key of a day (not NaN): its bit pattern as an integer with every bit below the
+/// sign flipped when negative, the order-preserving map of the IEEE 754 total order
+/// (`f64::total_cmp`). Integers sort about twice as fast as `total_cmp` for the hundred-odd
+/// values of a forecast.
+fn day_key(day: f64) -> i64 {
+    let bits = day.to_bits() as i64;
+    bits ^ (((bits >> 63) as u64) >> 1) as i64
+}
+
+/// The day of a [`day_key`] (the map is its own inverse).
+fn day_from_key(key: i64) -> f64 {
+    f64::from_bits((key ^ (((key >> 63) as u64) >> 1) as i64) as u64)
 }
 
 /// One point of the thickness trajectory.
@@ -329,20 +350,35 @@ pub fn forecast_part(
     current_cumulative_energy_mj: f64,
     settings: &ForecastSettings,
 ) -> PartOutlook {
+    let energy = recent_energy(daily_energy_mj, settings);
+    forecast_part_with_energy(history, own_fit, prior, energy, today_day, current_cumulative_energy_mj, settings)
+}
+
+/// The recent daily energy at a brake as [`forecast_part`] reads it from `daily_energy_mj`
+/// (depends only on [`crate::energy_rate::energy_window`] of it, so pad and rotor of one axle
+/// share it).
+pub fn recent_energy(daily_energy_mj: &[f64], settings: &ForecastSettings) -> Option<EnergyRate> {
+    estimate_energy_rate(daily_energy_mj, settings.energy_window_days, settings.energy_half_life_days, settings.energy_rate_relative_sd)
+}
+
+/// [`forecast_part`] with the recent daily energy already estimated ([`recent_energy`]).
+pub fn forecast_part_with_energy(
+    history: &PartHistory,
+    own_fit: Option<&WearFit>,
+    prior: Option<&RatePrior>,
+    energy: Option<EnergyRate>,
+    today_day: f64,
+    current_cumulative_energy_mj: f64,
+    settings: &ForecastSettings,
+) -> PartOutlook {
     let mut notes = Vec::new();
     let level = if settings.band_level.is_finite() { settings.band_level.clamp(0.01, 0.98) } else { 0.8 };
     let z = normal_quantile(0.5 + level / 2.0);
     let sigma0 = prior.map_or(settings.gauge_sd_mm, |p| p.residual_sd_mm).max(f64::MIN_POSITIVE);
     let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
-    let energy = estimate_energy_rate(
-        daily_energy_mj,
-        settings.energy_window_days,
-        settings.energy_half_life_days,
-        settings.energy_rate_relative_sd,
-    );
 
-    let cycles = history.cycles();
-    let current = cycles.last();
+    let current_cycle = history.current_cycle();
+    let current = Some(&current_cycle);
     let fitted_day = current.and_then(|c| c.start.map(|s| s.day));
     // Anchor A (mm), its variance, and the energy origin of d.
     let anchor: Option<(f64, f64, f64)> = current.and_then(|c| match (&c.start, c.points.is_empty()) {
@@ -492,6 +528,7 @@ pub fn forecast_part(
         anchor_sd: anchor_var.max(0.0).sqrt(),
         energy_since_anchor_mj: d,
         energy,
+        mean_energy_sd: energy.mean_variance.max(0.0).sqrt(),
         drift_sd,
         today_day,
     };
@@ -561,30 +598,51 @@ struct DueInputs {
     /// Energy since the anchor, MJ.
     energy_since_anchor_mj: f64,
     energy: EnergyRate,
+    /// SD of the mean daily energy, √Var(μ), MJ/day (from `energy`, taken once per part).
+    mean_energy_sd: f64,
     /// Log-SD of the rate's drift from today on.
     drift_sd: f64,
     today_day: f64,
 }
 
 impl DueInputs {
-    /// Days from today to the minimum for one point of the integral: `zk`, `za`, `zm` standard
-    /// normal scores of the rate, the anchor and the mean daily energy, `drift` the factor
-    /// `exp(drift_sd·z)` of the rate's drift; `passage` draws the inverse Gaussian passage
-    /// time. `None`: already at the minimum.
-    fn days(&self, zk: f64, za: f64, zm: f64, drift: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+    /// One point of the integral: `zk`, `za`, `zm` standard normal scores of the rate, the
+    /// anchor and the mean daily energy, `drift` the factor `exp(drift_sd·z)` of the rate's
+    /// drift. Returns the thickness left above the minimum (mm), the rate from today on
+    /// (mm/MJ) and the mean daily energy (MJ/day); `None`: already at the minimum.
+    #[inline]
+    fn point(&self, zk: f64, za: f64, zm: f64, drift: f64) -> Option<(f64, f64, f64)> {
         let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
         let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
         if margin <= 0.0 {
             return None;
         }
-        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
-        let remaining_mj = margin / (k * drift);
         let mean = self.energy.mean_mj_per_day;
-        let mu = (mean + self.energy.mean_variance.max(0.0).sqrt() * zm).max(0.05 * mean);
+        let mu = (mean + self.mean_energy_sd * zm).max(0.05 * mean);
+        // The rate from today on drifts around the rate so far (lognormal, median-preserving).
+        Some((margin, k * drift, mu))
+    }
+
+    /// Days from today to the minimum for one point ([`Self::point`]); `passage` draws the
+    /// inverse Gaussian passage time. `None`: already at the minimum.
+    fn days(&self, zk: f64, za: f64, zm: f64, drift: f64, passage: impl FnOnce(&FirstPassage) -> f64) -> Option<f64> {
+        let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
+        let remaining_mj = margin / rate;
         Some(match FirstPassage::new(remaining_mj, mu, self.energy.variance_mj2_per_day) {
             Ok(fp) => passage(&fp),
             Err(_) => remaining_mj / mu,
         })
+    }
+
+    /// [`Self::days`] with the passage time by [`FirstPassage::transform`] of `chi_square` and
+    /// `uniform`, through [`FirstPassage::transform_margin`] (two divisions, not five).
+    #[inline]
+    fn days_by_transform(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> Option<f64> {
+        let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
+        Some(
+            FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform)
+                .unwrap_or_else(|| margin / rate / mu),
+        )
     }
 }
 
@@ -592,14 +650,24 @@ impl DueInputs {
 /// coordinates 1-4 are the rate, the mean daily energy, the rate's drift and the anchor; 5 and
 /// 6 draw the passage time by Michael, Schucany & Haas (1976).
 fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution> {
+    thread_local! {
+        /// The due days' sort keys of one part, reused for every part this thread forecasts.
+        static DUE_DAY_KEYS: RefCell<Vec<i64>> = const { RefCell::new(Vec::new()) };
+    }
     let scores = NormalScores::cached(points);
     let drift = scores.exp_scaled(2, inputs.drift_sd);
-    let mut out = Vec::with_capacity(scores.points.len());
-    for ((z, u), f) in scores.points.iter().zip(&scores.cells).zip(drift.iter()) {
-        let days = inputs.days(z[0], z[3], z[1], *f, |fp| fp.transform(z[4] * z[4], u[5]));
-        out.push(inputs.today_day + days.unwrap_or(0.0));
-    }
-    DueDistribution::from_draws(out)
+    DUE_DAY_KEYS.with(|buffer| {
+        let mut keys = buffer.borrow_mut();
+        keys.clear();
+        for ((z, u), f) in scores.points.iter().zip(&scores.cells).zip(drift.iter()) {
+            let days = inputs.days_by_transform(z[0], z[3], z[1], *f, z[4] * z[4], u[5]);
+            let due_day = inputs.today_day + days.unwrap_or(0.0);
+            if !due_day.is_nan() {
+                keys.push(day_key(due_day));
+            }
+        }
+        DueDistribution::from_day_keys(&mut keys)
+    })
 }
 
 /// The due-day distribution by seeded pseudo-random draws (the earlier method, a reference for
@@ -688,14 +756,16 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
 
 #[cfg(test)]
 mod tests {
-    use super::sort_days;
+    use super::{day_from_key, day_key};
 
     #[test]
     fn sorting_by_bit_pattern_is_the_total_order() {
-        let mut values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
+        let values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
         let mut expected = values.clone();
         expected.sort_by(f64::total_cmp);
-        sort_days(&mut values);
+        let mut keys: Vec<i64> = values.iter().map(|v| day_key(*v)).collect();
+        keys.sort_unstable();
+        let values: Vec<f64> = keys.into_iter().map(day_from_key).collect();
         assert_eq!(values.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
     }
 }

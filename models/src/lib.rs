@@ -13,6 +13,8 @@
 //! - [`error`]: the crate's one error enum, [`ModelError`].
 //! - [`regression`]: least squares via linfa, with covariance, standard errors, prediction
 //!   intervals and Fieller inverse intervals.
+//! - [`line_fit`]: the closed-form straight line with per-group intercepts (the wear fit's
+//!   lean path, no allocation).
 //! - [`wear_history`]: a part's dated replacements and inspections, and its wear cycles.
 //! - [`wear_fit`]: the wear rate (mm/MJ) from the vehicle's own inspections.
 //! - [`random_effects`]: between-unit variance and pooled mean (DerSimonian–Laird, Paule–Mandel).
@@ -36,6 +38,7 @@ pub mod energy_rate;
 pub mod error;
 pub mod first_passage;
 pub mod forecast;
+pub mod line_fit;
 pub mod physics;
 pub mod pipeline;
 pub mod plausibility;

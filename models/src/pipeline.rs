@@ -9,6 +9,7 @@
 
 use std::borrow::Borrow;
 use std::collections::HashMap;
+use std::hash::Hash;
 
 use rayon::prelude::*;
 
@@ -16,7 +17,7 @@ use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
 use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
-use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData};
+use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData, PartForecast};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -58,17 +59,21 @@ pub struct PartResult {
 
 /// Estimates every group's prior from `(group, vehicle key, own fit)` triples, then the pad
 /// coupling of each rotor (drum) group from the pad (lining) group of the same class and axle.
-/// The fits may be owned or borrowed (`WearFit` or `&WearFit`).
-pub fn estimate_group_priors<F: Borrow<WearFit>>(
-    fits: impl IntoIterator<Item = (GroupKey, u64, F)>,
-    settings: &ForecastSettings,
-) -> HashMap<GroupKey, WearPrior> {
-    let mut groups: HashMap<GroupKey, Vec<(u64, F)>> = HashMap::new();
+/// The groups and fits may be owned or borrowed (`GroupKey` or `&GroupKey`, `WearFit` or
+/// `&WearFit`); the groups' priors are estimated in parallel.
+pub fn estimate_group_priors<G, F>(fits: impl IntoIterator<Item = (G, u64, F)>, settings: &ForecastSettings) -> HashMap<GroupKey, WearPrior>
+where
+    G: Borrow<GroupKey> + Hash + Eq + Send,
+    F: Borrow<WearFit> + Send,
+{
+    let mut groups: HashMap<G, Vec<(u64, F)>> = HashMap::new();
     for (group, key, fit) in fits {
         groups.entry(group).or_default().push((key, fit));
     }
-    let mut priors: HashMap<GroupKey, WearPrior> =
-        groups.into_iter().filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k, p))).collect();
+    let mut priors: HashMap<GroupKey, WearPrior> = groups
+        .into_par_iter()
+        .filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k.borrow().clone(), p)))
+        .collect();
     let couplings: Vec<(GroupKey, PadCoupling)> = priors
         .iter()
         .filter(|(k, _)| k.component == Component::Disc)
@@ -97,7 +102,7 @@ pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<O
     let triples = inputs
         .iter()
         .zip(&fits)
-        .filter_map(|(input, fit)| fit.as_ref().map(|f| (input.group.clone(), vehicle_key(&[&input.vehicle_id]), f)));
+        .filter_map(|(input, fit)| fit.as_ref().map(|f| (&input.group, vehicle_key(&[&input.vehicle_id]), f)));
     let priors = estimate_group_priors(triples, settings);
     (fits, priors)
 }
@@ -105,21 +110,27 @@ pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<O
 /// Runs the pipeline over `inputs` for `today_day` (days since epoch); results in input order.
 /// Fits and vehicles are spread over rayon's threads; each vehicle's forecast depends only on
 /// its own data, the priors and its own seed, so the result does not depend on the threads.
+///
+/// Vehicles are forecast in the order of their keys ([`vehicle_key`]): each prior's members
+/// are sorted by that key, so the leave-one-out look-ups of consecutive vehicles land close
+/// together instead of all over a group of many thousand vehicles.
 pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastSettings) -> Vec<PartResult> {
     let (mut fits, priors) = fit_and_pool(inputs, settings);
-    let mut by_vehicle: HashMap<&str, Vec<usize>> = HashMap::new();
-    for (i, input) in inputs.iter().enumerate() {
-        by_vehicle.entry(input.vehicle_id.as_str()).or_default().push(i);
-    }
-    // Each vehicle with its parts' indices and own fits.
+    let prior_by_group: HashMap<(&str, u32, Component), &WearPrior> =
+        priors.iter().map(|(k, p)| ((k.vehicle_class.as_str(), k.axle_index, k.component), p)).collect();
+    // (vehicle key, part index), grouped by vehicle: by key, then id (keys are hashes), then
+    // input order within the vehicle.
+    let mut order: Vec<(u64, usize)> = inputs.par_iter().enumerate().map(|(i, p)| (vehicle_key(&[&p.vehicle_id]), i)).collect();
+    let same_vehicle = |a: &(u64, usize), b: &(u64, usize)| a.0 == b.0 && inputs[a.1].vehicle_id == inputs[b.1].vehicle_id;
+    order.par_sort_unstable_by(|a, b| a.0.cmp(&b.0).then_with(|| inputs[a.1].vehicle_id.cmp(&inputs[b.1].vehicle_id)).then(a.1.cmp(&b.1)));
+    // Each vehicle with its key and its parts' indices and own fits.
     type Members = Vec<(usize, Option<WearFit>)>;
-    let vehicles: Vec<(&str, Members)> = by_vehicle
-        .into_iter()
-        .map(|(vehicle_id, indices)| (vehicle_id, indices.into_iter().map(|i| (i, fits[i].take())).collect()))
-        .collect();
-    let computed: Vec<Vec<(usize, PartResult)>> = vehicles
+    let vehicles: Vec<(u64, Members)> =
+        order.chunk_by(same_vehicle).map(|parts| (parts[0].0, parts.iter().map(|&(_, i)| (i, fits[i].take())).collect())).collect();
+    let computed: Vec<(Vec<usize>, Vec<PartForecast>)> = vehicles
         .into_par_iter()
-        .map(|(vehicle_id, members)| {
+        .map(|(key, members)| {
+            let vehicle_id = inputs[members[0].0].vehicle_id.as_str();
             // One random stream per vehicle, as in the service.
             let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
             let parts: Vec<PartData<'_>> = members
@@ -130,19 +141,23 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
                     current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
                 })
                 .collect();
-            let class = &inputs[members[0].0].group.vehicle_class;
-            let prior_of = |axle_index: u32, component: Component| {
-                priors.get(&GroupKey { vehicle_class: class.clone(), axle_index, component })
-            };
+            let class = inputs[members[0].0].group.vehicle_class.as_str();
+            let prior_of = |axle_index: u32, component: Component| prior_by_group.get(&(class, axle_index, component)).copied();
             let indices: Vec<usize> = members.iter().map(|m| m.0).collect();
             let own_fits = members.into_iter().map(|m| m.1).collect();
-            let results = forecast_vehicle_fitted(vehicle_key(&[vehicle_id]), &parts, own_fits, prior_of, today_day, &vehicle_settings);
-            indices.into_iter().zip(results).map(|(i, r)| (i, PartResult { own_fit: r.own_fit, outlook: r.outlook })).collect()
+            (indices, forecast_vehicle_fitted(key, &parts, own_fits, prior_of, today_day, &vehicle_settings))
         })
         .collect();
-    let mut out: Vec<Option<PartResult>> = vec![None; inputs.len()];
-    for (i, r) in computed.into_iter().flatten() {
-        out[i] = Some(r);
+    let mut out: Vec<Option<PartResult>> = std::iter::repeat_with(|| None).take(inputs.len()).collect();
+    for (indices, forecasts) in computed {
+        for (i, r) in indices.into_iter().zip(forecasts) {
+            out[i] = Some(PartResult { own_fit: r.own_fit, outlook: r.outlook });
+        }
     }
-    out.into_iter().flatten().collect()
+    // Every slot is filled (each part belongs to one vehicle). `filter_map` collects in place
+    // (an `Option<PartResult>` is as large as a `PartResult`); `flatten` would copy the lot
+    // into a second vector of fresh pages.
+    #[allow(clippy::filter_map_identity)]
+    let results: Vec<PartResult> = out.into_iter().filter_map(|r| r).collect();
+    results
 }

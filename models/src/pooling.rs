@@ -401,26 +401,47 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
     if step.is_nan() || step <= 0.0 || step > 0.25 * own_sd / own_mean.max(m) {
         return None;
     }
-    // k on the grid by repeated multiplication (one exp for the whole grid), log densities on
-    // the stack, then weights relative to the largest.
+    // Only grid points within e⁻⁶⁰ of the largest weight (which is 1) can move the sums, whose
+    // last bit is worth 2⁻⁵² of at least 1. The log density at the grid points nearest the two
+    // centres bounds the largest from below; since each of its two terms is ≤ 0, a point whose
+    // prior term or likelihood term alone falls below that bound − 60 is skipped without being
+    // evaluated. Where the own estimate is much sharper than the prior, that is most of the grid.
     let ratio = step.exp();
-    let mut log_density = [0.0; LOG_RATE_GRID_POINTS + 1];
-    let mut k = low.exp();
-    let mut top = f64::NEG_INFINITY;
-    for (j, ld) in log_density.iter_mut().enumerate() {
-        let u = low + step * j as f64;
-        *ld = -(u - log_mean).powi(2) / (2.0 * log_var) - (own_mean - k).powi(2) / (2.0 * own_variance);
-        top = top.max(*ld);
-        k *= ratio;
-    }
+    let (prior_scale, own_scale) = (0.5 / log_var, 0.5 / own_variance);
+    let last = LOG_RATE_GRID_POINTS as f64;
+    let index_of = |u: f64| ((u - low) / step).clamp(0.0, last);
+    let k_at = |j: usize| low.exp() * ratio.powi(j as i32);
+    let log_density = |j: usize, k: f64| -(low + step * j as f64 - log_mean).powi(2) * prior_scale - (own_mean - k).powi(2) * own_scale;
+    let density_near = |u: f64| {
+        let j = index_of(u).round() as usize;
+        log_density(j, k_at(j))
+    };
+    let bound = if own_mean > 0.0 { density_near(log_mean).max(density_near(own_mean.ln())) } else { density_near(log_mean) };
+    let gap = 61.0 - bound.min(0.0);
+    let prior_reach = (gap / prior_scale).sqrt();
+    let own_reach = (gap / own_scale).sqrt();
+    let first = index_of((log_mean - prior_reach).max((own_mean - own_reach).max(f64::MIN_POSITIVE).ln())).floor() as usize;
+    let end = index_of((log_mean + prior_reach).min((own_mean + own_reach).max(f64::MIN_POSITIVE).ln())).ceil() as usize;
+    let (first, end) = if bound.is_finite() && first <= end { (first, end) } else { (0, LOG_RATE_GRID_POINTS) };
+    // Two passes over those points, k by repeated multiplication from the first: the largest
+    // log density, then the weights (recomputing a log density is cheaper than storing it).
+    let points = || {
+        let mut k = k_at(first);
+        (first..=end).map(move |j| {
+            let point = (log_density(j, k), k);
+            k *= ratio;
+            point
+        })
+    };
+    let top = points().fold(f64::NEG_INFINITY, |top, (ld, _)| top.max(ld));
     let (mut w0, mut w1, mut w2) = (0.0, 0.0, 0.0);
-    let mut k = low.exp();
-    for ld in &log_density {
-        let w = (ld - top).exp();
-        w0 += w;
-        w1 += w * k;
-        w2 += w * k * k;
-        k *= ratio;
+    for (ld, k) in points() {
+        if ld - top > -60.0 {
+            let w = (ld - top).exp();
+            w0 += w;
+            w1 += w * k;
+            w2 += w * k * k;
+        }
     }
     let mean = w1 / w0;
     let variance = (w2 / w0 - mean * mean).max(0.0);

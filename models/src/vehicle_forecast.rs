@@ -4,7 +4,8 @@
 //! one vehicle gets the same answer from either.
 
 use crate::domain::Component;
-use crate::forecast::{forecast_part, PartOutlook};
+use crate::energy_rate::{energy_window, EnergyRate};
+use crate::forecast::{forecast_part_with_energy, recent_energy, PartOutlook};
 use crate::pooling::{RatePrior, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::wear_fit::{fit_part_any_sign, WearFit};
@@ -59,6 +60,8 @@ pub fn forecast_vehicle_fitted<'p>(
     let mut out: Vec<Option<PartForecast>> = vec![None; parts.len()];
     // (axle, posterior mean, posterior variance, prior) of each forecast pad.
     let mut pads: Vec<(u32, f64, f64, RatePrior)> = Vec::new();
+    // Each distinct energy window and its estimate.
+    let mut energies: Vec<(&[f64], Option<EnergyRate>)> = Vec::new();
     let order = parts
         .iter()
         .enumerate()
@@ -75,11 +78,21 @@ pub fn forecast_vehicle_fitted<'p>(
             },
         });
         let own_fit = own_fits[index].take();
-        let outlook = forecast_part(
+        // Pad and rotor of one axle brake on the same energy: estimate it once per window.
+        let window = energy_window(part.daily_energy_mj, settings.energy_window_days);
+        let energy = match energies.iter().find(|(w, _)| *w == window) {
+            Some((_, energy)) => *energy,
+            None => {
+                let energy = recent_energy(part.daily_energy_mj, settings);
+                energies.push((window, energy));
+                energy
+            }
+        };
+        let outlook = forecast_part_with_energy(
             part.history,
             own_fit.as_ref(),
             prior.as_ref(),
-            part.daily_energy_mj,
+            energy,
             today_day,
             part.current_cumulative_energy_mj,
             settings,
@@ -94,5 +107,8 @@ pub fn forecast_vehicle_fitted<'p>(
         }
         out[index] = Some(PartForecast { own_fit, outlook });
     }
-    out.into_iter().flatten().collect()
+    // Every slot is filled; `filter_map` collects in place, `flatten` would copy.
+    #[allow(clippy::filter_map_identity)]
+    let forecasts: Vec<PartForecast> = out.into_iter().filter_map(|f| f).collect();
+    forecasts
 }

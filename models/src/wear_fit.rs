@@ -14,7 +14,10 @@
 //! ```
 //! The vehicle's cycles are pooled in one least-squares fit with a per-cycle start (the `a_c`
 //! columns), solved by linfa-linear ([`crate::regression`]); coefficients, covariance, residual
-//! standard deviation and degrees of freedom come with it. A cycle of unknown start with a
+//! standard deviation and degrees of freedom come with it. Without the hot regressor the design
+//! is one energy column and intercept columns that never overlap, and the same fit is solved
+//! in closed form on the stack ([`crate::line_fit`], checked against linfa and NIST StRD);
+//! linfa remains the general path and the reference ([`fit_part_any_sign_by_qr`]). A cycle of unknown start with a
 //! single inspection only fixes its own intercept and is left out of the fit.
 //!
 //! The reported rate `rate_mm_per_mj` is the energy coefficient `k`, or with the hot regressor
@@ -25,6 +28,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::ModelError;
 use crate::settings::ForecastSettings;
+use crate::line_fit::{fit_line, WeightedPoint};
 use crate::regression::fit_linear;
 use crate::wear_history::{PartHistory, WearCycle};
 
@@ -150,6 +154,92 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
 /// with the prior, which a refusal would throw away (and bias the group mean upward).
 pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
     let cycles: Vec<WearCycle> = history.cycles().into_iter().filter(usable).collect();
+    if !settings.hot_regressor {
+        if let Some(fit) = closed_form_fit(history, &cycles, settings) {
+            return Ok(fit);
+        }
+    }
+    least_squares_fit(history, &cycles, settings)
+}
+
+/// [`fit_part_any_sign`] always through the general least-squares fit
+/// ([`crate::regression::fit_linear`], linfa), never the closed form: the reference the closed
+/// form is checked against.
+pub fn fit_part_any_sign_by_qr(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
+    let cycles: Vec<WearCycle> = history.cycles().into_iter().filter(usable).collect();
+    least_squares_fit(history, &cycles, settings)
+}
+
+/// Day of the latest inspection in `cycles` (−∞ without one).
+fn latest_inspection_day(cycles: &[WearCycle]) -> f64 {
+    cycles.iter().flat_map(|c| c.points.iter().map(|p| p.day)).fold(f64::NEG_INFINITY, f64::max)
+}
+
+/// The fit without the hot-energy regressor by [`crate::line_fit`] (module docs): the same
+/// design, columns and weights as [`least_squares_fit`], solved in closed form on the stack.
+/// `None` where the closed form cannot vouch for the answer (the general fit then decides).
+fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &ForecastSettings) -> Option<WearFit> {
+    let unknown = cycles.iter().filter(|c| c.start.is_none()).count();
+    let bedding = settings.bedding_intercept && cycles.iter().any(|c| c.start.is_some());
+    let latest_day = latest_inspection_day(cycles);
+    // (cycle index, point) in design row order; an unknown-start cycle's intercept is group
+    // `k` (its rank among those cycles), the shared bedding intercept the group after them.
+    let points = cycles.iter().enumerate().flat_map(move |(ci, cycle)| {
+        let origin = cycle.origin_energy_mj().map_or(0.0, |o| o.0);
+        let (reference_mm, group) = match cycle.start {
+            Some(s) => (s.new_thickness_mm, bedding.then_some(unknown)),
+            None => (history.new_thickness_mm, Some(cycles[..ci].iter().filter(|c| c.start.is_none()).count())),
+        };
+        cycle.points.iter().map(move |p| {
+            let point = WeightedPoint {
+                x: p.energy_mj - origin,
+                y: reference_mm - p.thickness_mm,
+                weight: recency_weight(latest_day - p.day, settings.fit_half_life_days),
+                group,
+            };
+            (ci, point)
+        })
+    });
+    let line = fit_line(points.clone().map(|(_, p)| p))?;
+    let p = line.coefficients();
+    let mut lag_products = 0.0;
+    let mut previous: Option<(usize, f64)> = None;
+    for (ci, point) in points {
+        let residual = line.weighted_residual(&point);
+        if let Some((previous_cycle, previous_residual)) = previous {
+            if previous_cycle == ci {
+                lag_products += residual * previous_residual;
+            }
+        }
+        previous = Some((ci, residual));
+    }
+    let s2 = line.residual_sum_of_squares / line.degrees_of_freedom;
+    let covariance: Vec<Vec<f64>> = (0..p).map(|a| (0..p).map(|b| line.xtx_inverse(a, b) * s2).collect()).collect();
+    let mut names = Vec::with_capacity(p);
+    names.push("energy".to_string());
+    names.extend((1..=unknown).map(|k| format!("cycle_{k}_start")));
+    if bedding {
+        names.push("bedding".into());
+    }
+    Some(WearFit {
+        rate_mm_per_mj: line.slope,
+        rate_stderr_mm_per_mj: covariance[0][0].max(0.0).sqrt(),
+        inspections_used: line.observations as u32,
+        degrees_of_freedom: line.degrees_of_freedom,
+        residual_sd_mm: line.residual_sd(),
+        coefficient_names: names,
+        coefficients: (0..p).map(|j| line.coefficient(j)).collect(),
+        covariance,
+        rate_variance_per_residual_variance: line.xtx_inverse(0, 0).max(0.0),
+        hot_fraction: 0.0,
+        cycles_used: cycles.len() as u32,
+        residual_sum_squares_mm2: line.residual_sum_of_squares,
+        residual_lag_product_sum_mm2: lag_products,
+    })
+}
+
+/// The fit through the general least-squares solver ([`crate::regression::fit_linear`]).
+fn least_squares_fit(history: &PartHistory, cycles: &[WearCycle], settings: &ForecastSettings) -> Result<WearFit, ModelError> {
     let hot = settings.hot_regressor;
     let unknown: Vec<usize> = cycles.iter().enumerate().filter(|(_, c)| c.start.is_none()).map(|(i, _)| i).collect();
     let any_known = cycles.iter().any(|c| c.start.is_some());
@@ -169,7 +259,7 @@ pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> 
     let mut y: Vec<f64> = Vec::new();
     let mut energy_total = 0.0;
     let mut hot_total = 0.0;
-    let latest_day = cycles.iter().flat_map(|c| c.points.iter().map(|p| p.day)).fold(f64::NEG_INFINITY, f64::max);
+    let latest_day = latest_inspection_day(cycles);
     // Index of the first row of each cycle, to pair consecutive residuals within a cycle.
     let mut cycle_first_row: Vec<usize> = Vec::new();
     for (ci, cycle) in cycles.iter().enumerate() {

@@ -112,38 +112,16 @@ impl PartHistory {
     /// now. Events with non-finite values are skipped.
     pub fn cycles(&self) -> Vec<WearCycle> {
         let mut cycles = vec![WearCycle { start: None, points: Vec::new() }];
-        for event in &self.events {
-            if !(event.day.is_finite() && event.cumulative_energy_mj.is_finite() && event.cumulative_hot_energy_mj.is_finite()) {
-                continue;
-            }
+        for event in self.events.iter().filter(|e| usable_event(e)) {
             match event.kind {
                 PartEventKind::Replacement { new_thickness_mm } => {
-                    let new_mm = if new_thickness_mm.is_finite() && new_thickness_mm > 0.0 {
-                        new_thickness_mm
-                    } else {
-                        self.new_thickness_mm
-                    };
-                    cycles.push(WearCycle {
-                        start: Some(CycleStart {
-                            day: event.day,
-                            energy_mj: event.cumulative_energy_mj,
-                            hot_energy_mj: event.cumulative_hot_energy_mj,
-                            new_thickness_mm: new_mm,
-                        }),
-                        points: Vec::new(),
-                    });
+                    cycles.push(WearCycle { start: Some(self.cycle_start(event, new_thickness_mm)), points: Vec::new() });
                 }
-                PartEventKind::Inspection { thickness_mm } if thickness_mm.is_finite() => {
-                    if let Some(last) = cycles.last_mut() {
-                        last.points.push(CyclePoint {
-                            day: event.day,
-                            energy_mj: event.cumulative_energy_mj,
-                            hot_energy_mj: event.cumulative_hot_energy_mj,
-                            thickness_mm,
-                        });
+                PartEventKind::Inspection { thickness_mm } => {
+                    if let (Some(last), Some(point)) = (cycles.last_mut(), cycle_point(event, thickness_mm)) {
+                        last.points.push(point);
                     }
                 }
-                PartEventKind::Inspection { .. } => {}
             }
         }
         if cycles.len() > 1 && cycles[0].points.is_empty() {
@@ -151,6 +129,57 @@ impl PartHistory {
         }
         cycles
     }
+
+    /// The last of [`Self::cycles`] (the part fitted now) without building the others.
+    pub fn current_cycle(&self) -> WearCycle {
+        let last_replacement = self
+            .events
+            .iter()
+            .rposition(|e| usable_event(e) && matches!(e.kind, PartEventKind::Replacement { .. }));
+        let (start, after) = match last_replacement {
+            Some(i) => match self.events[i].kind {
+                PartEventKind::Replacement { new_thickness_mm } => (Some(self.cycle_start(&self.events[i], new_thickness_mm)), &self.events[i + 1..]),
+                PartEventKind::Inspection { .. } => (None, &self.events[..]),
+            },
+            None => (None, &self.events[..]),
+        };
+        let points = after
+            .iter()
+            .filter(|e| usable_event(e))
+            .filter_map(|e| match e.kind {
+                PartEventKind::Inspection { thickness_mm } => cycle_point(e, thickness_mm),
+                PartEventKind::Replacement { .. } => None,
+            })
+            .collect();
+        WearCycle { start, points }
+    }
+
+    /// The start of the cycle a replacement begins: the thickness fitted, or the nominal new
+    /// thickness when the record gives none that is usable.
+    fn cycle_start(&self, event: &PartEvent, new_thickness_mm: f64) -> CycleStart {
+        let new_mm = if new_thickness_mm.is_finite() && new_thickness_mm > 0.0 { new_thickness_mm } else { self.new_thickness_mm };
+        CycleStart {
+            day: event.day,
+            energy_mj: event.cumulative_energy_mj,
+            hot_energy_mj: event.cumulative_hot_energy_mj,
+            new_thickness_mm: new_mm,
+        }
+    }
+}
+
+/// Whether an event's day and energies are finite (the others are skipped).
+fn usable_event(event: &PartEvent) -> bool {
+    event.day.is_finite() && event.cumulative_energy_mj.is_finite() && event.cumulative_hot_energy_mj.is_finite()
+}
+
+/// An inspection as a cycle point; `None` when its thickness is not finite.
+fn cycle_point(event: &PartEvent, thickness_mm: f64) -> Option<CyclePoint> {
+    thickness_mm.is_finite().then_some(CyclePoint {
+        day: event.day,
+        energy_mj: event.cumulative_energy_mj,
+        hot_energy_mj: event.cumulative_hot_energy_mj,
+        thickness_mm,
+    })
 }
 
 /// A dated event without energies, for [`history_from_daily_energy`].

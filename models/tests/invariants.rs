@@ -108,4 +108,27 @@ proptest! {
         prop_assert!(a.at(0.5) <= b.at(0.5), "{} > {}", a.at(0.5), b.at(0.5));
         prop_assert!(after.current_thickness_mm < before.current_thickness_mm);
     }
+
+    /// The part fitted now is the last wear cycle, whatever the mix of replacements,
+    /// inspections and unusable (non-finite) values; `current_cycle` builds it alone.
+    #[test]
+    fn the_current_cycle_is_the_last_cycle(
+        events in proptest::collection::vec((0u8..4, 0.0f64..100.0, 0.0f64..5000.0, 1.0f64..22.0), 0..12),
+    ) {
+        let mut day = 19_000.0;
+        let events = events
+            .into_iter()
+            .map(|(kind, step, energy, thickness)| {
+                day += step;
+                match kind {
+                    0 => replacement(day, energy),
+                    1 => inspection(day, energy, f64::NAN),
+                    2 => inspection(f64::INFINITY, energy, thickness),
+                    _ => inspection(day, energy, thickness),
+                }
+            })
+            .collect();
+        let history = pad(events);
+        prop_assert_eq!(Some(history.current_cycle()), history.cycles().last().cloned());
+    }
 }

@@ -10,3 +10,4 @@ mod nist_least_squares;
 mod pooling_behaviour;
 mod pooling_reference;
 mod simulator_checks;
+mod wear_fit_paths;
