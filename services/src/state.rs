@@ -86,6 +86,22 @@ impl AppState {
         self
     }
 
+    /// Runs a short read of a few keys: inline when the engine's reads are cheap
+    /// ([`Store::reads_inline`], sled), saving the hand-off to the blocking pool and back that
+    /// costs more than the reads; on the blocking pool otherwise. Only for bounded work (a
+    /// handful of keyed reads), never for scans or computation.
+    pub async fn short_read<T, F>(&self, work: F) -> ServiceResult<T>
+    where
+        T: Send + 'static,
+        F: FnOnce(&dyn Store) -> ServiceResult<T> + Send + 'static,
+    {
+        if self.store.reads_inline() {
+            work(self.store.as_ref())
+        } else {
+            self.blocking(work).await
+        }
+    }
+
     /// Runs blocking store work off the async runtime.
     pub async fn blocking<T, F>(&self, work: F) -> ServiceResult<T>
     where

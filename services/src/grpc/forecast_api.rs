@@ -68,16 +68,21 @@ impl ForecastService for ForecastApi {
         let config = self.state.forecast.clone();
         let now = now_ms();
         let (fleet_id, vehicle_id) = (r.fleet_id.clone(), r.vehicle_id.clone());
-        let (fleet, record, spec) = self
-            .state
-            .blocking(move |store| {
-                if let Some(fresh) = materialised_forecast(store, &fleet_id, &vehicle_id, &config, level, now)? {
-                    return Ok(fresh);
-                }
-                let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
-                Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
-            })
-            .await?;
+        let materialised = {
+            let (fleet_id, vehicle_id, config) = (fleet_id.clone(), vehicle_id.clone(), config.clone());
+            self.state.short_read(move |store| materialised_forecast(store, &fleet_id, &vehicle_id, &config, level, now)).await?
+        };
+        let (fleet, record, spec) = match materialised {
+            Some(fresh) => fresh,
+            None => {
+                self.state
+                    .blocking(move |store| {
+                        let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
+                        Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
+                    })
+                    .await?
+            }
+        };
         let computed_at_ms = record.computed_at_ms;
         if record.parts.iter().all(|p| p.outlook.due.is_none()) {
             // One clause per part, named as the trade names it: "axle 1 pad: ...".

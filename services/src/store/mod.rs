@@ -171,6 +171,13 @@ pub trait Store: Send + Sync + 'static {
         let _ = fleet_id;
         Ok(Some(FleetPriorsLock::default()))
     }
+    /// Whether a few keyed reads are cheap enough to run on an async worker thread: an
+    /// embedded engine answering from its page cache or a local file (microseconds). The
+    /// default, `false`, sends every read to the blocking pool, as an engine that waits on the
+    /// network (PostgreSQL) must.
+    fn reads_inline(&self) -> bool {
+        false
+    }
     /// Number of stale vehicles of one fleet.
     fn count_stale(&self, fleet_id: &str) -> StoreResult<u64>;
     /// Whether one vehicle's forecasts wait to be recomputed (a write since they were

@@ -273,6 +273,11 @@ impl SledStore {
 }
 
 impl Store for SledStore {
+    /// sled answers a keyed read from its page cache, or with one read of a local file.
+    fn reads_inline(&self) -> bool {
+        true
+    }
+
     fn writable(&self) -> StoreResult<()> {
         if let Some(findings) = &self.read_only {
             return Err(StoreError::ReadOnly(format!(
