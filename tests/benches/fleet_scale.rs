@@ -41,6 +41,9 @@ const TRIPS_PER_DAY: usize = 6;
 const INSPECTED_EVERY: usize = 10;
 const CONCURRENT_CALLERS: usize = 64;
 const READ_SECONDS: f64 = 3.0;
+/// The server's settings for the run: no per-token ingest rate limit (the default 20,000
+/// trips/s, bursts of 200,000, refuses the 10,000-vehicle step's one call of 900,000 trips).
+const SERVER_CONFIG: &str = "[limits]\ningest_trips_per_second = 0\n";
 
 fn env_or<T: std::str::FromStr>(name: &str, default: T) -> T {
     std::env::var(name).ok().and_then(|v| v.parse().ok()).unwrap_or(default)
@@ -333,7 +336,10 @@ fn main() {
     drop(baseline_set);
 
     let data = tempfile::tempdir().expect("data dir");
-    let server = ServerProcess::spawn(&binary, data.path());
+    let config_dir = tempfile::tempdir().expect("config dir");
+    let config = config_dir.path().join("brakeledger.toml");
+    std::fs::write(&config, SERVER_CONFIG).expect("write config");
+    let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
     let pid = server.child.id();
     let (mut loaded, mut protobuf_bytes, mut written, mut ingest_s, mut trips_sent) = (0usize, 0u64, 0u64, 0f64, 0u64);
     let mut results: Vec<Step> = Vec::new();
