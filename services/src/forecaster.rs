@@ -4,12 +4,17 @@
 //!
 //! # Materialisation
 //! Every accepted write marks its vehicle stale (in the same transaction). [`run`] wakes on
-//! writes, waits `coalesce_ms` so that a burst becomes one pass, then recomputes stale vehicles
-//! in batches off the async runtime and stores their forecasts together with the due index, so
-//! that ListDue, WatchDue and PlanVisits read ranges, never refit the fleet. After a pass it
-//! re-estimates the fleet's priors from the stored own-data fits; when a group's prior moved,
-//! the vehicles of that class are marked stale once more. Own fits do not depend on priors, so
-//! this settles after one extra pass. Stale marks are durable: after a crash the work resumes.
+//! writes and waits until they pause for `coalesce_ms` (at most `coalesce_max_ms`; see
+//! [`settle`]), so that a burst or a stream of trips becomes one round after it ends instead
+//! of a rewrite of the same forecasts (about 5 KB each, plus their due-index entries) for
+//! every chunk that reaches the vehicle. A round recomputes stale vehicles in batches off the
+//! async runtime until none is left, and stores their forecasts together with the due index,
+//! so that ListDue, WatchDue and PlanVisits read ranges, never refit the fleet. At the end of
+//! a round (and at least every `coalesce_max_ms` in a round that does not end) it re-estimates
+//! the priors of the fleets it touched from the stored own-data fits; when a group's prior
+//! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
+//! priors, so this settles after one extra round. Stale marks are durable: after a crash the
+//! work resumes.
 
 use std::collections::{BTreeSet, HashMap};
 use std::sync::Arc;
@@ -232,14 +237,30 @@ fn prior_moved(old: Option<&GroupPrior>, new: &GroupPrior) -> bool {
     }
 }
 
-/// One pass over up to `batch_vehicles` stale vehicles, then prior re-estimation for the fleets
-/// touched. Returns the changes and whether stale vehicles remain. The batch's data is read
-/// first, its forecasts are computed on rayon's threads (pure computation, one vehicle each),
-/// then stored in mark order.
-pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
-    let marks = store.claim_stale(config.batch_vehicles.max(1))?;
-    if marks.is_empty() {
-        return Ok((Vec::new(), false));
+/// What one [`refresh_pass`] did.
+#[derive(Debug, Default)]
+pub struct PassOutcome {
+    /// The forecasts it stored, each with the one it replaced.
+    pub changes: Vec<ForecastChange>,
+    /// Whether stale vehicles remain.
+    pub remaining: bool,
+    /// Whether it re-estimated the priors of the fleets waiting for it.
+    pub priors_estimated: bool,
+}
+
+/// One pass over up to `batch_vehicles` stale vehicles. The batch's data is read first, its
+/// forecasts are computed on rayon's threads (pure computation, one vehicle each), then stored
+/// in mark order. The pass's fleets join `pending_priors`; their priors are re-estimated when
+/// the pass ends a round (it found fewer stale vehicles than a batch) or when `priors_due`
+/// (the caller's clock: a round that never ends still moves its priors). Before, every pass
+/// re-estimated: in a round over thousands of vehicles each batch's new own fits moved the
+/// prior and marked the whole class stale again, so the first batches were recomputed (and
+/// rewritten) once per batch that followed them.
+pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pending_priors: &mut BTreeSet<String>, priors_due: bool) -> ServiceResult<PassOutcome> {
+    let batch = config.batch_vehicles.max(1);
+    let marks = store.claim_stale(batch)?;
+    if marks.is_empty() && pending_priors.is_empty() {
+        return Ok(PassOutcome::default());
     }
     let mut priors_by_fleet: HashMap<String, FleetPriors> = HashMap::new();
     let mut loaded = Vec::with_capacity(marks.len());
@@ -268,30 +289,13 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         store.put_forecasts(&record)?;
         changes.push(ForecastChange { before, after: Arc::new(record) });
     }
-    for (fleet_id, old) in &priors_by_fleet {
-        // One replica at a time re-estimates a fleet's priors; the others skip it this pass.
-        let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { continue };
-        let forecasts = store.fleet_forecasts(fleet_id)?;
-        let new = pool_priors(&forecasts, &model_settings(config, 0.8));
-        // Classes with a group whose prior moved, appeared or disappeared.
-        let changed: BTreeSet<&str> = new
-            .groups
-            .iter()
-            .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
-            .chain(old.groups.iter().filter(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none()))
-            .map(|g| g.vehicle_class.as_str())
-            .collect();
-        if changed.is_empty() {
-            continue;
+    pending_priors.extend(priors_by_fleet.into_keys());
+    let priors_estimated = marks.len() < batch || priors_due;
+    if priors_estimated {
+        for fleet_id in pending_priors.clone() {
+            reestimate_priors(store, config, &fleet_id)?;
+            pending_priors.remove(&fleet_id);
         }
-        store.put_priors(fleet_id, &new)?;
-        let again: Vec<String> = forecasts
-            .iter()
-            .filter(|f| changed.contains(f.vehicle_class.as_str()))
-            .map(|f| f.vehicle_id.clone())
-            .collect();
-        tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
-        store.mark_stale(fleet_id, &again)?;
     }
     // Cleared last, so that a vehicle re-marked above stays stale and the pending count never
     // reads zero while work remains.
@@ -299,13 +303,67 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         store.clear_stale(mark)?;
     }
     let remaining = !store.stale_vehicles(1)?.is_empty();
-    Ok((changes, remaining))
+    Ok(PassOutcome { changes, remaining, priors_estimated })
+}
+
+/// Re-estimates a fleet's priors from its stored own fits; when a group's prior moved, marks
+/// the vehicles of that class stale once more.
+fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str) -> ServiceResult<()> {
+    // One replica at a time re-estimates a fleet's priors; the others skip it.
+    let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { return Ok(()) };
+    let old = store.get_priors(fleet_id)?.unwrap_or_default();
+    let forecasts = store.fleet_forecasts(fleet_id)?;
+    let new = pool_priors(&forecasts, &model_settings(config, 0.8));
+    // Classes with a group whose prior moved, appeared or disappeared.
+    let changed: BTreeSet<&str> = new
+        .groups
+        .iter()
+        .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
+        .chain(old.groups.iter().filter(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none()))
+        .map(|g| g.vehicle_class.as_str())
+        .collect();
+    if changed.is_empty() {
+        return Ok(());
+    }
+    store.put_priors(fleet_id, &new)?;
+    let again: Vec<String> = forecasts
+        .iter()
+        .filter(|f| changed.contains(f.vehicle_class.as_str()))
+        .map(|f| f.vehicle_id.clone())
+        .collect();
+    tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
+    store.mark_stale(fleet_id, &again)?;
+    Ok(())
+}
+
+/// Waits until no write has woken the worker for `quiet`, `longest` after the wait began at
+/// the latest (writes that never pause still get their forecasts refreshed), or until `stop`
+/// changes. A round of passes starts after it; the round runs to its end without waiting again.
+async fn settle(wake: &tokio::sync::Notify, stop: &mut watch::Receiver<bool>, quiet: Duration, longest: Duration) {
+    let deadline = tokio::time::Instant::now() + longest;
+    loop {
+        let until = (tokio::time::Instant::now() + quiet).min(deadline);
+        tokio::select! {
+            _ = wake.notified() => {
+                if tokio::time::Instant::now() >= deadline {
+                    return;
+                }
+            }
+            _ = tokio::time::sleep_until(until) => return,
+            _ = stop.changed() => return,
+        }
+    }
 }
 
 /// Keeps forecasts materialised until `stop` turns true (see the module docs).
 pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
-    let coalesce = Duration::from_millis(state.forecast.coalesce_ms);
+    let quiet = Duration::from_millis(state.forecast.coalesce_ms);
+    let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
     let mut more_work = true; // stale marks may survive a restart
+    // Fleets whose priors wait for the end of the round (see `refresh_pass`), and when priors
+    // were last re-estimated.
+    let mut pending_priors = BTreeSet::new();
+    let mut priors_estimated_at = std::time::Instant::now();
     loop {
         if !more_work {
             tokio::select! {
@@ -313,11 +371,17 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
                 _ = state.wake_forecaster.notified() => {}
                 _ = tokio::time::sleep(Duration::from_secs(5)) => {}
             }
+            if *stop.borrow() {
+                break;
+            }
+            settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+        } else {
+            // Between the passes of a round, as before: a breather for the writes.
+            tokio::time::sleep(quiet).await;
         }
         if *stop.borrow() {
             break;
         }
-        tokio::time::sleep(coalesce).await;
         // Forecasts are stored: while writes are refused (a full disk, a read-only store) a
         // pass could only fail; the next wake-up or timer tries again.
         if state.blocking(|store| Ok(store.writable())).await.map_or(true, |w| w.is_err()) {
@@ -327,14 +391,27 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
         let started = std::time::Instant::now();
-        let pass = tokio::task::spawn_blocking(move || refresh_pass(store.as_ref(), &config, crate::convert::now_ms())).await;
+        let priors_due = priors_estimated_at.elapsed() >= longest;
+        let mut pending = std::mem::take(&mut pending_priors);
+        let pass = tokio::task::spawn_blocking(move || {
+            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due);
+            (outcome, pending)
+        })
+        .await;
         crate::metrics::forecast_refresh(started.elapsed().as_secs_f64());
+        let pass = pass.map(|(outcome, pending)| {
+            pending_priors = pending;
+            outcome
+        });
         match pass {
-            Ok(Ok((changes, remaining))) => {
-                for change in changes {
+            Ok(Ok(outcome)) => {
+                for change in outcome.changes {
                     let _ = state.changes.send(change);
                 }
-                more_work = remaining;
+                if outcome.priors_estimated {
+                    priors_estimated_at = std::time::Instant::now();
+                }
+                more_work = outcome.remaining;
             }
             Ok(Err(error)) => {
                 tracing::error!(%error, "forecast refresh failed; retrying later");
@@ -355,4 +432,63 @@ pub fn vehicle_forecast_now(store: &dyn Store, fleet_id: &str, vehicle_id: &str,
     let priors = store.get_priors(fleet_id)?.unwrap_or_default();
     let parts = compute_vehicle(&data, &priors, now_ms, &model_settings(config, band_level));
     Ok((data, parts))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::time::Instant;
+
+    /// Notifies `wake` every 10 ms for `for_how_long`.
+    fn writes(wake: Arc<tokio::sync::Notify>, for_how_long: Duration) -> tokio::task::JoinHandle<()> {
+        tokio::spawn(async move {
+            let started = Instant::now();
+            while started.elapsed() < for_how_long {
+                wake.notify_one();
+                tokio::time::sleep(Duration::from_millis(10)).await;
+            }
+        })
+    }
+
+    #[tokio::test]
+    async fn a_refresh_waits_for_writes_to_pause() {
+        let wake = Arc::new(tokio::sync::Notify::new());
+        let (_keep, mut stop) = watch::channel(false);
+        let writer = writes(Arc::clone(&wake), Duration::from_millis(400));
+        let started = Instant::now();
+        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(20)).await;
+        // Writes came every 10 ms for 400 ms: the wait ends after they stop, not at the first
+        // quiet-time interval, and long before the cap.
+        assert!(started.elapsed() >= Duration::from_millis(400), "{:?}", started.elapsed());
+        assert!(started.elapsed() < Duration::from_secs(20), "{:?}", started.elapsed());
+        writer.await.unwrap();
+    }
+
+    #[tokio::test]
+    async fn writes_that_never_pause_still_get_a_refresh_at_the_cap() {
+        let wake = Arc::new(tokio::sync::Notify::new());
+        let (_keep, mut stop) = watch::channel(false);
+        let writer = writes(Arc::clone(&wake), Duration::from_secs(10));
+        let started = Instant::now();
+        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_millis(500)).await;
+        assert!(started.elapsed() >= Duration::from_millis(500), "{:?}", started.elapsed());
+        assert!(started.elapsed() < Duration::from_secs(10), "the cap ends the wait while writes go on: {:?}", started.elapsed());
+        writer.abort();
+    }
+
+    #[tokio::test]
+    async fn a_stop_ends_the_wait() {
+        let wake = Arc::new(tokio::sync::Notify::new());
+        let (stopping, mut stop) = watch::channel(false);
+        let writer = writes(Arc::clone(&wake), Duration::from_secs(10));
+        let started = Instant::now();
+        tokio::spawn(async move {
+            tokio::time::sleep(Duration::from_millis(100)).await;
+            stopping.send(true).unwrap();
+            tokio::time::sleep(Duration::from_secs(30)).await;
+        });
+        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(60)).await;
+        assert!(started.elapsed() < Duration::from_secs(10), "{:?}", started.elapsed());
+        writer.abort();
+    }
 }
