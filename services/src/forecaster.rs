@@ -8,13 +8,14 @@
 //! [`settle`]), so that a burst or a stream of trips becomes one round after it ends instead
 //! of a rewrite of the same forecasts (about 5 KB each, plus their due-index entries) for
 //! every chunk that reaches the vehicle. A round recomputes stale vehicles in batches off the
-//! async runtime until none is left, and stores their forecasts together with the due index,
-//! so that ListDue, WatchDue and PlanVisits read ranges, never refit the fleet. At the end of
-//! a round (and at least every `coalesce_max_ms` in a round that does not end) it re-estimates
-//! the priors of the fleets it touched from the stored own-data fits; when a group's prior
-//! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
-//! priors, so this settles after one extra round. Stale marks are durable: after a crash the
-//! work resumes.
+//! async runtime until none is left (when writes arrived during a pass it waits for them to
+//! pause again, within the round's `coalesce_max_ms`), and stores their forecasts together
+//! with the due index, so that ListDue, WatchDue and PlanVisits read ranges, never refit the
+//! fleet. When a round ends with writes paused (and at least every `coalesce_max_ms`
+//! otherwise) it re-estimates the priors of the fleets it touched from the stored own-data
+//! fits; when a group's prior moved, the vehicles of that class are marked stale once more.
+//! Own fits do not depend on priors, so this settles after one extra round. Stale marks are
+//! durable: after a crash the work resumes.
 
 use std::collections::{BTreeSet, HashMap};
 use std::sync::Arc;
@@ -251,12 +252,19 @@ pub struct PassOutcome {
 /// One pass over up to `batch_vehicles` stale vehicles. The batch's data is read first, its
 /// forecasts are computed on rayon's threads (pure computation, one vehicle each), then stored
 /// in mark order. The pass's fleets join `pending_priors`; their priors are re-estimated when
-/// the pass ends a round (it found fewer stale vehicles than a batch) or when `priors_due`
-/// (the caller's clock: a round that never ends still moves its priors). Before, every pass
-/// re-estimated: in a round over thousands of vehicles each batch's new own fits moved the
-/// prior and marked the whole class stale again, so the first batches were recomputed (and
-/// rewritten) once per batch that followed them.
-pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pending_priors: &mut BTreeSet<String>, priors_due: bool) -> ServiceResult<PassOutcome> {
+/// the pass ends a round (it found fewer stale vehicles than a batch) after writes paused
+/// (`writes_paused`), or when `priors_due` (the caller's clock: under writes that never pause
+/// priors still move). Before, every pass re-estimated: in a round over thousands of vehicles,
+/// or while trips streamed in, each batch's new own fits moved the prior and marked the whole
+/// class stale again, so the fleet was recomputed (and rewritten) once per batch.
+pub fn refresh_pass(
+    store: &dyn Store,
+    config: &ForecastConfig,
+    now_ms: i64,
+    pending_priors: &mut BTreeSet<String>,
+    priors_due: bool,
+    writes_paused: bool,
+) -> ServiceResult<PassOutcome> {
     let batch = config.batch_vehicles.max(1);
     let marks = store.claim_stale(batch)?;
     if marks.is_empty() && pending_priors.is_empty() {
@@ -290,7 +298,7 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pen
         changes.push(ForecastChange { before, after: Arc::new(record) });
     }
     pending_priors.extend(priors_by_fleet.into_keys());
-    let priors_estimated = marks.len() < batch || priors_due;
+    let priors_estimated = (marks.len() < batch && writes_paused) || priors_due;
     if priors_estimated {
         for fleet_id in pending_priors.clone() {
             reestimate_priors(store, config, &fleet_id)?;
@@ -338,28 +346,32 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str)
 
 /// Waits until no write has woken the worker for `quiet`, `longest` after the wait began at
 /// the latest (writes that never pause still get their forecasts refreshed), or until `stop`
-/// changes. A round of passes starts after it; the round runs to its end without waiting again.
-async fn settle(wake: &tokio::sync::Notify, stop: &mut watch::Receiver<bool>, quiet: Duration, longest: Duration) {
+/// changes. True when the writes paused (or the worker stops); false when `longest` ran out.
+async fn settle(wake: &tokio::sync::Notify, stop: &mut watch::Receiver<bool>, quiet: Duration, longest: Duration) -> bool {
     let deadline = tokio::time::Instant::now() + longest;
     loop {
         let until = (tokio::time::Instant::now() + quiet).min(deadline);
         tokio::select! {
             _ = wake.notified() => {
                 if tokio::time::Instant::now() >= deadline {
-                    return;
+                    return false;
                 }
             }
-            _ = tokio::time::sleep_until(until) => return,
-            _ = stop.changed() => return,
+            _ = tokio::time::sleep_until(until) => return until < deadline || quiet.is_zero(),
+            _ = stop.changed() => return true,
         }
     }
 }
 
 /// Keeps forecasts materialised until `stop` turns true (see the module docs).
 pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
+    use futures::FutureExt;
     let quiet = Duration::from_millis(state.forecast.coalesce_ms);
     let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
     let mut more_work = true; // stale marks may survive a restart
+    // When the current round began waiting, and whether writes had paused before its last pass.
+    let mut round_started = std::time::Instant::now();
+    let mut writes_paused = true;
     // Fleets whose priors wait for the end of the round (see `refresh_pass`), and when priors
     // were last re-estimated.
     let mut pending_priors = BTreeSet::new();
@@ -374,10 +386,16 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
             if *stop.borrow() {
                 break;
             }
-            settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+            round_started = std::time::Instant::now();
+            writes_paused = settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+        } else if state.wake_forecaster.notified().now_or_never().is_some() {
+            // Writes arrived during the last pass: they may be a stream still going on, whose
+            // vehicles would be recomputed again and again. Wait for them to pause too, within
+            // what is left of the round's `longest`; past it, passes follow each other.
+            let left = longest.saturating_sub(round_started.elapsed());
+            writes_paused = !left.is_zero() && settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await;
         } else {
-            // Between the passes of a round, as before: a breather for the writes.
-            tokio::time::sleep(quiet).await;
+            writes_paused = true;
         }
         if *stop.borrow() {
             break;
@@ -394,7 +412,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let priors_due = priors_estimated_at.elapsed() >= longest;
         let mut pending = std::mem::take(&mut pending_priors);
         let pass = tokio::task::spawn_blocking(move || {
-            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due);
+            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due, writes_paused);
             (outcome, pending)
         })
         .await;
@@ -456,7 +474,7 @@ mod tests {
         let (_keep, mut stop) = watch::channel(false);
         let writer = writes(Arc::clone(&wake), Duration::from_millis(400));
         let started = Instant::now();
-        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(20)).await;
+        assert!(settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(20)).await, "the writes paused");
         // Writes came every 10 ms for 400 ms: the wait ends after they stop, not at the first
         // quiet-time interval, and long before the cap.
         assert!(started.elapsed() >= Duration::from_millis(400), "{:?}", started.elapsed());
@@ -470,7 +488,7 @@ mod tests {
         let (_keep, mut stop) = watch::channel(false);
         let writer = writes(Arc::clone(&wake), Duration::from_secs(10));
         let started = Instant::now();
-        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_millis(500)).await;
+        assert!(!settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_millis(500)).await, "the cap ran out");
         assert!(started.elapsed() >= Duration::from_millis(500), "{:?}", started.elapsed());
         assert!(started.elapsed() < Duration::from_secs(10), "the cap ends the wait while writes go on: {:?}", started.elapsed());
         writer.abort();

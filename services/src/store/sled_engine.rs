@@ -55,9 +55,11 @@ const SCHEMA_KEY: &[u8] = b"schema_version";
 /// that point only has to drop the old trees.
 const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
 
-/// zstd level of sled's page compression: 3 (zstd's own default) is about as small as sled's
-/// default of 5 on these records and cheaper on the two cores a small deployment has.
-pub const COMPRESSION_LEVEL: i32 = 3;
+/// zstd level of sled's page compression. sled compresses each page it writes with a fresh
+/// zstd context, whose set-up grows with the level: at level 3 the trip store alone ingested
+/// 0.42× as fast as uncompressed in the fleet-scale benchmark; level 1 costs less and
+/// compresses these records almost as well (BENCHMARKS.md, "Fleet scale").
+pub const COMPRESSION_LEVEL: i32 = 1;
 
 /// Whether sled's files in `dir` are compressed, or will be when sled creates them there: what
 /// the `conf` file sled writes beside a database it creates says (`use_compression: false` in
