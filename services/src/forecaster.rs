@@ -369,15 +369,15 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
     let quiet = Duration::from_millis(state.forecast.coalesce_ms);
     let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
     let mut more_work = true; // stale marks may survive a restart
-    // When the current round began waiting, and whether writes had paused before its last pass.
+    // When the current round began waiting.
     let mut round_started = std::time::Instant::now();
-    let mut writes_paused = true;
     // Fleets whose priors wait for the end of the round (see `refresh_pass`), and when priors
     // were last re-estimated.
     let mut pending_priors = BTreeSet::new();
     let mut priors_estimated_at = std::time::Instant::now();
     loop {
-        if !more_work {
+        // Whether writes paused before this pass.
+        let writes_paused = if !more_work {
             tokio::select! {
                 _ = stop.changed() => {}
                 _ = state.wake_forecaster.notified() => {}
@@ -387,16 +387,16 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
                 break;
             }
             round_started = std::time::Instant::now();
-            writes_paused = settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+            settle(&state.wake_forecaster, &mut stop, quiet, longest).await
         } else if state.wake_forecaster.notified().now_or_never().is_some() {
             // Writes arrived during the last pass: they may be a stream still going on, whose
             // vehicles would be recomputed again and again. Wait for them to pause too, within
             // what is left of the round's `longest`; past it, passes follow each other.
             let left = longest.saturating_sub(round_started.elapsed());
-            writes_paused = !left.is_zero() && settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await;
+            !left.is_zero() && settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await
         } else {
-            writes_paused = true;
-        }
+            true
+        };
         if *stop.borrow() {
             break;
         }
