@@ -468,45 +468,50 @@ mod tests {
         })
     }
 
+    /// Waits with [`settle`] (quiet time `quiet`, cap `longest`) while writes come every 10 ms
+    /// for `writing`; stops the worker after `stop_after`, if given. (writes paused, time waited)
+    async fn settle_during_writes(writing: Duration, quiet: Duration, longest: Duration, stop_after: Option<Duration>) -> (bool, Duration) {
+        let wake = Arc::new(tokio::sync::Notify::new());
+        let (stopping, mut stop) = watch::channel(false);
+        let writer = writes(Arc::clone(&wake), writing);
+        // The sender stays alive through the wait: a dropped one would end it at once.
+        let _kept = match stop_after {
+            Some(after) => {
+                tokio::spawn(async move {
+                    tokio::time::sleep(after).await;
+                    let _ = stopping.send(true);
+                    tokio::time::sleep(Duration::from_secs(30)).await;
+                });
+                None
+            }
+            None => Some(stopping),
+        };
+        let started = Instant::now();
+        let paused = settle(&wake, &mut stop, quiet, longest).await;
+        let waited = started.elapsed();
+        writer.abort();
+        (paused, waited)
+    }
+
     #[tokio::test]
     async fn a_refresh_waits_for_writes_to_pause() {
-        let wake = Arc::new(tokio::sync::Notify::new());
-        let (_keep, mut stop) = watch::channel(false);
-        let writer = writes(Arc::clone(&wake), Duration::from_millis(400));
-        let started = Instant::now();
-        assert!(settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(20)).await, "the writes paused");
-        // Writes came every 10 ms for 400 ms: the wait ends after they stop, not at the first
+        // Writes every 10 ms for 400 ms: the wait ends after they stop, not at the first
         // quiet-time interval, and long before the cap.
-        assert!(started.elapsed() >= Duration::from_millis(400), "{:?}", started.elapsed());
-        assert!(started.elapsed() < Duration::from_secs(20), "{:?}", started.elapsed());
-        writer.await.unwrap();
+        let (paused, waited) = settle_during_writes(Duration::from_millis(400), Duration::from_millis(250), Duration::from_secs(20), None).await;
+        assert!(paused, "the writes paused");
+        assert!(waited >= Duration::from_millis(400) && waited < Duration::from_secs(20), "{waited:?}");
     }
 
     #[tokio::test]
     async fn writes_that_never_pause_still_get_a_refresh_at_the_cap() {
-        let wake = Arc::new(tokio::sync::Notify::new());
-        let (_keep, mut stop) = watch::channel(false);
-        let writer = writes(Arc::clone(&wake), Duration::from_secs(10));
-        let started = Instant::now();
-        assert!(!settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_millis(500)).await, "the cap ran out");
-        assert!(started.elapsed() >= Duration::from_millis(500), "{:?}", started.elapsed());
-        assert!(started.elapsed() < Duration::from_secs(10), "the cap ends the wait while writes go on: {:?}", started.elapsed());
-        writer.abort();
+        let (paused, waited) = settle_during_writes(Duration::from_secs(10), Duration::from_millis(100), Duration::from_millis(500), None).await;
+        assert!(!paused, "the cap ran out");
+        assert!(waited >= Duration::from_millis(500) && waited < Duration::from_secs(10), "the cap ends the wait while writes go on: {waited:?}");
     }
 
     #[tokio::test]
     async fn a_stop_ends_the_wait() {
-        let wake = Arc::new(tokio::sync::Notify::new());
-        let (stopping, mut stop) = watch::channel(false);
-        let writer = writes(Arc::clone(&wake), Duration::from_secs(10));
-        let started = Instant::now();
-        tokio::spawn(async move {
-            tokio::time::sleep(Duration::from_millis(100)).await;
-            stopping.send(true).unwrap();
-            tokio::time::sleep(Duration::from_secs(30)).await;
-        });
-        settle(&wake, &mut stop, Duration::from_millis(100), Duration::from_secs(60)).await;
-        assert!(started.elapsed() < Duration::from_secs(10), "{:?}", started.elapsed());
-        writer.abort();
+        let (_, waited) = settle_during_writes(Duration::from_secs(10), Duration::from_millis(100), Duration::from_secs(60), Some(Duration::from_millis(100))).await;
+        assert!(waited < Duration::from_secs(10), "{waited:?}");
     }
 }
