@@ -11,11 +11,12 @@
 //! async runtime until none is left (when writes arrived during a pass it waits for them to
 //! pause again, within the round's `coalesce_max_ms`), and stores their forecasts together
 //! with the due index, so that ListDue, WatchDue and PlanVisits read ranges, never refit the
-//! fleet. When a round ends with writes paused (and at least every `coalesce_max_ms`
-//! otherwise) it re-estimates the priors of the fleets it touched from the stored own-data
-//! fits; when a group's prior moved, the vehicles of that class are marked stale once more.
-//! Own fits do not depend on priors, so this settles after one extra round. Stale marks are
-//! durable: after a crash the work resumes.
+//! fleet. When a round ends (no vehicle is left stale; writes arriving during a pass keep it
+//! going), and at least every `coalesce_max_ms` in a round that does not end, it re-estimates
+//! the priors of the fleets it touched from the stored own-data fits; when a group's prior
+//! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
+//! priors, so this settles after one extra round. Stale marks are durable: after a crash the
+//! work resumes.
 
 use std::collections::{BTreeSet, HashMap};
 use std::sync::Arc;
@@ -252,19 +253,13 @@ pub struct PassOutcome {
 /// One pass over up to `batch_vehicles` stale vehicles. The batch's data is read first, its
 /// forecasts are computed on rayon's threads (pure computation, one vehicle each), then stored
 /// in mark order. The pass's fleets join `pending_priors`; their priors are re-estimated when
-/// the pass ends a round (it found fewer stale vehicles than a batch) after writes paused
-/// (`writes_paused`), or when `priors_due` (the caller's clock: under writes that never pause
-/// priors still move). Before, every pass re-estimated: in a round over thousands of vehicles,
-/// or while trips streamed in, each batch's new own fits moved the prior and marked the whole
-/// class stale again, so the fleet was recomputed (and rewritten) once per batch.
-pub fn refresh_pass(
-    store: &dyn Store,
-    config: &ForecastConfig,
-    now_ms: i64,
-    pending_priors: &mut BTreeSet<String>,
-    priors_due: bool,
-    writes_paused: bool,
-) -> ServiceResult<PassOutcome> {
+/// the pass ends a round (no vehicle is stale but the ones it is about to clear: writes that
+/// arrived during the pass leave marks of their own) or when `priors_due` (the caller's clock:
+/// under writes that never pause priors still move). So the stale count never reads zero while
+/// a re-estimation waits. Before, every pass re-estimated: in a round over thousands of
+/// vehicles, or while trips streamed in, each batch's new own fits moved the prior and marked
+/// the whole class stale again, so the fleet was recomputed (and rewritten) once per batch.
+pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pending_priors: &mut BTreeSet<String>, priors_due: bool) -> ServiceResult<PassOutcome> {
     let batch = config.batch_vehicles.max(1);
     let marks = store.claim_stale(batch)?;
     if marks.is_empty() && pending_priors.is_empty() {
@@ -298,7 +293,9 @@ pub fn refresh_pass(
         changes.push(ForecastChange { before, after: Arc::new(record) });
     }
     pending_priors.extend(priors_by_fleet.into_keys());
-    let priors_estimated = (marks.len() < batch && writes_paused) || priors_due;
+    // This pass's own marks (a vehicle written again meanwhile keeps its key) and nothing else.
+    let round_ends = store.stale_vehicles(marks.len() + 1)?.len() <= marks.len();
+    let priors_estimated = round_ends || priors_due;
     if priors_estimated {
         for fleet_id in pending_priors.clone() {
             reestimate_priors(store, config, &fleet_id)?;
@@ -376,8 +373,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
     let mut pending_priors = BTreeSet::new();
     let mut priors_estimated_at = std::time::Instant::now();
     loop {
-        // Whether writes paused before this pass.
-        let writes_paused = if !more_work {
+        if !more_work {
             tokio::select! {
                 _ = stop.changed() => {}
                 _ = state.wake_forecaster.notified() => {}
@@ -387,16 +383,16 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
                 break;
             }
             round_started = std::time::Instant::now();
-            settle(&state.wake_forecaster, &mut stop, quiet, longest).await
+            settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
         } else if state.wake_forecaster.notified().now_or_never().is_some() {
             // Writes arrived during the last pass: they may be a stream still going on, whose
             // vehicles would be recomputed again and again. Wait for them to pause too, within
             // what is left of the round's `longest`; past it, passes follow each other.
             let left = longest.saturating_sub(round_started.elapsed());
-            !left.is_zero() && settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await
-        } else {
-            true
-        };
+            if !left.is_zero() {
+                settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await;
+            }
+        }
         if *stop.borrow() {
             break;
         }
@@ -412,7 +408,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let priors_due = priors_estimated_at.elapsed() >= longest;
         let mut pending = std::mem::take(&mut pending_priors);
         let pass = tokio::task::spawn_blocking(move || {
-            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due, writes_paused);
+            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due);
             (outcome, pending)
         })
         .await;
