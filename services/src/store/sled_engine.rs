@@ -57,9 +57,9 @@ const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
 
 /// zstd level of sled's page compression: 1, zstd's fastest regular level. sled compresses
 /// each log message with a fresh zstd context; in the fleet-scale benchmark the trip store alone
-/// ingested at 0.43× (level 3) and 0.32× (level 1, a busier machine) of the benchmark's
-/// engine-alone rate, against 1.34× uncompressed, while the directory shrank to about a third
-/// (BENCHMARKS.md, "Fleet scale").
+/// ingested at 0.43× (level 3) and 0.32-0.61× (level 1; the lower on a busier machine) of the
+/// benchmark's engine-alone rate, against 1.34× uncompressed, while it took a third of the disk
+/// and wrote 0.4 times the bytes (BENCHMARKS.md, "Fleet scale").
 pub const COMPRESSION_LEVEL: i32 = 1;
 
 /// Whether sled's files in `dir` are compressed, or will be when sled creates them there: what
