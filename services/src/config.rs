@@ -73,8 +73,15 @@ pub struct ForecastConfig {
     pub energy_window_days: usize,
     /// Monte Carlo draws per part.
     pub monte_carlo_draws: usize,
-    /// Quiet time after a write before stale forecasts are recomputed, ms (coalesces bursts).
+    /// Quiet time after a write before stale forecasts are recomputed, ms: a refresh starts
+    /// once no write has arrived for this long, so that a burst or a stream of trips becomes
+    /// one pass after it ends instead of one rewrite of the same forecasts per chunk. Default
+    /// 200 ms.
     pub coalesce_ms: u64,
+    /// Longest a refresh waits for writes to pause, ms, counted from the first write it waits
+    /// for: under writes that never pause (live telematics) forecasts are still refreshed at
+    /// least this often. Default 60,000 ms (a minute).
+    pub coalesce_max_ms: u64,
     /// Vehicles recomputed per pass.
     pub batch_vehicles: usize,
     /// GetVehicleForecast answers from the materialised forecast (a few key reads) when no
@@ -86,7 +93,7 @@ pub struct ForecastConfig {
 
 impl Default for ForecastConfig {
     fn default() -> Self {
-        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, batch_vehicles: 256, materialised_max_age_s: 3600 }
+        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, coalesce_max_ms: 60_000, batch_vehicles: 256, materialised_max_age_s: 3600 }
     }
 }
 

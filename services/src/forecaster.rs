@@ -4,12 +4,19 @@
 //!
 //! # Materialisation
 //! Every accepted write marks its vehicle stale (in the same transaction). [`run`] wakes on
-//! writes, waits `coalesce_ms` so that a burst becomes one pass, then recomputes stale vehicles
-//! in batches off the async runtime and stores their forecasts together with the due index, so
-//! that ListDue, WatchDue and PlanVisits read ranges, never refit the fleet. After a pass it
-//! re-estimates the fleet's priors from the stored own-data fits; when a group's prior moved,
-//! the vehicles of that class are marked stale once more. Own fits do not depend on priors, so
-//! this settles after one extra pass. Stale marks are durable: after a crash the work resumes.
+//! writes and waits until they pause for `coalesce_ms` (at most `coalesce_max_ms`; see
+//! [`settle`]), so that a burst or a stream of trips becomes one round after it ends instead
+//! of a rewrite of the same forecasts (about 5 KB each, plus their due-index entries) for
+//! every chunk that reaches the vehicle. A round recomputes stale vehicles in batches off the
+//! async runtime until none is left (when writes arrived during a pass it waits for them to
+//! pause again, within the round's `coalesce_max_ms`), and stores their forecasts together
+//! with the due index, so that ListDue, WatchDue and PlanVisits read ranges, never refit the
+//! fleet. When a round ends (no vehicle is left stale; writes arriving during a pass keep it
+//! going), and at least every `coalesce_max_ms` in a round that does not end, it re-estimates
+//! the priors of the fleets it touched from the stored own-data fits; when a group's prior
+//! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
+//! priors, so this settles after one extra round. Stale marks are durable: after a crash the
+//! work resumes.
 
 use std::collections::{BTreeSet, HashMap};
 use std::sync::Arc;
@@ -232,14 +239,31 @@ fn prior_moved(old: Option<&GroupPrior>, new: &GroupPrior) -> bool {
     }
 }
 
-/// One pass over up to `batch_vehicles` stale vehicles, then prior re-estimation for the fleets
-/// touched. Returns the changes and whether stale vehicles remain. The batch's data is read
-/// first, its forecasts are computed on rayon's threads (pure computation, one vehicle each),
-/// then stored in mark order.
-pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<(Vec<ForecastChange>, bool)> {
-    let marks = store.claim_stale(config.batch_vehicles.max(1))?;
-    if marks.is_empty() {
-        return Ok((Vec::new(), false));
+/// What one [`refresh_pass`] did.
+#[derive(Debug, Default)]
+pub struct PassOutcome {
+    /// The forecasts it stored, each with the one it replaced.
+    pub changes: Vec<ForecastChange>,
+    /// Whether stale vehicles remain.
+    pub remaining: bool,
+    /// Whether it re-estimated the priors of the fleets waiting for it.
+    pub priors_estimated: bool,
+}
+
+/// One pass over up to `batch_vehicles` stale vehicles. The batch's data is read first, its
+/// forecasts are computed on rayon's threads (pure computation, one vehicle each), then stored
+/// in mark order. The pass's fleets join `pending_priors`; their priors are re-estimated when
+/// the pass ends a round (no vehicle is stale but the ones it is about to clear: writes that
+/// arrived during the pass leave marks of their own) or when `priors_due` (the caller's clock:
+/// under writes that never pause priors still move). So the stale count never reads zero while
+/// a re-estimation waits. Before, every pass re-estimated: in a round over thousands of
+/// vehicles, or while trips streamed in, each batch's new own fits moved the prior and marked
+/// the whole class stale again, so the fleet was recomputed (and rewritten) once per batch.
+pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pending_priors: &mut BTreeSet<String>, priors_due: bool) -> ServiceResult<PassOutcome> {
+    let batch = config.batch_vehicles.max(1);
+    let marks = store.claim_stale(batch)?;
+    if marks.is_empty() && pending_priors.is_empty() {
+        return Ok(PassOutcome::default());
     }
     let mut priors_by_fleet: HashMap<String, FleetPriors> = HashMap::new();
     let mut loaded = Vec::with_capacity(marks.len());
@@ -268,30 +292,15 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         store.put_forecasts(&record)?;
         changes.push(ForecastChange { before, after: Arc::new(record) });
     }
-    for (fleet_id, old) in &priors_by_fleet {
-        // One replica at a time re-estimates a fleet's priors; the others skip it this pass.
-        let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { continue };
-        let forecasts = store.fleet_forecasts(fleet_id)?;
-        let new = pool_priors(&forecasts, &model_settings(config, 0.8));
-        // Classes with a group whose prior moved, appeared or disappeared.
-        let changed: BTreeSet<&str> = new
-            .groups
-            .iter()
-            .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
-            .chain(old.groups.iter().filter(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none()))
-            .map(|g| g.vehicle_class.as_str())
-            .collect();
-        if changed.is_empty() {
-            continue;
+    pending_priors.extend(priors_by_fleet.into_keys());
+    // This pass's own marks (a vehicle written again meanwhile keeps its key) and nothing else.
+    let round_ends = store.stale_vehicles(marks.len() + 1)?.len() <= marks.len();
+    let priors_estimated = round_ends || priors_due;
+    if priors_estimated {
+        for fleet_id in pending_priors.clone() {
+            reestimate_priors(store, config, &fleet_id)?;
+            pending_priors.remove(&fleet_id);
         }
-        store.put_priors(fleet_id, &new)?;
-        let again: Vec<String> = forecasts
-            .iter()
-            .filter(|f| changed.contains(f.vehicle_class.as_str()))
-            .map(|f| f.vehicle_id.clone())
-            .collect();
-        tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
-        store.mark_stale(fleet_id, &again)?;
     }
     // Cleared last, so that a vehicle re-marked above stays stale and the pending count never
     // reads zero while work remains.
@@ -299,13 +308,70 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> 
         store.clear_stale(mark)?;
     }
     let remaining = !store.stale_vehicles(1)?.is_empty();
-    Ok((changes, remaining))
+    Ok(PassOutcome { changes, remaining, priors_estimated })
+}
+
+/// Re-estimates a fleet's priors from its stored own fits; when a group's prior moved, marks
+/// the vehicles of that class stale once more.
+fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str) -> ServiceResult<()> {
+    // One replica at a time re-estimates a fleet's priors; the others skip it.
+    let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { return Ok(()) };
+    let old = store.get_priors(fleet_id)?.unwrap_or_default();
+    let forecasts = store.fleet_forecasts(fleet_id)?;
+    let new = pool_priors(&forecasts, &model_settings(config, 0.8));
+    // Classes with a group whose prior moved, appeared or disappeared.
+    let changed: BTreeSet<&str> = new
+        .groups
+        .iter()
+        .filter(|g| prior_moved(old.find(&g.vehicle_class, g.axle_index, g.component), g))
+        .chain(old.groups.iter().filter(|g| new.find(&g.vehicle_class, g.axle_index, g.component).is_none()))
+        .map(|g| g.vehicle_class.as_str())
+        .collect();
+    if changed.is_empty() {
+        return Ok(());
+    }
+    store.put_priors(fleet_id, &new)?;
+    let again: Vec<String> = forecasts
+        .iter()
+        .filter(|f| changed.contains(f.vehicle_class.as_str()))
+        .map(|f| f.vehicle_id.clone())
+        .collect();
+    tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
+    store.mark_stale(fleet_id, &again)?;
+    Ok(())
+}
+
+/// Waits until no write has woken the worker for `quiet`, `longest` after the wait began at
+/// the latest (writes that never pause still get their forecasts refreshed), or until `stop`
+/// changes. True when the writes paused (or the worker stops); false when `longest` ran out.
+async fn settle(wake: &tokio::sync::Notify, stop: &mut watch::Receiver<bool>, quiet: Duration, longest: Duration) -> bool {
+    let deadline = tokio::time::Instant::now() + longest;
+    loop {
+        let until = (tokio::time::Instant::now() + quiet).min(deadline);
+        tokio::select! {
+            _ = wake.notified() => {
+                if tokio::time::Instant::now() >= deadline {
+                    return false;
+                }
+            }
+            _ = tokio::time::sleep_until(until) => return until < deadline || quiet.is_zero(),
+            _ = stop.changed() => return true,
+        }
+    }
 }
 
 /// Keeps forecasts materialised until `stop` turns true (see the module docs).
 pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
-    let coalesce = Duration::from_millis(state.forecast.coalesce_ms);
+    use futures::FutureExt;
+    let quiet = Duration::from_millis(state.forecast.coalesce_ms);
+    let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
     let mut more_work = true; // stale marks may survive a restart
+    // When the current round began waiting.
+    let mut round_started = std::time::Instant::now();
+    // Fleets whose priors wait for the end of the round (see `refresh_pass`), and when priors
+    // were last re-estimated.
+    let mut pending_priors = BTreeSet::new();
+    let mut priors_estimated_at = std::time::Instant::now();
     loop {
         if !more_work {
             tokio::select! {
@@ -313,11 +379,23 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
                 _ = state.wake_forecaster.notified() => {}
                 _ = tokio::time::sleep(Duration::from_secs(5)) => {}
             }
+            if *stop.borrow() {
+                break;
+            }
+            round_started = std::time::Instant::now();
+            settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+        } else if state.wake_forecaster.notified().now_or_never().is_some() {
+            // Writes arrived during the last pass: they may be a stream still going on, whose
+            // vehicles would be recomputed again and again. Wait for them to pause too, within
+            // what is left of the round's `longest`; past it, passes follow each other.
+            let left = longest.saturating_sub(round_started.elapsed());
+            if !left.is_zero() {
+                settle(&state.wake_forecaster, &mut stop, quiet.min(left), left).await;
+            }
         }
         if *stop.borrow() {
             break;
         }
-        tokio::time::sleep(coalesce).await;
         // Forecasts are stored: while writes are refused (a full disk, a read-only store) a
         // pass could only fail; the next wake-up or timer tries again.
         if state.blocking(|store| Ok(store.writable())).await.map_or(true, |w| w.is_err()) {
@@ -327,14 +405,27 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
         let started = std::time::Instant::now();
-        let pass = tokio::task::spawn_blocking(move || refresh_pass(store.as_ref(), &config, crate::convert::now_ms())).await;
+        let priors_due = priors_estimated_at.elapsed() >= longest;
+        let mut pending = std::mem::take(&mut pending_priors);
+        let pass = tokio::task::spawn_blocking(move || {
+            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due);
+            (outcome, pending)
+        })
+        .await;
         crate::metrics::forecast_refresh(started.elapsed().as_secs_f64());
+        let pass = pass.map(|(outcome, pending)| {
+            pending_priors = pending;
+            outcome
+        });
         match pass {
-            Ok(Ok((changes, remaining))) => {
-                for change in changes {
+            Ok(Ok(outcome)) => {
+                for change in outcome.changes {
                     let _ = state.changes.send(change);
                 }
-                more_work = remaining;
+                if outcome.priors_estimated {
+                    priors_estimated_at = std::time::Instant::now();
+                }
+                more_work = outcome.remaining;
             }
             Ok(Err(error)) => {
                 tracing::error!(%error, "forecast refresh failed; retrying later");
@@ -355,4 +446,68 @@ pub fn vehicle_forecast_now(store: &dyn Store, fleet_id: &str, vehicle_id: &str,
     let priors = store.get_priors(fleet_id)?.unwrap_or_default();
     let parts = compute_vehicle(&data, &priors, now_ms, &model_settings(config, band_level));
     Ok((data, parts))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::time::Instant;
+
+    /// Notifies `wake` every 10 ms for `for_how_long`.
+    fn writes(wake: Arc<tokio::sync::Notify>, for_how_long: Duration) -> tokio::task::JoinHandle<()> {
+        tokio::spawn(async move {
+            let started = Instant::now();
+            while started.elapsed() < for_how_long {
+                wake.notify_one();
+                tokio::time::sleep(Duration::from_millis(10)).await;
+            }
+        })
+    }
+
+    /// Waits with [`settle`] (quiet time `quiet`, cap `longest`) while writes come every 10 ms
+    /// for `writing`; stops the worker after `stop_after`, if given. (writes paused, time waited)
+    async fn settle_during_writes(writing: Duration, quiet: Duration, longest: Duration, stop_after: Option<Duration>) -> (bool, Duration) {
+        let wake = Arc::new(tokio::sync::Notify::new());
+        let (stopping, mut stop) = watch::channel(false);
+        let writer = writes(Arc::clone(&wake), writing);
+        // The sender stays alive through the wait: a dropped one would end it at once.
+        let _kept = match stop_after {
+            Some(after) => {
+                tokio::spawn(async move {
+                    tokio::time::sleep(after).await;
+                    let _ = stopping.send(true);
+                    tokio::time::sleep(Duration::from_secs(30)).await;
+                });
+                None
+            }
+            None => Some(stopping),
+        };
+        let started = Instant::now();
+        let paused = settle(&wake, &mut stop, quiet, longest).await;
+        let waited = started.elapsed();
+        writer.abort();
+        (paused, waited)
+    }
+
+    #[tokio::test]
+    async fn a_refresh_waits_for_writes_to_pause() {
+        // Writes every 10 ms for 400 ms: the wait ends after they stop, not at the first
+        // quiet-time interval, and long before the cap.
+        let (paused, waited) = settle_during_writes(Duration::from_millis(400), Duration::from_millis(250), Duration::from_secs(20), None).await;
+        assert!(paused, "the writes paused");
+        assert!(waited >= Duration::from_millis(400) && waited < Duration::from_secs(20), "{waited:?}");
+    }
+
+    #[tokio::test]
+    async fn writes_that_never_pause_still_get_a_refresh_at_the_cap() {
+        let (paused, waited) = settle_during_writes(Duration::from_secs(10), Duration::from_millis(100), Duration::from_millis(500), None).await;
+        assert!(!paused, "the cap ran out");
+        assert!(waited >= Duration::from_millis(500) && waited < Duration::from_secs(10), "the cap ends the wait while writes go on: {waited:?}");
+    }
+
+    #[tokio::test]
+    async fn a_stop_ends_the_wait() {
+        let (_, waited) = settle_during_writes(Duration::from_secs(10), Duration::from_millis(100), Duration::from_secs(60), Some(Duration::from_millis(100))).await;
+        assert!(waited < Duration::from_secs(10), "{waited:?}");
+    }
 }

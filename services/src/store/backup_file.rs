@@ -356,7 +356,7 @@ pub fn restore(path: &Path, dir: &Path, cache_capacity_bytes: u64) -> Result<Bac
     }
     verify(path)?;
     std::fs::create_dir_all(dir)?;
-    let engine = Engine::from_db(sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open().map_err(StoreError::from)?)?;
+    let engine = Engine::from_db(super::sled_engine::sled_config(dir, cache_capacity_bytes).open().map_err(StoreError::from)?)?;
     let mut batch: Vec<(Vec<u8>, Vec<u8>)> = Vec::new();
     let mut batch_tree = String::new();
     let summary = read(File::open(path)?, |tree, key, value| {
@@ -388,7 +388,7 @@ mod tests {
     #[test]
     fn damage_anywhere_in_a_backup_is_caught() {
         let dir = tempfile::tempdir().unwrap();
-        let engine = Engine::from_db(sled::Config::new().temporary(true).open().unwrap()).unwrap();
+        let engine = Engine::from_db(crate::store::sled_engine::temporary_db().unwrap()).unwrap();
         engine.upsert_fleet(&crate::store::FleetRecord::default_for("north")).unwrap();
         let mut bytes = Vec::new();
         let summary = write(&engine, None, 1, &mut bytes).unwrap();

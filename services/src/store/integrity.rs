@@ -146,7 +146,7 @@ fn everything_missing(ledger: &LedgerState) -> Vec<String> {
 /// background thread finishes, so a lock refusal is retried for up to 2 s before it counts as
 /// "in use by another process".
 pub(crate) fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled::Result<sled::Db> {
-    let open = || sled::Config::new().path(dir).cache_capacity(cache_capacity_bytes).open();
+    let open = || super::sled_engine::sled_config(dir, cache_capacity_bytes).open();
     for _ in 0..40 {
         match open() {
             Err(sled::Error::Io(io)) if io.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),

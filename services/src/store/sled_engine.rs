@@ -5,8 +5,18 @@
 //! in one multi-tree transaction and is followed by `Db::flush`, which returns only after the
 //! data reached disk. Materialised forecasts are derived data: they are rebuilt from the stale
 //! marks after a crash, so they ride on sled's periodic flush.
+//!
+//! # Compressed files
+//! sled compresses what it writes with zstd (level [`COMPRESSION_LEVEL`]) in every directory
+//! it creates: the log holds each page version it writes, so this shrinks both the directory
+//! and the bytes written (see BENCHMARKS.md, "Fleet scale"). sled records the choice in its
+//! `conf` file when it creates a database and refuses to open it with the other one, so
+//! [`sled_config`] reads it back: a directory created before compression (brakeledger's
+//! schema 4 and older) is opened uncompressed as it was made, and stays so; a backup restored
+//! into a new directory (`brakeledger backup` then `brakeledger restore`) compresses it.
 
-use std::collections::{BTreeMap, HashMap, HashSet};
+use std::collections::{BTreeMap, BTreeSet, HashMap, HashSet};
+use std::path::Path;
 use std::sync::atomic::{AtomicU64, Ordering};
 
 use serde::{de::DeserializeOwned, Serialize};
@@ -44,6 +54,43 @@ const SCHEMA_KEY: &[u8] = b"schema_version";
 /// Set once the schema-3 trips are copied into blocks and flushed: a migration cut short after
 /// that point only has to drop the old trees.
 const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
+
+/// zstd level of sled's page compression: 1, zstd's fastest regular level. sled compresses
+/// each log message with a fresh zstd context; in the fleet-scale benchmark the trip store alone
+/// ingested at 0.43× (level 3) and 0.32-0.61× (level 1; the lower on a busier machine) of the
+/// benchmark's engine-alone rate, against 1.34× uncompressed, while it took a third of the disk
+/// and wrote 0.4 times the bytes (BENCHMARKS.md, "Fleet scale").
+pub const COMPRESSION_LEVEL: i32 = 1;
+
+/// Whether sled's files in `dir` are compressed, or will be when sled creates them there: what
+/// the `conf` file sled writes beside a database it creates says (`use_compression: false` in
+/// every directory made before brakeledger compressed; sled refuses to open those with
+/// compression on, and would refuse the reverse too).
+pub fn files_compressed(dir: &Path) -> bool {
+    // `key: value` lines followed by the CRC-32 of those bytes (not text).
+    match std::fs::read(dir.join("conf")) {
+        Ok(conf) => !String::from_utf8_lossy(&conf)
+            .lines()
+            .any(|line| line.split_once(':').is_some_and(|(key, value)| key.trim() == "use_compression" && value.trim() == "false")),
+        Err(_) => true,
+    }
+}
+
+/// How brakeledger opens the sled database in `dir`, with a page cache of
+/// `cache_capacity_bytes`: compressed unless the directory was created without (see
+/// [`files_compressed`]). Every open of a data directory goes through here.
+pub fn sled_config(dir: &Path, cache_capacity_bytes: u64) -> sled::Config {
+    sled::Config::new()
+        .path(dir)
+        .cache_capacity(cache_capacity_bytes)
+        .use_compression(files_compressed(dir))
+        .compression_factor(COMPRESSION_LEVEL)
+}
+
+/// A throw-away compressed database (tests and scratch copies), removed when dropped.
+pub fn temporary_db() -> sled::Result<sled::Db> {
+    sled::Config::new().temporary(true).use_compression(true).compression_factor(COMPRESSION_LEVEL).open()
+}
 
 impl From<sled::Error> for StoreError {
     fn from(error: sled::Error) -> Self {
@@ -627,16 +674,24 @@ impl Engine {
     pub fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()> {
         let key = vehicle_key(&record.fleet_id, &record.vehicle_id);
         let bytes = encode(record)?;
-        let new_keys = due_index_keys(record);
+        let new_keys: BTreeSet<Vec<u8>> = due_index_keys(record).into_iter().collect();
         (&self.forecasts, &self.due_index)
             .transaction(|(forecasts, due_index)| {
-                if let Some(old) = tx_get::<VehicleForecasts>(forecasts, &key)? {
-                    for old_key in due_index_keys(&old) {
-                        due_index.remove(old_key)?;
-                    }
+                let old = forecasts.get(&key)?;
+                // Only what changed is written: sled logs every insert and removal, and a part
+                // whose due date stays where it was keeps its due-index entry.
+                if old.as_deref() == Some(bytes.as_slice()) {
+                    return Ok(());
                 }
-                for new_key in &new_keys {
-                    due_index.insert(new_key.as_slice(), &[])?;
+                let old_keys: BTreeSet<Vec<u8>> = match &old {
+                    Some(old) => due_index_keys(&decode::<VehicleForecasts>(old).map_err(abort)?).into_iter().collect(),
+                    None => BTreeSet::new(),
+                };
+                for gone in old_keys.difference(&new_keys) {
+                    due_index.remove(gone.as_slice())?;
+                }
+                for added in new_keys.difference(&old_keys) {
+                    due_index.insert(added.as_slice(), &[])?;
                 }
                 forecasts.insert(key.as_slice(), bytes.as_slice())?;
                 Ok(())
@@ -1324,8 +1379,12 @@ mod tests {
     }
 
     /// Writes a schema-3 data directory: one record per trip in `trips`, the `trip_ids` index,
-    /// roll-ups and totals, and the acknowledged-write ledger, as schema 3 wrote them.
+    /// roll-ups and totals, and the acknowledged-write ledger, as schema 3 wrote them (sled's
+    /// files uncompressed).
     fn write_schema_3(dir: &std::path::Path, trips: &[TripRecord], daily: &[(Vec<u8>, DailyEnergy)], totals: &[(Vec<u8>, VehicleTotals)]) {
+        if !dir.join("conf").exists() {
+            drop(sled::Config::new().path(dir).open().unwrap());
+        }
         let db = open_when_released(dir);
         db.open_tree("meta").unwrap().insert(SCHEMA_KEY, &3u32.to_be_bytes()).unwrap();
         let fleet = FleetRecord::default_for("north");
@@ -1439,7 +1498,7 @@ mod tests {
 
     #[test]
     fn a_write_loads_only_the_index_entries_its_own_trips_can_match() {
-        let engine = Engine::from_db(sled::Config::new().temporary(true).open().unwrap()).unwrap();
+        let engine = Engine::from_db(temporary_db().unwrap()).unwrap();
         let trips = fixture_trips();
         engine.ingest_trips(&trips).unwrap();
         let stored = trips.iter().find(|t| t.vehicle_id == "van-2").unwrap().clone();
@@ -1451,6 +1510,42 @@ mod tests {
         assert_eq!(loaded.stored, (SEGMENT_ENTRIES + 300) as u64);
         assert_eq!(loaded.days_by_hash.len(), 1);
         assert_eq!(engine.ingest_trips(&batch).unwrap(), vec![IngestOutcome::Duplicate, IngestOutcome::Stored]);
+    }
+
+    #[test]
+    fn a_directory_made_before_compression_opens_as_it_was_made_and_a_restore_compresses_it() {
+        let trips = fixture_trips();
+        let old = tempfile::tempdir().unwrap();
+        {
+            // A directory as brakeledger made it before compression: sled's defaults.
+            drop(sled::Config::new().path(old.path()).open().unwrap());
+            let store = SledStore::open(old.path()).expect("an uncompressed directory opens");
+            store.upsert_fleet(&FleetRecord::default_for("north")).unwrap();
+            store.ingest_trips(&trips).unwrap();
+        }
+        assert!(!files_compressed(old.path()));
+        // sled itself refuses to read it with compression on: the reason `sled_config` asks.
+        assert!(sled::Config::new().path(old.path()).use_compression(true).open().is_err());
+        let store = SledStore::open(old.path()).expect("reopened as it was made");
+        assert_eq!(store.vehicle_totals("north", "van-2").unwrap().trips_recorded, (SEGMENT_ENTRIES + 300) as u64);
+        let (mut file, _) = store.export_backup(0).unwrap();
+        let backup = old.path().join("copy.backup");
+        std::io::copy(&mut file, &mut std::fs::File::create(&backup).unwrap()).unwrap();
+        drop(store);
+
+        let new = tempfile::tempdir().unwrap();
+        let target = new.path().join("data");
+        super::super::backup_file::restore(&backup, &target, 8 << 20).expect("restore into a new directory");
+        assert!(files_compressed(&target), "a directory sled creates now is compressed");
+        assert!(sled::Config::new().path(&target).use_compression(false).open().is_err(), "sled refuses to read it uncompressed");
+        let restored = SledStore::open(&target).expect("the restored directory opens");
+        for vehicle in ["van-1", "van-2"] {
+            let mut expected: Vec<TripRecord> = trips.iter().filter(|t| t.vehicle_id == vehicle).cloned().collect();
+            expected.sort_by(|a, b| (a.end_ms, &a.trip_id).cmp(&(b.end_ms, &b.trip_id)));
+            assert_eq!(restored.vehicle_trips("north", vehicle).unwrap(), expected, "{vehicle}");
+        }
+        // A resent trip is still a duplicate in the compressed directory.
+        assert_eq!(restored.ingest_trips(&trips[..1]).unwrap(), vec![IngestOutcome::Duplicate]);
     }
 
     #[test]

@@ -86,7 +86,7 @@ struct LedgerSlot {
 }
 
 fn open_engine(dir: &Path, options: &StoreOptions) -> StoreResult<Engine> {
-    Engine::from_db(sled::Config::new().path(dir).cache_capacity(options.cache_capacity_bytes).open()?)
+    Engine::from_db(super::sled_engine::sled_config(dir, options.cache_capacity_bytes).open()?)
 }
 
 fn lock_error<T>(_: T) -> StoreError {
@@ -113,7 +113,7 @@ impl SledStore {
 
     /// A throw-away database in a temporary location (tests).
     pub fn temporary() -> StoreResult<Self> {
-        let engine = Engine::from_db(sled::Config::new().temporary(true).open()?)?;
+        let engine = Engine::from_db(super::sled_engine::temporary_db()?)?;
         Ok(Self::around(None, StoreOptions { min_free_bytes: 0, ..StoreOptions::default() }, engine))
     }
 
