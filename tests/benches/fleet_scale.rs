@@ -136,10 +136,16 @@ fn store_alone(trips: &[pb::TripSummary]) -> (f64, f64, f64) {
 }
 
 /// The storage engine alone: sled, one record per trip (postcard, keyed fleet/vehicle/end/id),
-/// one batch and one flush per 2,000 trips. Trips/s.
-fn engine_alone_baseline(trips: &[pb::TripSummary]) -> f64 {
+/// one batch and one flush per 2,000 trips, uncompressed (sled's default) or `compressed` as the
+/// service configures it for a new directory (`sled_engine::sled_config`). Trips/s.
+fn engine_alone_baseline(trips: &[pb::TripSummary], compressed: bool) -> f64 {
     let dir = tempfile::tempdir().expect("temp dir");
-    let db = sled::Config::new().path(dir.path()).cache_capacity(64 << 20).open().expect("sled");
+    let config = if compressed {
+        brakeledger::store::sled_engine::sled_config(dir.path(), 64 << 20)
+    } else {
+        sled::Config::new().path(dir.path()).cache_capacity(64 << 20)
+    };
+    let db = config.open().expect("sled");
     let tree = db.open_tree("trips").expect("tree");
     let started = Instant::now();
     for chunk in trips.chunks(2000) {
@@ -330,8 +336,12 @@ fn main() {
     let largest = *steps.iter().max().expect("at least one step");
     let baseline_vehicles = (baseline_trips / per_vehicle).clamp(1, largest);
     let baseline_set = trips_for(0, baseline_vehicles, per_vehicle, end_s, by_time);
-    let baseline = engine_alone_baseline(&baseline_set);
-    println!("engine alone (sled, one record per trip, flush per 2,000): {baseline:.0} trips/s over {} trips", baseline_set.len());
+    let baseline = engine_alone_baseline(&baseline_set, false);
+    let compressed_baseline = engine_alone_baseline(&baseline_set, true);
+    println!(
+        "engine alone (sled, one record per trip, flush per 2,000): {baseline:.0} trips/s uncompressed, {compressed_baseline:.0} trips/s compressed as the service opens it, over {} trips",
+        baseline_set.len()
+    );
     let baseline_pb = baseline_set.iter().map(|t| t.encoded_len() as f64).sum::<f64>() / baseline_set.len() as f64;
     let (store_rate, store_written, store_disk) = store_alone(&baseline_set);
     drop(baseline_set);
@@ -412,6 +422,10 @@ fn main() {
     println!("| trip store alone, bytes written per trip | protobuf {baseline_pb:.1} B | {store_written:.1} B | {:.2}× | ≤ 4× |", store_written / baseline_pb);
     println!("| trip store alone, ingest | engine alone {baseline:.0} trips/s | {store_rate:.0} trips/s | {:.2}× | – |", store_rate / baseline);
     println!("| ingest, StreamTrips | engine alone {baseline:.0} trips/s | {grpc_rate:.0} trips/s | {:.2}× | ≥ 1.0× |", grpc_rate / baseline);
+    println!(
+        "| ingest, StreamTrips | engine alone compressed as the service opens it {compressed_baseline:.0} trips/s | {grpc_rate:.0} trips/s | {:.2}× | – |",
+        grpc_rate / compressed_baseline
+    );
     let first = &results[0];
     for step in &results {
         println!("| RSS after loading {} vehicles / {} trips and a refresh ({:.0} s) | – | {:.0} MB | – | ≤ 300 MB at 100k |", step.vehicles, step.trips, step.refresh_s, step.rss_mb);
