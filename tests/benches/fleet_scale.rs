@@ -30,6 +30,7 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use brakeledger_proto::v1 as pb;
+use brakeledger_tests::bench::{env_or, vehicle_id, UnlimitedIngestConfig};
 use brakeledger_tests::{connect, now_s, trip, trip_record, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
 use prost::Message;
 use tonic::transport::Channel;
@@ -42,18 +43,6 @@ const TRIPS_PER_DAY: usize = 6;
 const INSPECTED_EVERY: usize = 10;
 const CONCURRENT_CALLERS: usize = 64;
 const READ_SECONDS: f64 = 3.0;
-/// The server's settings for the run: no per-token ingest rate limit (the default 20,000
-/// trips/s, bursts of 200,000, refuses the 10,000-vehicle step's one call of 900,000 trips).
-const SERVER_CONFIG: &str = "[limits]\ningest_trips_per_second = 0\n";
-
-fn env_or<T: std::str::FromStr>(name: &str, default: T) -> T {
-    std::env::var(name).ok().and_then(|v| v.parse().ok()).unwrap_or(default)
-}
-
-fn vehicle_id(v: usize) -> String {
-    format!("v{v:06}")
-}
-
 /// Trip `n` of a vehicle: six a day, ending `n / 6` days and `(n % 6) * 4` hours before `end_s`.
 fn scale_trip(v: usize, n: usize, end_s: i64) -> pb::TripSummary {
     let mut t = trip(FLEET, &vehicle_id(v), 0, end_s - (n / TRIPS_PER_DAY) as i64 * DAY_S - (n % TRIPS_PER_DAY) as i64 * 4 * 3600);
@@ -347,10 +336,8 @@ fn main() {
     drop(baseline_set);
 
     let data = tempfile::tempdir().expect("data dir");
-    let config_dir = tempfile::tempdir().expect("config dir");
-    let config = config_dir.path().join("brakeledger.toml");
-    std::fs::write(&config, SERVER_CONFIG).expect("write config");
-    let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
+    let config = UnlimitedIngestConfig::write();
+    let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.path().as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
     let pid = server.child.id();
     let (mut loaded, mut protobuf_bytes, mut written, mut ingest_s, mut trips_sent) = (0usize, 0u64, 0u64, 0f64, 0u64);
     // Bytes written from the start of each step's stream until its forecasts are all refreshed.

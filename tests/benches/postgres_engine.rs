@@ -42,6 +42,7 @@ use brakeledger::store::postgres::scratch::ScratchDatabase;
 use brakeledger::store::postgres::{derived, writes, PostgresStore};
 use brakeledger::store::{FleetRecord, Store, TripRecord, VehicleRecord};
 use brakeledger_proto::v1 as pb;
+use brakeledger_tests::bench::{env_or, vehicle_id, UnlimitedIngestConfig};
 use brakeledger_tests::dated_forecasts::{dated_forecasts, DUE_SPREAD_DAYS, FIRST_DUE_DAY};
 use brakeledger_tests::{connect, now_s, trip, two_axle_vehicle, ServerProcess, DAY_S};
 use postgres::binary_copy::BinaryCopyInWriter;
@@ -62,18 +63,6 @@ const LOAD_BATCH_VEHICLES: usize = 1_000;
 const PAGE_PARTS: u32 = 100;
 /// Where the deeper page starts, in parts.
 const DEEP_PAGE_OFFSET: usize = 3_000;
-
-/// The server's settings for the run: no per-token ingest rate limit (the default 20,000
-/// trips/s would cap the measurement, not the engine).
-const SERVER_CONFIG: &str = "[limits]\ningest_trips_per_second = 0\n";
-
-fn env_or<T: std::str::FromStr>(name: &str, default: T) -> T {
-    std::env::var(name).ok().and_then(|v| v.parse().ok()).unwrap_or(default)
-}
-
-fn vehicle_id(v: usize) -> String {
-    format!("v{v:06}")
-}
 
 /// Trips `first..first + per_vehicle` (hourly, newest first) of every vehicle, 20 vehicles at a
 /// time.
@@ -365,9 +354,8 @@ fn main() {
     let per_vehicle = trips_n.div_ceil(vehicles);
     let acked_per_vehicle = acked_n.div_ceil(vehicles);
     let binary = PathBuf::from(env!("CARGO_BIN_EXE_brakeledger-test-server"));
-    let config_dir = tempfile::tempdir().expect("config dir");
-    let config = config_dir.path().join("brakeledger.toml");
-    std::fs::write(&config, SERVER_CONFIG).expect("write config");
+    let config_file = UnlimitedIngestConfig::write();
+    let config = config_file.path();
     let runtime = tokio::runtime::Builder::new_multi_thread().enable_all().build().expect("runtime");
     let run_started = Instant::now();
     let server_version = {

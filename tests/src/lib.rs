@@ -2,6 +2,7 @@
 //! temporary data directory (in-process, or as a separate process that can be killed), and make
 //! the vehicles and trips the tests send.
 
+pub mod bench;
 pub mod dated_forecasts;
 pub mod load;
 pub mod raw;
