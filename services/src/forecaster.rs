@@ -15,10 +15,13 @@
 //! going), and at least every `coalesce_max_ms` in a round that does not end, it re-estimates
 //! the priors of the fleets it touched from the stored own-data fits; when a group's prior
 //! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
-//! priors, so this settles after one extra round. Stale marks are durable: after a crash the
-//! work resumes.
+//! priors, so this settles after one extra round; and a round over more vehicles than one
+//! pass takes begins by estimating the priors from the own fits it is about to store
+//! ([`priors_for_round`]), so that after a stream of new data the fleet is computed once, not
+//! once with the old priors and again with the new. Stale marks are durable: after a crash
+//! the work resumes.
 
-use std::collections::{BTreeSet, HashMap};
+use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::sync::Arc;
 use std::time::Duration;
 
@@ -28,6 +31,7 @@ use brakeledger_models::forecast::vehicle_seed;
 use brakeledger_models::pipeline::{estimate_group_priors, GroupKey};
 use brakeledger_models::pooling::vehicle_key;
 use brakeledger_models::vehicle_forecast::{forecast_vehicle, PartData};
+use brakeledger_models::wear_fit::fit_part_any_sign;
 use brakeledger_models::{ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
 use rayon::prelude::*;
 use tokio::sync::watch;
@@ -209,22 +213,47 @@ pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> V
     }
 }
 
-/// Pools the own fits of a fleet's stored forecasts into group priors (with each rotor
-/// group's coupling to its pads).
-pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) -> FleetPriors {
-    let fits = forecasts.iter().flat_map(|vehicle| {
-        let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
-        vehicle.parts.iter().filter_map(move |part| {
-            let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
-            part.own_fit.as_ref().map(|fit| (group, key, fit))
-        })
-    });
+/// Pools own fits `(group, vehicle key, fit)` into group priors (with each rotor group's
+/// coupling to its pads), sorted by group.
+fn pool_fits<F: std::borrow::Borrow<WearFit> + Send>(fits: impl Iterator<Item = (GroupKey, u64, F)>, settings: &ForecastSettings) -> FleetPriors {
     let mut groups: Vec<GroupPrior> = estimate_group_priors(fits, settings)
         .into_iter()
         .map(|(g, prior)| GroupPrior { vehicle_class: g.vehicle_class, axle_index: g.axle_index, component: g.component, prior })
         .collect();
     groups.sort_by(|a, b| (&a.vehicle_class, a.axle_index, a.component).cmp(&(&b.vehicle_class, b.axle_index, b.component)));
     FleetPriors { groups }
+}
+
+/// The own fits kept in one vehicle's stored forecasts, as pooling reads them.
+fn stored_fits(vehicle: &VehicleForecasts) -> impl Iterator<Item = (GroupKey, u64, &WearFit)> {
+    let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
+    vehicle.parts.iter().filter_map(move |part| {
+        let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
+        part.own_fit.as_ref().map(|fit| (group, key, fit))
+    })
+}
+
+/// Pools the own fits of a fleet's stored forecasts into group priors (with each rotor
+/// group's coupling to its pads).
+pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) -> FleetPriors {
+    pool_fits(forecasts.iter().flat_map(stored_fits), settings)
+}
+
+/// A vehicle's own fits made from its stored data now (what its next stored forecast will
+/// keep for pooling: own fits do not depend on priors), with its class.
+#[derive(Debug, Clone)]
+struct FreshFits {
+    vehicle_class: String,
+    /// `(axle, component, fit)` of each part that could be fitted.
+    fits: Vec<(u32, Component, WearFit)>,
+}
+
+fn fresh_fits(data: &VehicleData, now_ms: i64, settings: &ForecastSettings) -> FreshFits {
+    let fits = part_inputs(data, now_ms)
+        .into_iter()
+        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, fit)))
+        .collect();
+    FreshFits { vehicle_class: data.vehicle.spec.vehicle_class.clone(), fits }
 }
 
 /// Whether a group's prior moved enough to recompute the forecasts resting on it.
@@ -298,7 +327,7 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pen
     let priors_estimated = round_ends || priors_due;
     if priors_estimated {
         for fleet_id in pending_priors.clone() {
-            reestimate_priors(store, config, &fleet_id)?;
+            reestimate_priors(store, config, &fleet_id, &HashMap::new())?;
             pending_priors.remove(&fleet_id);
         }
     }
@@ -311,14 +340,23 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pen
     Ok(PassOutcome { changes, remaining, priors_estimated })
 }
 
-/// Re-estimates a fleet's priors from its stored own fits; when a group's prior moved, marks
-/// the vehicles of that class stale once more.
-fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str) -> ServiceResult<()> {
+/// Re-estimates a fleet's priors from its stored own fits, with `fresh` (vehicle id → fits
+/// made from its data now) in place of the stored ones of the vehicles it holds; when a
+/// group's prior moved, marks the other vehicles of that class stale (the ones in `fresh` are
+/// stale already, and a new mark would have them computed twice).
+fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str, fresh: &HashMap<String, FreshFits>) -> ServiceResult<()> {
     // One replica at a time re-estimates a fleet's priors; the others skip it.
     let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { return Ok(()) };
     let old = store.get_priors(fleet_id)?.unwrap_or_default();
     let forecasts = store.fleet_forecasts(fleet_id)?;
-    let new = pool_priors(&forecasts, &model_settings(config, 0.8));
+    let stored = forecasts.iter().filter(|f| !fresh.contains_key(&f.vehicle_id)).flat_map(stored_fits);
+    let made_now = fresh.iter().flat_map(|(vehicle_id, f)| {
+        let key = vehicle_key(&[fleet_id, vehicle_id]);
+        f.fits.iter().map(move |(axle_index, component, fit)| {
+            (GroupKey { vehicle_class: f.vehicle_class.clone(), axle_index: *axle_index, component: *component }, key, fit)
+        })
+    });
+    let new = pool_fits(stored.chain(made_now), &model_settings(config, 0.8));
     // Classes with a group whose prior moved, appeared or disappeared.
     let changed: BTreeSet<&str> = new
         .groups
@@ -333,11 +371,46 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str)
     store.put_priors(fleet_id, &new)?;
     let again: Vec<String> = forecasts
         .iter()
-        .filter(|f| changed.contains(f.vehicle_class.as_str()))
+        .filter(|f| changed.contains(f.vehicle_class.as_str()) && !fresh.contains_key(&f.vehicle_id))
         .map(|f| f.vehicle_id.clone())
         .collect();
     tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
     store.mark_stale(fleet_id, &again)?;
+    Ok(())
+}
+
+/// Before a round: re-estimates the priors of every fleet with stale vehicles from the own
+/// fits the round is about to store (made now from each stale vehicle's data, in batches of
+/// `batch_vehicles`) and the stored fits of the others, so that the round computes with the
+/// priors it will end with. Only fleets with more stale vehicles than one pass takes. Without it a round after a stream of new data computed every
+/// vehicle with the old priors, moved them at its end, and computed (and rewrote) the fleet a
+/// second time.
+pub fn priors_for_round(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<()> {
+    let marks = store.stale_vehicles(usize::MAX)?;
+    let mut by_fleet: BTreeMap<String, Vec<String>> = BTreeMap::new();
+    for mark in marks {
+        by_fleet.entry(mark.fleet_id).or_default().push(mark.vehicle_id);
+    }
+    let settings = model_settings(config, 0.8);
+    let batch = config.batch_vehicles.max(1);
+    // A round of one pass gains nothing: its end re-estimates the priors anyway, and a few
+    // vehicles move them little.
+    by_fleet.retain(|_, vehicle_ids| vehicle_ids.len() > batch);
+    for (fleet_id, vehicle_ids) in by_fleet {
+        let mut fresh: HashMap<String, FreshFits> = HashMap::with_capacity(vehicle_ids.len());
+        for chunk in vehicle_ids.chunks(batch) {
+            let mut loaded = Vec::with_capacity(chunk.len());
+            for vehicle_id in chunk {
+                // A vehicle no longer registered has no fits.
+                if let Some(data) = load_vehicle_data(store, &fleet_id, vehicle_id)? {
+                    loaded.push(data);
+                }
+            }
+            let fits: Vec<(String, FreshFits)> = loaded.par_iter().map(|d| (d.vehicle.vehicle_id.clone(), fresh_fits(d, now_ms, &settings))).collect();
+            fresh.extend(fits);
+        }
+        reestimate_priors(store, config, &fleet_id, &fresh)?;
+    }
     Ok(())
 }
 
@@ -366,6 +439,8 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
     let quiet = Duration::from_millis(state.forecast.coalesce_ms);
     let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
     let mut more_work = true; // stale marks may survive a restart
+    // Whether the next pass begins a round (see `priors_for_round`).
+    let mut round_begins = true;
     // When the current round began waiting.
     let mut round_started = std::time::Instant::now();
     // Fleets whose priors wait for the end of the round (see `refresh_pass`), and when priors
@@ -384,6 +459,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
             }
             round_started = std::time::Instant::now();
             settle(&state.wake_forecaster, &mut stop, quiet, longest).await;
+            round_begins = true;
         } else if state.wake_forecaster.notified().now_or_never().is_some() {
             // Writes arrived during the last pass: they may be a stream still going on, whose
             // vehicles would be recomputed again and again. Wait for them to pause too, within
@@ -407,8 +483,11 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let started = std::time::Instant::now();
         let priors_due = priors_estimated_at.elapsed() >= longest;
         let mut pending = std::mem::take(&mut pending_priors);
+        let prepare = std::mem::take(&mut round_begins);
         let pass = tokio::task::spawn_blocking(move || {
-            let outcome = refresh_pass(store.as_ref(), &config, crate::convert::now_ms(), &mut pending, priors_due);
+            let now_ms = crate::convert::now_ms();
+            let prepared = if prepare { priors_for_round(store.as_ref(), &config, now_ms) } else { Ok(()) };
+            let outcome = prepared.and_then(|()| refresh_pass(store.as_ref(), &config, now_ms, &mut pending, priors_due));
             (outcome, pending)
         })
         .await;

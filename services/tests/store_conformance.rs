@@ -496,6 +496,48 @@ fn dropped_on_an_async_worker(engine: &Engine) {
     assert!(engine.store.get_fleet("north").unwrap().is_some(), "the other handle still works");
 }
 
+/// A round after a burst of new data computes (and stores) each vehicle once: it begins by
+/// estimating the priors from the own fits it is about to store
+/// (`forecaster::priors_for_round`), so its end finds them where they were and marks nothing
+/// stale again. Without that step the first round ran on no priors, found them all new at its
+/// end and computed every vehicle a second time.
+fn a_round_after_new_data_computes_each_vehicle_once(engine: &Engine) {
+    use brakeledger::config::ForecastConfig;
+    use brakeledger::forecaster::{priors_for_round, refresh_pass};
+    let store = engine.store.as_ref();
+    let now = brakeledger::convert::now_ms();
+    // Twelve vehicles, 60 days of trips (50 MJ a day), and three readings of the front pads
+    // wearing 0.04 to 0.0565 mm a day: more vehicles than one pass of four takes.
+    let vehicles: Vec<String> = (1..=12).map(|n| format!("bus-{n:02}")).collect();
+    for (n, id) in vehicles.iter().enumerate() {
+        store.upsert_vehicle(&vehicle("north", id)).unwrap();
+        let trips: Vec<TripRecord> = (1..=60).map(|d| trip("north", id, &format!("t{d}"), now - d * DAY + 3_600_000, 50e6)).collect();
+        store.ingest_trips(&trips).unwrap();
+        let per_day = 0.04 + 0.0015 * n as f64;
+        for (k, days_ago) in [50i64, 30, 10].into_iter().enumerate() {
+            store.record_inspection(&inspection(id, &format!("i{k}"), 20.0 - per_day * (60 - days_ago) as f64, now - days_ago * DAY)).unwrap();
+        }
+    }
+    let config = ForecastConfig { batch_vehicles: 4, ..ForecastConfig::default() };
+    priors_for_round(store, &config, now).unwrap();
+    let priors = store.get_priors("north").unwrap().expect("priors estimated before the round");
+    assert!(priors.find("city-bus", 1, Component::Friction).is_some(), "{priors:?}");
+    let mut computed: std::collections::BTreeMap<String, usize> = std::collections::BTreeMap::new();
+    let mut pending = std::collections::BTreeSet::new();
+    for _ in 0..20 {
+        let outcome = refresh_pass(store, &config, now, &mut pending, false).unwrap();
+        for change in &outcome.changes {
+            *computed.entry(change.after.vehicle_id.clone()).or_default() += 1;
+        }
+        if !outcome.remaining {
+            break;
+        }
+    }
+    assert_eq!(computed.keys().collect::<Vec<_>>(), vehicles.iter().collect::<Vec<_>>(), "every vehicle computed");
+    assert!(computed.values().all(|n| *n == 1), "each vehicle computed once: {computed:?}");
+    assert_eq!(store.get_priors("north").unwrap().as_ref(), Some(&priors), "the round's end left the priors where they were");
+}
+
 macro_rules! conformance {
     ($($test:ident),* $(,)?) => {
         mod sled {
@@ -520,6 +562,7 @@ conformance!(
     schema_version_refused,
     backup_export_verifies,
     dropped_on_an_async_worker,
+    a_round_after_new_data_computes_each_vehicle_once,
 );
 
 // ---------------------------------------------------------------------------------------------
