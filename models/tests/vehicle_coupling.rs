@@ -71,7 +71,8 @@ fn the_coupling_matches_numpy_on_the_documented_formulas() {
     let (front_pads, rear_pads, front_rotors) = class_groups();
     let settings = ForecastSettings::default();
     let estimate = estimate_pad_coupling(&[&front_pads, &rear_pads], &front_pads, &front_rotors, &settings).expect("six vehicles");
-    // Reference: numpy 2.4 on the same numbers (x per vehicle as in the pooling docs, then
+    // Reference: numpy 2.4 on the same numbers, `tests/data/reference-scripts/vehicle_coupling.py`
+    // (x per vehicle as in the pooling docs, then
     // np.cov(x, rotor, ddof=1)[0, 1], np.var(x, ddof=1) − mean Var x, ρ = cov/(τ_x·τ_rotor)):
     // tx 6.3423181881706316e-05, rho 0.55894389004511824, slope 0.088129272840273429.
     close("τ_x", estimate.deviation_sd_mm_per_mj, 6.3423181881706316e-05);
