@@ -74,10 +74,10 @@ fn the_coupling_matches_numpy_on_the_documented_formulas() {
     // Reference: numpy 2.4 on the same numbers, `tests/data/reference-scripts/vehicle_coupling.py`
     // (x per vehicle as in the pooling docs, then
     // np.cov(x, rotor, ddof=1)[0, 1], np.var(x, ddof=1) − mean Var x, ρ = cov/(τ_x·τ_rotor)):
-    // tx 6.3423181881706316e-05, rho 0.55894389004511824, slope 0.088129272840273429.
-    close("τ_x", estimate.deviation_sd_mm_per_mj, 6.3423181881706316e-05);
-    close("ρ", estimate.coupling.correlation, 0.55894389004511824);
-    close("β", estimate.coupling.slope, 0.088129272840273429);
+    // tx 6.342318188170632e-05, rho 0.5589438900451182, slope 0.08812927284027343.
+    close("τ_x", estimate.deviation_sd_mm_per_mj, 6.342318188170632e-05);
+    close("ρ", estimate.coupling.correlation, 0.5589438900451182);
+    close("β", estimate.coupling.slope, 0.08812927284027343);
     assert_eq!(estimate.coupling.vehicles, 6);
     // With the front pads alone, the coupling reads one pad per vehicle and differs.
     let own_only = estimate_pad_coupling(&[&front_pads], &front_pads, &front_rotors, &settings).expect("six vehicles");

@@ -113,8 +113,8 @@ fn each_component_fits_with_its_own_recency_half_life() {
     let settings = ForecastSettings::default();
     assert_eq!((settings.fit_half_life_days, settings.disc_fit_half_life_days), (180.0, 730.0));
     for (component, rate, residual_sd, stderr) in [
-        (Component::Disc, 8.0083289183518344e-05, 0.086015662692737832, 2.6534039822361991e-06),
-        (Component::Friction, 7.8870732548271916e-05, 0.065032744127439243, 2.2150762954460017e-06),
+        (Component::Disc, 8.008328918351834e-05, 0.08601566269273783, 2.653403982236199e-06),
+        (Component::Friction, 7.887073254827192e-05, 0.06503274412743924, 2.2150762954460017e-06),
     ] {
         let history = weighted_history(component);
         for fit in [fit_part_any_sign(&history, &settings).expect("fit"), fit_part_any_sign_by_qr(&history, &settings).expect("fit")] {

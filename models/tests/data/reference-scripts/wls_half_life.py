@@ -10,4 +10,4 @@ for name, h in [("rotor", 730.0), ("pad", 180.0)]:
     (k,), rss, _, _ = np.linalg.lstsq((sw * x)[:, None], sw * y, rcond=None)
     s2 = rss[0] / (len(x) - 1)
     se = np.sqrt(s2 / np.sum(w * x * x))
-    print(name, "k %.17g residual_sd %.17g stderr %.17g" % (k, np.sqrt(s2), se))
+    print(name, "k", repr(float(k)), "residual_sd", repr(float(np.sqrt(s2))), "stderr", repr(float(se)))
