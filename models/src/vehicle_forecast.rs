@@ -75,11 +75,14 @@ pub fn forecast_vehicle_fitted<'p>(
             Component::Friction => g.predictive_for(vehicle_key, settings),
             Component::Disc => {
                 // The vehicle's pad deviation over every axle whose pad has a rate, stated in
-                // this axle's pad (pooling docs); needs this axle's own pad.
+                // this axle's pad (pooling docs); needs this axle's own pad. Summed in axle
+                // order, so the answer does not depend on the order of `parts`.
                 let own_pad = pads.iter().find(|p| p.0 == axle).map(|p| p.3);
                 let deviation = own_pad.and_then(|own| {
-                    let readings = pads.iter().map(|(_, mean, variance, prior)| (*mean, *variance, prior.mean_mm_per_mj));
-                    vehicle_pad_deviation(readings, own.mean_mm_per_mj).map(|(x, v)| (own, x, v))
+                    let mut readings: Vec<(u32, (f64, f64, f64))> =
+                        pads.iter().map(|(a, mean, variance, prior)| (*a, (*mean, *variance, prior.mean_mm_per_mj))).collect();
+                    readings.sort_by_key(|r| r.0);
+                    vehicle_pad_deviation(readings.into_iter().map(|r| r.1), own.mean_mm_per_mj).map(|(x, v)| (own, x, v))
                 });
                 match deviation {
                     Some((own, x, v)) => g.predictive_given_pad(vehicle_key, (own.mean_mm_per_mj + x, v), &own, settings),
