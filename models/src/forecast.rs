@@ -269,7 +269,7 @@ fn choose_rate(
     let autocorrelation = prior.map_or(0.0, |p| p.residual_autocorrelation);
     let (own, sigma) = own_estimate(history, own_fit, sigma0, autocorrelation, settings);
     let fleet = |p: &RatePrior| RateEstimate { mean: p.mean_mm_per_mj, variance: p.variance, basis: ForecastBasis::FleetPrior, inspections: 0 };
-    let from_pad = |p: &RatePrior| if p.from_pad { " and this axle's own pad (lining) rate" } else { "" };
+    let from_pad = |p: &RatePrior| if p.from_pad { " and this vehicle's pad (lining) rates" } else { "" };
     let rate = match (own, prior) {
         (Some((k, v, inspections)), Some(p)) => {
             // A wear rate cannot be negative: the prior is lognormal (positive), or, where the

@@ -3,7 +3,7 @@
 //!
 //! Steps: (1) [`crate::wear_fit::fit_part_any_sign`] on every part; (2)
 //! [`estimate_group_priors`]: [`crate::estimate_prior`] over the fits of each group (vehicle
-//! class, axle, component), then each rotor group's coupling to its pads; (3)
+//! class, axle, component), then each rotor group's coupling to its vehicles' pads; (3)
 //! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
 //! prior it is shrunk toward.
 
@@ -15,7 +15,7 @@ use rayon::prelude::*;
 
 use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
-use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, PadCoupling, WearPrior};
+use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, CouplingEstimate, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData, PartForecast};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
@@ -36,7 +36,7 @@ pub struct GroupKey {
 #[derive(Debug, Clone, PartialEq)]
 pub struct PartInput {
     /// The vehicle the part belongs to (unique within the inputs of one call): parts of one
-    /// vehicle and axle are modelled together (a rotor borrows from its own pad).
+    /// vehicle and axle are modelled together (a rotor borrows from the vehicle's pads).
     pub vehicle_id: String,
     /// Pooling group.
     pub group: GroupKey,
@@ -58,7 +58,8 @@ pub struct PartResult {
 }
 
 /// Estimates every group's prior from `(group, vehicle key, own fit)` triples, then the pad
-/// coupling of each rotor (drum) group from the pad (lining) group of the same class and axle.
+/// coupling of each rotor (drum) group from the pad (lining) groups of the same class (the
+/// vehicle's pad deviation over its axles, [`crate::pooling`]).
 /// The groups and fits may be owned or borrowed (`GroupKey` or `&GroupKey`, `WearFit` or
 /// `&WearFit`); the groups' priors are estimated in parallel.
 pub fn estimate_group_priors<G, F>(fits: impl IntoIterator<Item = (G, u64, F)>, settings: &ForecastSettings) -> HashMap<GroupKey, WearPrior>
@@ -74,23 +75,28 @@ where
         .into_par_iter()
         .filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k.borrow().clone(), p)))
         .collect();
-    let couplings: Vec<(GroupKey, PadCoupling)> = priors
+    let couplings: Vec<(GroupKey, CouplingEstimate)> = priors
         .iter()
         .filter(|(k, _)| k.component == Component::Disc)
         .filter_map(|(k, rotor)| {
-            let pad_key = GroupKey { component: Component::Friction, ..k.clone() };
-            let pad = priors.get(&pad_key)?;
-            estimate_pad_coupling(pad, rotor, settings).map(|c| (k.clone(), c))
+            let own_pad = priors.get(&GroupKey { component: Component::Friction, ..k.clone() })?;
+            // Every pad group of the class, in axle order (the sums do not depend on the map).
+            let mut class_pads: Vec<(u32, &WearPrior)> = priors
+                .iter()
+                .filter(|(g, _)| g.component == Component::Friction && g.vehicle_class == k.vehicle_class)
+                .map(|(g, p)| (g.axle_index, p))
+                .collect();
+            class_pads.sort_by_key(|(axle, _)| *axle);
+            let pads: Vec<&WearPrior> = class_pads.into_iter().map(|(_, p)| p).collect();
+            estimate_pad_coupling(&pads, own_pad, rotor, settings).map(|c| (k.clone(), c))
         })
         .collect();
     // Each group's correlation shrunk toward the fleet's (pooling docs); β follows it.
-    let pooled = pool_pad_rotor_correlations(&couplings.iter().map(|(_, c)| (c.correlation, c.vehicles)).collect::<Vec<_>>());
+    let pooled = pool_pad_rotor_correlations(&couplings.iter().map(|(_, c)| (c.coupling.correlation, c.coupling.vehicles)).collect::<Vec<_>>());
     for ((k, c), correlation) in couplings.into_iter().zip(pooled) {
-        let pad_key = GroupKey { component: Component::Friction, ..k.clone() };
-        let pad_sd = priors.get(&pad_key).map_or(f64::NAN, |p| p.between_sd_mm_per_mj);
         if let Some(p) = priors.get_mut(&k) {
-            let slope = correlation * p.between_sd_mm_per_mj / pad_sd;
-            p.pad_coupling = Some(if slope.is_finite() { PadCoupling { correlation, slope, ..c } } else { c });
+            let slope = correlation * p.between_sd_mm_per_mj / c.deviation_sd_mm_per_mj;
+            p.pad_coupling = Some(if slope.is_finite() { PadCoupling { correlation, slope, ..c.coupling } } else { c.coupling });
         }
     }
     priors

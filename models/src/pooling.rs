@@ -1,5 +1,5 @@
 //! Fleet pooling: the population distribution of wear rates within a group (vehicle class,
-//! axle, component), the prior it gives one vehicle, and a rotor's borrowing from its own pad.
+//! axle, component), the prior it gives one vehicle, and a rotor's borrowing from its vehicle's pads.
 //!
 //! # Model
 //! Random-coefficient degradation (Lu & Meeker 1993, Technometrics 35:161): vehicle `i` has
@@ -31,18 +31,31 @@
 //! (between-vehicle variance plus the uncertainty of the pooled mean). τ² itself is kept from
 //! the whole group.
 //!
-//! **A rotor borrows from its own pad.** Pad and rotor of one brake share the vehicle's duty,
-//! so within a class and axle their rates are modelled as bivariate normal with correlation
-//! `ρ_pr = Cov(k̂_pad, k̂_rotor)/(τ_pad·τ_rotor)` (the estimates' errors are independent, so the
-//! sample covariance of the estimates estimates the covariance of the true rates), clamped to
-//! ±0.9. Given the pad's posterior `N(m_p, v_p)` and its prior mean `μ_p`, the rotor's prior is
-//! the conditional normal:
+//! **A rotor borrows from its vehicle's pads.** Pad and rotor of one brake share the vehicle's
+//! duty, and every brake of a vehicle shares its driver, load and routes, so a rotor's rate is
+//! modelled as bivariate normal with the vehicle's *pad deviation* `x`: the mean over the
+//! vehicle's axles of each pad's relative deviation from its group's mean, stated in the units
+//! of this axle's pad ([`vehicle_pad_deviation`]):
 //! ```text
-//! β = ρ_pr·τ_rotor/τ_pad
-//! mean = μ_rotor,₋ᵢ + β·(m_p − μ_p),   variance = τ_rotor²·(1 − ρ_pr²) + β²·v_p + 1/W₋ᵢ
+//! x = μ_p · (1/n)·Σ_b (k_b − μ_b)/μ_b,      Var x = μ_p² · (1/n²)·Σ_b v_b/μ_b²
+//! ```
+//! (`b` runs over the `n` axles whose pad has a rate, `μ_p` is this axle's pad group mean; with
+//! one axle, `x = k_pad − μ_p`). The pads of the other axles see the vehicle's share of the
+//! rotor's rate through readings of their own, so the vehicle's part is less blurred by any one
+//! pad's own factor. Within a class and axle, from the vehicles with both fits,
+//! `τ_x² = Var(x̂) − mean Var(x̂ | x)` (the spread of the true deviations: the observed spread
+//! less the estimates' error variance, a method-of-moments correction for error in the
+//! regressor; Fuller, *Measurement Error Models*, 1987, §1.1, recalled from memory), floored as
+//! τ is, and `ρ_pr = Cov(x̂, k̂_rotor)/(τ_x·τ_rotor)` (the estimates' errors are independent,
+//! so the sample covariance of the estimates estimates that of the true rates), clamped to
+//! ±0.9. Given the vehicle's pad deviation from the pads' posteriors, `N(x, v_x)`, the rotor's
+//! prior is the conditional normal:
+//! ```text
+//! β = ρ_pr·τ_rotor/τ_x
+//! mean = μ_rotor,₋ᵢ + β·x,   variance = τ_rotor²·(1 − ρ_pr²) + β²·v_x + 1/W₋ᵢ
 //! ```
 //! so a rotor whose own change is still within gauge noise is forecast from the fleet and from
-//! its own pad's rate. One group's ρ_pr rests on some thirty vehicles and scatters widely by
+//! its vehicle's pad rates. One group's ρ_pr rests on some thirty vehicles and scatters widely by
 //! chance, so the groups of a fleet are pooled on Fisher's z scale and each group's ρ_pr is
 //! shrunk toward the fleet's ([`pool_pad_rotor_correlations`]); β follows the shrunk ρ_pr.
 //!
@@ -79,12 +92,14 @@ pub struct PriorMember {
     pub rate_variance: f64,
 }
 
-/// How the rotors (drums) of a group follow their own pads (linings).
+/// How the rotors (drums) of a group follow their vehicles' pads (linings).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct PadCoupling {
-    /// Correlation between a vehicle's true pad and rotor rates within the group.
+    /// Correlation between a vehicle's true pad deviation (module docs) and rotor rate within
+    /// the group.
     pub correlation: f64,
-    /// β: rotor rate change per unit pad rate change, (mm/MJ)/(mm/MJ).
+    /// β: rotor rate change per unit change of the vehicle's pad deviation, stated in this
+    /// axle's pad rate, (mm/MJ)/(mm/MJ).
     pub slope: f64,
     /// Vehicles with both fits behind the estimate.
     pub vehicles: u32,
@@ -128,7 +143,7 @@ pub struct RatePrior {
     pub residual_sd_mm: f64,
     /// The group's residual autocorrelation ρ.
     pub residual_autocorrelation: f64,
-    /// Whether the mean was moved by the vehicle's own pad (a rotor or drum).
+    /// Whether the mean was moved by the vehicle's pads (a rotor or drum).
     pub from_pad: bool,
     /// Log-SD of the drift of the wear rate from today on ([`wear_drift_sd`]).
     pub rate_drift_sd: f64,
@@ -275,8 +290,10 @@ impl WearPrior {
         }
     }
 
-    /// The prior of a rotor (drum) of vehicle `vehicle_key` given its own pad's posterior rate
-    /// `(mean, variance)` and the pad's prior (module docs). Without a coupling it is
+    /// The prior of a rotor (drum) of vehicle `vehicle_key` given its own pad's prior and the
+    /// vehicle's pad deviation `(x, v_x)` added to that prior's mean: `pad_posterior` =
+    /// `(μ_p + x, v_x)` (module docs; with one axle, simply the pad's posterior rate `(mean,
+    /// variance)`). Without a coupling it is
     /// [`Self::predictive_for`]. The rotor's drift allowance is at least its pad's: both wear on
     /// one brake at one temperature.
     pub fn predictive_given_pad(&self, vehicle_key: u64, pad_posterior: (f64, f64), pad_prior: &RatePrior, settings: &ForecastSettings) -> RatePrior {
@@ -303,29 +320,74 @@ impl WearPrior {
     }
 }
 
-/// Estimates how a rotor (drum) group follows the pad (lining) group of the same class and axle
-/// from the vehicles with both fits in the two priors (module docs). `None` with fewer than
-/// `settings.min_coupling_vehicles` such vehicles.
-pub fn estimate_pad_coupling(pad: &WearPrior, rotor: &WearPrior, settings: &ForecastSettings) -> Option<PadCoupling> {
-    let pairs: Vec<(f64, f64)> = rotor
+/// The vehicle's pad deviation `(x, Var x)` (module docs) from `(rate, variance, group mean)`
+/// of each of its pads (mm/MJ, (mm/MJ)², mm/MJ), in the units of a pad whose group mean is
+/// `own_group_mean_mm_per_mj`. Readings with a non-finite value or a non-positive group mean
+/// are skipped; `None` when none is left.
+pub fn vehicle_pad_deviation(readings: impl IntoIterator<Item = (f64, f64, f64)>, own_group_mean_mm_per_mj: f64) -> Option<(f64, f64)> {
+    let (mut deviation, mut variance, mut n) = (0.0, 0.0, 0usize);
+    for (rate, rate_variance, group_mean) in readings {
+        if !(rate.is_finite() && rate_variance.is_finite() && group_mean.is_finite() && group_mean > 0.0) {
+            continue;
+        }
+        deviation += (rate - group_mean) / group_mean;
+        variance += rate_variance.max(0.0) / (group_mean * group_mean);
+        n += 1;
+    }
+    if n == 0 || !own_group_mean_mm_per_mj.is_finite() {
+        return None;
+    }
+    let n = n as f64;
+    let scale = own_group_mean_mm_per_mj;
+    Some((scale * deviation / n, scale * scale * variance / (n * n)))
+}
+
+/// How a rotor (drum) group follows its vehicles' pads (linings), with the spread `τ_x` of the
+/// true pad deviations (mm/MJ) its slope was computed with.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CouplingEstimate {
+    /// The coupling (correlation, slope β, vehicles).
+    pub coupling: PadCoupling,
+    /// τ_x, mm/MJ: β = ρ_pr·τ_rotor/τ_x.
+    pub deviation_sd_mm_per_mj: f64,
+}
+
+/// Estimates how a rotor (drum) group follows the vehicle's pad deviation (module docs) from the
+/// vehicles with an own fit in `rotor` and in `own_pad` (the pad group of the same class and
+/// axle); `pads` are the pad groups of every axle of the class (`own_pad` among them), in axle
+/// order. `None` with fewer than `settings.min_coupling_vehicles` such vehicles.
+pub fn estimate_pad_coupling(pads: &[&WearPrior], own_pad: &WearPrior, rotor: &WearPrior, settings: &ForecastSettings) -> Option<CouplingEstimate> {
+    // (x̂, Var(x̂ | x), k̂_rotor) per vehicle.
+    let triples: Vec<(f64, f64, f64)> = rotor
         .members
         .iter()
-        .filter_map(|r| pad.member(r.vehicle_key).map(|p| (p.rate_mm_per_mj, r.rate_mm_per_mj)))
+        .filter(|r| own_pad.member(r.vehicle_key).is_some())
+        .filter_map(|r| {
+            let readings = pads.iter().filter_map(|p| p.member(r.vehicle_key).map(|m| (m.rate_mm_per_mj, m.rate_variance, p.mean_mm_per_mj)));
+            vehicle_pad_deviation(readings, own_pad.mean_mm_per_mj).map(|(x, v)| (x, v, r.rate_mm_per_mj))
+        })
         .collect();
-    let n = pairs.len();
+    let n = triples.len();
     if n < settings.min_coupling_vehicles.max(3) {
         return None;
     }
     let nf = n as f64;
-    let mp = pairs.iter().map(|p| p.0).sum::<f64>() / nf;
-    let mr = pairs.iter().map(|p| p.1).sum::<f64>() / nf;
-    let cov = pairs.iter().map(|p| (p.0 - mp) * (p.1 - mr)).sum::<f64>() / (nf - 1.0);
-    let (tp, tr) = (pad.between_sd_mm_per_mj, rotor.between_sd_mm_per_mj);
-    if !(tp > 0.0 && tr > 0.0 && cov.is_finite()) {
+    let mx = triples.iter().map(|t| t.0).sum::<f64>() / nf;
+    let mr = triples.iter().map(|t| t.2).sum::<f64>() / nf;
+    let cov = triples.iter().map(|t| (t.0 - mx) * (t.2 - mr)).sum::<f64>() / (nf - 1.0);
+    let spread = triples.iter().map(|t| (t.0 - mx).powi(2)).sum::<f64>() / (nf - 1.0);
+    let error = triples.iter().map(|t| t.1).sum::<f64>() / nf;
+    let floor = settings.between_sd_floor_fraction.max(0.0) * own_pad.mean_mm_per_mj;
+    let tx = (spread - error).max(floor * floor).sqrt();
+    let tr = rotor.between_sd_mm_per_mj;
+    if !(tx > 0.0 && tr > 0.0 && cov.is_finite()) {
         return None;
     }
-    let correlation = (cov / (tp * tr)).clamp(-MAX_PAD_ROTOR_CORRELATION, MAX_PAD_ROTOR_CORRELATION);
-    Some(PadCoupling { correlation, slope: correlation * tr / tp, vehicles: n as u32 })
+    let correlation = (cov / (tx * tr)).clamp(-MAX_PAD_ROTOR_CORRELATION, MAX_PAD_ROTOR_CORRELATION);
+    Some(CouplingEstimate {
+        coupling: PadCoupling { correlation, slope: correlation * tr / tx, vehicles: n as u32 },
+        deviation_sd_mm_per_mj: tx,
+    })
 }
 
 /// Shrinks each rotor (drum) group's pad–rotor correlation toward the fleet's, given each

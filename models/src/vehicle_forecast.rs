@@ -1,12 +1,13 @@
 //! All parts of one vehicle forecast together: pads (linings) first, then rotors (drums), each
-//! borrowing from its own axle's pad rate through the group's pad coupling
+//! borrowing from the vehicle's pad rates (its own axle's and the others') through the group's
+//! pad coupling
 //! ([`crate::pooling`]). The service and the in-crate pipeline both forecast through here, so
 //! one vehicle gets the same answer from either.
 
 use crate::domain::Component;
 use crate::energy_rate::{energy_window, EnergyRate};
 use crate::forecast::{forecast_part_with_energy, recent_energy, PartOutlook};
-use crate::pooling::{RatePrior, WearPrior};
+use crate::pooling::{vehicle_pad_deviation, RatePrior, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
@@ -72,10 +73,22 @@ pub fn forecast_vehicle_fitted<'p>(
         let group = prior_of(axle, part.history.component);
         let prior = group.map(|g| match part.history.component {
             Component::Friction => g.predictive_for(vehicle_key, settings),
-            Component::Disc => match pads.iter().find(|p| p.0 == axle) {
-                Some((_, mean, variance, pad_prior)) => g.predictive_given_pad(vehicle_key, (*mean, *variance), pad_prior, settings),
-                None => g.predictive_for(vehicle_key, settings),
-            },
+            Component::Disc => {
+                // The vehicle's pad deviation over every axle whose pad has a rate, stated in
+                // this axle's pad (pooling docs); needs this axle's own pad. Summed in axle
+                // order, so the answer does not depend on the order of `parts`.
+                let own_pad = pads.iter().find(|p| p.0 == axle).map(|p| p.3);
+                let deviation = own_pad.and_then(|own| {
+                    let mut readings: Vec<(u32, (f64, f64, f64))> =
+                        pads.iter().map(|(a, mean, variance, prior)| (*a, (*mean, *variance, prior.mean_mm_per_mj))).collect();
+                    readings.sort_by_key(|r| r.0);
+                    vehicle_pad_deviation(readings.into_iter().map(|r| r.1), own.mean_mm_per_mj).map(|(x, v)| (own, x, v))
+                });
+                match deviation {
+                    Some((own, x, v)) => g.predictive_given_pad(vehicle_key, (own.mean_mm_per_mj + x, v), &own, settings),
+                    None => g.predictive_for(vehicle_key, settings),
+                }
+            }
         });
         let own_fit = own_fits[index].take();
         // Pad and rotor of one axle brake on the same energy: estimate it once per window.

@@ -26,6 +26,7 @@
 use ndarray::{Array1, Array2};
 use serde::{Deserialize, Serialize};
 
+use crate::domain::Component;
 use crate::error::ModelError;
 use crate::settings::ForecastSettings;
 use crate::line_fit::{fit_line, WeightedPoint};
@@ -127,6 +128,15 @@ fn recency_weight(age_days: f64, half_life_days: f64) -> f64 {
     }
 }
 
+/// The recency half-life of a part's fit, days: [`ForecastSettings::fit_half_life_days`] for a
+/// pad or lining, [`ForecastSettings::disc_fit_half_life_days`] for a rotor or drum.
+pub fn fit_half_life_days(history: &PartHistory, settings: &ForecastSettings) -> f64 {
+    match history.component {
+        Component::Friction => settings.fit_half_life_days,
+        Component::Disc => settings.disc_fit_half_life_days,
+    }
+}
+
 fn usable(cycle: &WearCycle) -> bool {
     match cycle.start {
         Some(_) => !cycle.points.is_empty(),
@@ -194,7 +204,7 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
             let point = WeightedPoint {
                 x: p.energy_mj - origin,
                 y: reference_mm - p.thickness_mm,
-                weight: recency_weight(latest_day - p.day, settings.fit_half_life_days),
+                weight: recency_weight(latest_day - p.day, fit_half_life_days(history, settings)),
                 group,
             };
             (ci, point)
@@ -282,7 +292,7 @@ fn least_squares_fit(history: &PartHistory, cycles: &[WearCycle], settings: &For
             } else if bedding {
                 row[p - 1] = 1.0;
             }
-            let weight = recency_weight(latest_day - point.day, settings.fit_half_life_days).sqrt();
+            let weight = recency_weight(latest_day - point.day, fit_half_life_days(history, settings)).sqrt();
             rows.extend(row.iter().map(|v| v * weight));
             y.push((reference_mm - point.thickness_mm) * weight);
         }

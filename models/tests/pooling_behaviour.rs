@@ -100,7 +100,7 @@ fn a_rotor_borrows_from_its_own_pad() {
     let rotors: Vec<(u64, WearFit)> = keys.iter().zip(&pad_rates).map(|(k, r)| (*k, fit_with(0.1 * r, 0.05))).collect();
     let pad_prior = estimate_prior(&pads, &settings).expect("pad prior");
     let mut rotor_prior = estimate_prior(&rotors, &settings).expect("rotor prior");
-    let coupling = estimate_pad_coupling(&pad_prior, &rotor_prior, &settings).expect("coupling");
+    let coupling = estimate_pad_coupling(&[&pad_prior], &pad_prior, &rotor_prior, &settings).expect("coupling").coupling;
     assert!(coupling.correlation > 0.5, "ρ = {}", coupling.correlation);
     rotor_prior.pad_coupling = Some(coupling);
     // A new vehicle with a fast pad: its rotor prior moves up, and narrows.

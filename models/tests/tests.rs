@@ -9,5 +9,6 @@ mod invariants;
 mod nist_least_squares;
 mod pooling_behaviour;
 mod pooling_reference;
+mod vehicle_coupling;
 mod simulator_checks;
 mod wear_fit_paths;

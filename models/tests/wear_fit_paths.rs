@@ -8,7 +8,8 @@ use brakeledger_models::calibration::vehicle_inputs;
 use brakeledger_models::simulator::{simulate, SimConfig, SimulatedFleet};
 use brakeledger_models::stress_fleet::{simulate_stress, StressConfig};
 use brakeledger_models::wear_fit::{fit_part_any_sign, fit_part_any_sign_by_qr};
-use brakeledger_models::{ForecastSettings, PartHistory, WearFit};
+use brakeledger_models::domain::Component;
+use brakeledger_models::{ForecastSettings, PartEvent, PartEventKind, PartHistory, WearFit};
 
 fn histories(fleet: &SimulatedFleet) -> Vec<PartHistory> {
     fleet.vehicles.iter().flat_map(|v| vehicle_inputs(v, fleet.start_day, fleet.cut_day, 120)).map(|(_, i)| i.history).collect()
@@ -68,7 +69,7 @@ fn closed_form_wear_fit_matches_linfa_on_simulated_fleets() {
     ];
     let variants = [
         ("defaults", ForecastSettings::default()),
-        ("no recency weights", ForecastSettings { fit_half_life_days: f64::INFINITY, ..ForecastSettings::default() }),
+        ("no recency weights", ForecastSettings { fit_half_life_days: f64::INFINITY, disc_fit_half_life_days: f64::INFINITY, ..ForecastSettings::default() }),
         ("bedding intercept", ForecastSettings { bedding_intercept: true, ..ForecastSettings::default() }),
     ];
     let (mut fitted, mut intercepts) = (0, 0);
@@ -91,4 +92,35 @@ fn closed_form_wear_fit_matches_linfa_on_simulated_fleets() {
     }
     // The comparison covered lines through the origin and lines with intercepts.
     assert!(intercepts > 100 && fitted - intercepts > 100, "{fitted} fits, {intercepts} with intercepts");
+}
+
+/// One part fitted new (30 mm) at day 19 000 and inspected four times (invented readings).
+fn weighted_history(component: Component) -> PartHistory {
+    let event = |day: f64, cumulative_energy_mj: f64, kind: PartEventKind| PartEvent { day, cumulative_energy_mj, cumulative_hot_energy_mj: 0.0, kind };
+    let mut events = vec![event(19_000.0, 0.0, PartEventKind::Replacement { new_thickness_mm: 30.0 })];
+    for (day, energy, thickness_mm) in [(19_100.0, 4_000.0, 29.6), (19_300.0, 11_000.0, 29.1), (19_500.0, 18_500.0, 28.4), (19_700.0, 26_000.0, 28.0)] {
+        events.push(event(day, energy, PartEventKind::Inspection { thickness_mm }));
+    }
+    PartHistory { axle_index: 1, component, new_thickness_mm: 30.0, min_thickness_mm: 2.0, events }
+}
+
+/// A rotor's fit weighs older readings by its own half-life (730 days), a pad's by 180 days:
+/// weighted least squares through the origin with weights 2^(−age/h), against numpy 2.4
+/// (`np.linalg.lstsq` on √w-scaled rows, s² = Σwe²/(n − 1), se = √(s²/Σwx²); the script in
+/// `tests/data/reference-scripts/wls_half_life.py`). The same readings give each part its own rate.
+#[test]
+fn each_component_fits_with_its_own_recency_half_life() {
+    let settings = ForecastSettings::default();
+    assert_eq!((settings.fit_half_life_days, settings.disc_fit_half_life_days), (180.0, 730.0));
+    for (component, rate, residual_sd, stderr) in [
+        (Component::Disc, 8.008328918351834e-05, 0.08601566269273783, 2.653403982236199e-06),
+        (Component::Friction, 7.887073254827192e-05, 0.06503274412743924, 2.2150762954460017e-06),
+    ] {
+        let history = weighted_history(component);
+        for fit in [fit_part_any_sign(&history, &settings).expect("fit"), fit_part_any_sign_by_qr(&history, &settings).expect("fit")] {
+            for (name, got, reference) in [("rate", fit.rate_mm_per_mj, rate), ("residual SD", fit.residual_sd_mm, residual_sd), ("standard error", fit.rate_stderr_mm_per_mj, stderr)] {
+                assert!((got / reference - 1.0).abs() < 1e-10, "{component:?} {name}: {got} vs numpy {reference}");
+            }
+        }
+    }
 }
