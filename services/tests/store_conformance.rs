@@ -721,5 +721,5 @@ fn sled_backup_restores_into_postgres_and_exports_the_same_entries() {
     let again = brakeledger::store::postgres::backup::restore(&from_sled, &database.url);
     assert!(matches!(again, Err(backup_file::BackupError::TargetNotEmpty(_))), "{again:?}");
     // And back: the PostgreSQL backup restores into an empty sled directory.
-    backup_file::restore(&from_postgres, &dir.path().join("back"), 8 << 20).unwrap();
+    backup_file::restore(&from_postgres, &dir.path().join("back"), brakeledger::store::sled_engine::PageSettings::with_cache(8 << 20)).unwrap();
 }

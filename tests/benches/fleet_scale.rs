@@ -129,11 +129,8 @@ fn store_alone(trips: &[pb::TripSummary]) -> (f64, f64, f64) {
 /// service configures it for a new directory (`sled_engine::sled_config`). Trips/s.
 fn engine_alone_baseline(trips: &[pb::TripSummary], compressed: bool) -> f64 {
     let dir = tempfile::tempdir().expect("temp dir");
-    let config = if compressed {
-        brakeledger::store::sled_engine::sled_config(dir.path(), 64 << 20)
-    } else {
-        sled::Config::new().path(dir.path()).cache_capacity(64 << 20)
-    };
+    let pages = brakeledger::store::sled_engine::PageSettings { cache_capacity_bytes: 64 << 20, compress_new_directories: compressed };
+    let config = brakeledger::store::sled_engine::sled_config(dir.path(), pages);
     let db = config.open().expect("sled");
     let tree = db.open_tree("trips").expect("tree");
     let started = Instant::now();

@@ -31,7 +31,7 @@ fn main() {
     eprintln!("mode {mode}, {total} trips, cache {cache_mib} MiB; start rss {:.1}", rss_mib());
     match mode.as_str() {
         "store" => {
-            let options = brakeledger::store::sled_store::StoreOptions { cache_capacity_bytes: cache_mib << 20, ..Default::default() };
+            let options = brakeledger::store::sled_store::StoreOptions { pages: brakeledger::store::sled_engine::PageSettings::with_cache(cache_mib << 20), ..Default::default() };
             let store = brakeledger::store::sled_store::SledStore::open_with(dir.path(), &options).expect("store");
             let mut done = 0;
             for chunk in order.chunks(2000) {

@@ -9,7 +9,7 @@ use brakeledger_proto::v1 as pb;
 use tokio_stream::StreamExt;
 
 use crate::cli::client::{explain, Connection, ServerTarget};
-use crate::config::StorageConfig;
+use crate::store::sled_engine::PageSettings;
 use crate::store::backup_file::{self, BackupSummary};
 use crate::store::integrity::{self, Mode};
 
@@ -61,8 +61,7 @@ pub struct VerifyBackupArgs {
 
 /// `check`: verifies a data directory offline.
 pub fn check(args: &CheckArgs, out: &mut impl Write) -> anyhow::Result<()> {
-    let cache = StorageConfig::default().cache_capacity_bytes;
-    let (_, findings) = integrity::open(&args.data, cache, Mode::Check).with_context(|| format!("checking {}", args.data.display()))?;
+    let (_, findings) = integrity::open(&args.data, PageSettings::default(), Mode::Check).with_context(|| format!("checking {}", args.data.display()))?;
     if !findings.is_sound() {
         writeln!(out, "{findings}")?;
         anyhow::bail!("{} problem(s) found in {}; restore from a backup (brakeledger restore)", findings.lines.len(), args.data.display());
@@ -97,8 +96,7 @@ pub fn verify_backup(args: &VerifyBackupArgs, out: &mut impl Write) -> anyhow::R
 /// `restore`.
 pub fn restore(args: &RestoreArgs, out: &mut impl Write) -> anyhow::Result<()> {
     if let Some(dir) = &args.data {
-        let cache = StorageConfig::default().cache_capacity_bytes;
-        let summary = backup_file::restore(&args.from, dir, cache).with_context(|| format!("restoring {} into {}", args.from.display(), dir.display()))?;
+        let summary = backup_file::restore(&args.from, dir, PageSettings::default()).with_context(|| format!("restoring {} into {}", args.from.display(), dir.display()))?;
         writeln!(out, "restored {} into {}; forecasts are recomputed when the server starts", describe(&args.from, &summary), dir.display())?;
         return Ok(());
     }

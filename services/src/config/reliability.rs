@@ -90,6 +90,12 @@ pub struct StorageConfig {
     /// Page cache of the storage engine, bytes. Default 64 MiB (sled's own default is 1 GB,
     /// which made memory grow with every write until it was reached).
     pub cache_capacity_bytes: u64,
+    /// Whether a data directory created from now on compresses its pages (zstd level 1).
+    /// Default true: about a third of the disk and of the bytes written, at the price of
+    /// CPU on every page written and every page read back from disk (BENCHMARKS.md, "Fleet
+    /// scale"). A directory keeps the setting it was made with; sled cannot change it later
+    /// (a backup restored into a new directory takes the current one).
+    pub compress_new_directories: bool,
     /// Free space, bytes, kept on the data directory's file system: writes are refused with
     /// RESOURCE_EXHAUSTED below it, before the engine hits a full disk. Default 64 MiB.
     pub min_free_bytes: u64,
@@ -107,6 +113,7 @@ impl Default for StorageConfig {
     fn default() -> Self {
         Self {
             cache_capacity_bytes: 64 * 1024 * 1024,
+            compress_new_directories: true,
             min_free_bytes: 64 * 1024 * 1024,
             space_check_interval_ms: 1000,
             change_feed_capacity: 4096,

@@ -33,7 +33,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use super::ledger::{Ledger, LedgerState, Tallies};
-use super::sled_engine::{checked_body, tally_entry, Engine, RECORD_TREES, SCHEMA_VERSION};
+use super::sled_engine::{checked_body, tally_entry, Engine, PageSettings, RECORD_TREES, SCHEMA_VERSION};
 use super::StoreError;
 
 /// The first bytes of every backup file.
@@ -347,7 +347,7 @@ pub fn verify(path: &Path) -> Result<BackupSummary, BackupError> {
 /// Restores a verified backup into `dir`, which must be empty or not exist: the records, a
 /// fresh acknowledged-write ledger with the file's tallies, and every vehicle marked for
 /// forecast recomputation. The file is verified completely before anything is written.
-pub fn restore(path: &Path, dir: &Path, cache_capacity_bytes: u64) -> Result<BackupSummary, BackupError> {
+pub fn restore(path: &Path, dir: &Path, pages: PageSettings) -> Result<BackupSummary, BackupError> {
     if dir.exists() {
         let mut listing = std::fs::read_dir(dir)?;
         if listing.next().is_some() {
@@ -356,7 +356,7 @@ pub fn restore(path: &Path, dir: &Path, cache_capacity_bytes: u64) -> Result<Bac
     }
     verify(path)?;
     std::fs::create_dir_all(dir)?;
-    let engine = Engine::from_db(super::sled_engine::sled_config(dir, cache_capacity_bytes).open().map_err(StoreError::from)?)?;
+    let engine = Engine::from_db(super::sled_engine::sled_config(dir, pages).open().map_err(StoreError::from)?)?;
     let mut batch: Vec<(Vec<u8>, Vec<u8>)> = Vec::new();
     let mut batch_tree = String::new();
     let summary = read(File::open(path)?, |tree, key, value| {
@@ -463,7 +463,7 @@ mod tests {
         let path = dir.path().join("old-backup");
         std::fs::write(&path, &bytes).unwrap();
         let target = dir.path().join("restored");
-        let summary = restore(&path, &target, 8 << 20).expect("a schema-3 backup restores");
+        let summary = restore(&path, &target, PageSettings::with_cache(8 << 20)).expect("a schema-3 backup restores");
         assert_eq!(summary.tallies.totals().trips.count, 5);
         let store = SledStore::open(&target).expect("the restored directory matches its ledger");
         assert_eq!(store.vehicle_trips("north", "van-1").unwrap(), trips);

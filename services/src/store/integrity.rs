@@ -14,7 +14,7 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
 
 use super::ledger::{Ledger, LedgerError, LedgerState};
-use super::sled_engine::{Engine, SCHEMA_VERSION};
+use super::sled_engine::{Engine, PageSettings, SCHEMA_VERSION};
 use super::{StoreError, StoreResult};
 use crate::config::OnMismatch;
 
@@ -145,8 +145,8 @@ fn everything_missing(ledger: &LedgerState) -> Vec<String> {
 /// test reopening a directory) may still hold its lock for a few milliseconds while sled's
 /// background thread finishes, so a lock refusal is retried for up to 2 s before it counts as
 /// "in use by another process".
-pub(crate) fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled::Result<sled::Db> {
-    let open = || super::sled_engine::sled_config(dir, cache_capacity_bytes).open();
+pub(crate) fn open_when_unlocked(dir: &Path, pages: PageSettings) -> sled::Result<sled::Db> {
+    let open = || super::sled_engine::sled_config(dir, pages).open();
     for _ in 0..40 {
         match open() {
             Err(sled::Error::Io(io)) if io.to_string().contains("could not acquire lock") => std::thread::sleep(std::time::Duration::from_millis(50)),
@@ -159,7 +159,7 @@ pub(crate) fn open_when_unlocked(dir: &Path, cache_capacity_bytes: u64) -> sled:
 /// Opens the database in `dir` and checks it against its ledger. In [`Mode::Serve`] a
 /// directory with findings is refused with [`StoreError::Damaged`] (or opened read-only when
 /// so configured); in [`Mode::Check`] the findings are returned with the engine.
-pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(Option<Opened>, Findings)> {
+pub fn open(dir: &Path, pages: PageSettings, mode: Mode) -> StoreResult<(Option<Opened>, Findings)> {
     let mut findings = Findings { dir: dir.to_owned(), lines: Vec::new(), counted: None };
     let has_ledger = Ledger::exists_in(dir);
     let ledger = if has_ledger {
@@ -193,7 +193,7 @@ pub fn open(dir: &Path, cache_capacity_bytes: u64, mode: Mode) -> StoreResult<(O
 
     // An I/O failure that says nothing about the contents (the database locked by another
     // process, no permission) is an error of its own, not damage.
-    let db = guarded("opening the database", || match open_when_unlocked(dir, cache_capacity_bytes) {
+    let db = guarded("opening the database", || match open_when_unlocked(dir, pages) {
         Ok(db) => Ok(Ok(db)),
         Err(sled::Error::Io(io)) if !matches!(io.kind(), std::io::ErrorKind::UnexpectedEof | std::io::ErrorKind::InvalidData) => Ok(Err(io)),
         Err(other) => Err(StoreError::from(other)),

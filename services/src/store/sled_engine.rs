@@ -62,28 +62,57 @@ const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
 /// and wrote 0.4 times the bytes (BENCHMARKS.md, "Fleet scale").
 pub const COMPRESSION_LEVEL: i32 = 1;
 
-/// Whether sled's files in `dir` are compressed, or will be when sled creates them there: what
-/// the `conf` file sled writes beside a database it creates says (`use_compression: false` in
-/// every directory made before brakeledger compressed; sled refuses to open those with
-/// compression on, and would refuse the reverse too).
-pub fn files_compressed(dir: &Path) -> bool {
-    // `key: value` lines followed by the CRC-32 of those bytes (not text).
-    match std::fs::read(dir.join("conf")) {
-        Ok(conf) => !String::from_utf8_lossy(&conf)
-            .lines()
-            .any(|line| line.split_once(':').is_some_and(|(key, value)| key.trim() == "use_compression" && value.trim() == "false")),
-        Err(_) => true,
+/// How sled's pages are kept: `[storage] cache_capacity_bytes` and
+/// `compress_new_directories` (see [`crate::config::StorageConfig`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PageSettings {
+    /// sled's page cache, bytes.
+    pub cache_capacity_bytes: u64,
+    /// Whether a directory sled creates from now on compresses its pages.
+    pub compress_new_directories: bool,
+}
+
+impl From<&crate::config::StorageConfig> for PageSettings {
+    fn from(config: &crate::config::StorageConfig) -> Self {
+        Self { cache_capacity_bytes: config.cache_capacity_bytes, compress_new_directories: config.compress_new_directories }
     }
 }
 
-/// How brakeledger opens the sled database in `dir`, with a page cache of
-/// `cache_capacity_bytes`: compressed unless the directory was created without (see
-/// [`files_compressed`]). Every open of a data directory goes through here.
-pub fn sled_config(dir: &Path, cache_capacity_bytes: u64) -> sled::Config {
+impl Default for PageSettings {
+    fn default() -> Self {
+        Self::from(&crate::config::StorageConfig::default())
+    }
+}
+
+impl PageSettings {
+    /// The default settings with a page cache of `cache_capacity_bytes`.
+    pub fn with_cache(cache_capacity_bytes: u64) -> Self {
+        Self { cache_capacity_bytes, ..Self::default() }
+    }
+}
+
+/// Whether sled's files in `dir` are compressed, as the `conf` file sled writes beside a
+/// database it creates says; `None` when there is none yet. (`use_compression: false` in every
+/// directory made before brakeledger compressed, or made with `compress_new_directories`
+/// off; sled refuses to open a directory with the other setting.)
+pub fn files_compressed(dir: &Path) -> Option<bool> {
+    // `key: value` lines followed by the CRC-32 of those bytes (not text).
+    let conf = std::fs::read(dir.join("conf")).ok()?;
+    Some(
+        !String::from_utf8_lossy(&conf)
+            .lines()
+            .any(|line| line.split_once(':').is_some_and(|(key, value)| key.trim() == "use_compression" && value.trim() == "false")),
+    )
+}
+
+/// How brakeledger opens the sled database in `dir`: compressed as the directory was made
+/// (see [`files_compressed`]), or as `pages` say for a new one. Every open of a data
+/// directory goes through here.
+pub fn sled_config(dir: &Path, pages: PageSettings) -> sled::Config {
     sled::Config::new()
         .path(dir)
-        .cache_capacity(cache_capacity_bytes)
-        .use_compression(files_compressed(dir))
+        .cache_capacity(pages.cache_capacity_bytes)
+        .use_compression(files_compressed(dir).unwrap_or(pages.compress_new_directories))
         .compression_factor(COMPRESSION_LEVEL)
 }
 
@@ -1375,7 +1404,7 @@ mod tests {
     /// Opens the sled database in `dir` as the store does, waiting while a database dropped a
     /// moment ago still holds the directory's lock.
     fn open_when_released(dir: &std::path::Path) -> sled::Db {
-        super::super::integrity::open_when_unlocked(dir, 8 << 20).expect("open the database")
+        super::super::integrity::open_when_unlocked(dir, PageSettings::with_cache(8 << 20)).expect("open the database")
     }
 
     /// Writes a schema-3 data directory: one record per trip in `trips`, the `trip_ids` index,
@@ -1513,6 +1542,23 @@ mod tests {
     }
 
     #[test]
+    fn a_new_directory_compresses_as_configured_and_keeps_its_setting() {
+        let dir = tempfile::tempdir().unwrap();
+        assert_eq!(files_compressed(dir.path()), None, "nothing created yet");
+        let plain = PageSettings { compress_new_directories: false, ..PageSettings::with_cache(8 << 20) };
+        drop(sled_config(dir.path(), plain).open().unwrap());
+        assert_eq!(files_compressed(dir.path()), Some(false), "created uncompressed as configured");
+        // Opened later with the default (compress new directories), it stays as it was made.
+        let db = sled_config(dir.path(), PageSettings::with_cache(8 << 20)).open().expect("reopens as it was made");
+        db.insert(b"k", b"v").unwrap();
+        drop(db);
+        assert_eq!(files_compressed(dir.path()), Some(false));
+        let other = tempfile::tempdir().unwrap();
+        drop(sled_config(other.path(), PageSettings::with_cache(8 << 20)).open().unwrap());
+        assert_eq!(files_compressed(other.path()), Some(true), "the default compresses");
+    }
+
+    #[test]
     fn a_directory_made_before_compression_opens_as_it_was_made_and_a_restore_compresses_it() {
         let trips = fixture_trips();
         let old = tempfile::tempdir().unwrap();
@@ -1523,7 +1569,7 @@ mod tests {
             store.upsert_fleet(&FleetRecord::default_for("north")).unwrap();
             store.ingest_trips(&trips).unwrap();
         }
-        assert!(!files_compressed(old.path()));
+        assert_eq!(files_compressed(old.path()), Some(false));
         // sled itself refuses to read it with compression on: the reason `sled_config` asks.
         assert!(sled::Config::new().path(old.path()).use_compression(true).open().is_err());
         let store = SledStore::open(old.path()).expect("reopened as it was made");
@@ -1535,8 +1581,8 @@ mod tests {
 
         let new = tempfile::tempdir().unwrap();
         let target = new.path().join("data");
-        super::super::backup_file::restore(&backup, &target, 8 << 20).expect("restore into a new directory");
-        assert!(files_compressed(&target), "a directory sled creates now is compressed");
+        super::super::backup_file::restore(&backup, &target, PageSettings::with_cache(8 << 20)).expect("restore into a new directory");
+        assert_eq!(files_compressed(&target), Some(true), "a directory sled creates now is compressed");
         assert!(sled::Config::new().path(&target).use_compression(false).open().is_err(), "sled refuses to read it uncompressed");
         let restored = SledStore::open(&target).expect("the restored directory opens");
         for vehicle in ["van-1", "van-2"] {

@@ -24,15 +24,15 @@ pub use super::sled_engine::SCHEMA_VERSION;
 use super::disk_space;
 use super::integrity::{self, Findings, Mode};
 use super::ledger::{Ledger, RecordKind};
-use super::sled_engine::{Engine, PlannedKeys};
+use super::sled_engine::{Engine, PageSettings, PlannedKeys};
 use super::*;
 use crate::config::OnMismatch;
 
 /// How the database is opened.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct StoreOptions {
-    /// sled page cache, bytes.
-    pub cache_capacity_bytes: u64,
+    /// sled's page cache and whether a new directory compresses.
+    pub pages: PageSettings,
     /// Free space below which writes are refused, bytes.
     pub min_free_bytes: u64,
     /// What to do when start-up verification finds damage.
@@ -47,7 +47,7 @@ impl Default for StoreOptions {
 
 impl From<&crate::config::StorageConfig> for StoreOptions {
     fn from(config: &crate::config::StorageConfig) -> Self {
-        Self { cache_capacity_bytes: config.cache_capacity_bytes, min_free_bytes: config.min_free_bytes, on_mismatch: OnMismatch::Refuse }
+        Self { pages: PageSettings::from(config), min_free_bytes: config.min_free_bytes, on_mismatch: OnMismatch::Refuse }
     }
 }
 
@@ -86,7 +86,7 @@ struct LedgerSlot {
 }
 
 fn open_engine(dir: &Path, options: &StoreOptions) -> StoreResult<Engine> {
-    Engine::from_db(super::sled_engine::sled_config(dir, options.cache_capacity_bytes).open()?)
+    Engine::from_db(super::sled_engine::sled_config(dir, options.pages).open()?)
 }
 
 fn lock_error<T>(_: T) -> StoreError {
@@ -103,7 +103,7 @@ impl SledStore {
     /// [`StoreError::Damaged`] naming what is missing, or opened read-only, as `options` say.
     pub fn open_with(dir: &Path, options: &StoreOptions) -> StoreResult<Self> {
         std::fs::create_dir_all(dir).map_err(|e| StoreError::Engine(format!("creating {}: {e}", dir.display())))?;
-        let (opened, _) = integrity::open(dir, options.cache_capacity_bytes, Mode::Serve(options.on_mismatch))?;
+        let (opened, _) = integrity::open(dir, options.pages, Mode::Serve(options.on_mismatch))?;
         let opened = opened.ok_or_else(|| StoreError::Damaged(format!("the database in {} could not be opened", dir.display())))?;
         let mut store = Self::around(Some(dir.to_owned()), options.clone(), opened.engine);
         store.ledger = opened.ledger.map(|ledger| Mutex::new(LedgerSlot { ledger, unsettled: None }));

@@ -69,7 +69,7 @@ async fn backup_needs_a_token_and_holds_everything_acknowledged_before_it_while_
 
     // Restored, the copy holds exactly what its summary says, with consistent totals.
     let restored = dir.path().join("restored");
-    backup_file::restore(&file, &restored, 8 * 1024 * 1024).expect("restore");
+    backup_file::restore(&file, &restored, brakeledger::store::sled_engine::PageSettings::with_cache(8 * 1024 * 1024)).expect("restore");
     let store = brakeledger::store::sled_store::SledStore::open(&restored).expect("the restored directory verifies");
     use brakeledger::store::Store;
     assert_eq!(store.vehicle_totals("north", "bus-1").expect("totals").trips_recorded, trips);
