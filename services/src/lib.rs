@@ -22,6 +22,7 @@
 //! - [`exports`]: the due list and the visit plan as CSV and iCalendar files.
 //! - [`web`]: the planners' web page, on its own listener (`[web] listen`).
 //! - [`cli`]: the `brakeledger` command line (server, client subcommands, demo).
+//! - [`process`]: a `brakeledger` process from its start: allocator and async runtime.
 //!
 //! Forecasts support maintenance planning. They do not replace inspection by a qualified
 //! technician, nor the roadworthiness rules that apply where the vehicle runs.
@@ -40,6 +41,7 @@ pub mod grpc;
 pub mod limits;
 pub mod metrics;
 pub mod part_names;
+pub mod process;
 pub mod server;
 pub mod state;
 pub mod store;

@@ -1,10 +1,5 @@
-//! The `brakeledger` binary: parses the command line and hands over to [`brakeledger::cli`].
+//! The `brakeledger` binary: hands over to [`brakeledger::process::main`].
 
-use std::process::ExitCode;
-
-use clap::Parser;
-
-#[tokio::main]
-async fn main() -> ExitCode {
-    brakeledger::cli::exit_code(brakeledger::cli::run(brakeledger::cli::Cli::parse()).await)
+fn main() -> std::process::ExitCode {
+    brakeledger::process::main()
 }
