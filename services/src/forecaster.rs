@@ -233,10 +233,11 @@ fn stored_fits(vehicle: &VehicleForecasts) -> impl Iterator<Item = (GroupKey, u6
     })
 }
 
-/// Pools the own fits of a fleet's stored forecasts into group priors (with each rotor
-/// group's coupling to its pads).
-pub fn pool_priors(forecasts: &[VehicleForecasts], settings: &ForecastSettings) -> FleetPriors {
-    pool_fits(forecasts.iter().flat_map(stored_fits), settings)
+/// The part of an own fit that pooling reads (rate, residual SD, degrees of freedom and the
+/// sums behind them), without the coefficients' names, values and covariance: what a fleet's
+/// re-estimation holds for each of its parts at once.
+fn pooled_part_of(fit: &WearFit) -> WearFit {
+    WearFit { coefficient_names: Vec::new(), coefficients: Vec::new(), covariance: Vec::new(), ..fit.clone() }
 }
 
 /// A vehicle's own fits made from its stored data now (what its next stored forecast will
@@ -251,7 +252,7 @@ struct FreshFits {
 fn fresh_fits(data: &VehicleData, now_ms: i64, settings: &ForecastSettings) -> FreshFits {
     let fits = part_inputs(data, now_ms)
         .into_iter()
-        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, fit)))
+        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, pooled_part_of(&fit))))
         .collect();
     FreshFits { vehicle_class: data.vehicle.spec.vehicle_class.clone(), fits }
 }
@@ -348,15 +349,25 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str,
     // One replica at a time re-estimates a fleet's priors; the others skip it.
     let Some(_one_replica) = store.lock_fleet_priors(fleet_id)? else { return Ok(()) };
     let old = store.get_priors(fleet_id)?.unwrap_or_default();
-    let forecasts = store.fleet_forecasts(fleet_id)?;
-    let stored = forecasts.iter().filter(|f| !fresh.contains_key(&f.vehicle_id)).flat_map(stored_fits);
+    // The stored fits of the vehicles not in `fresh`, read one forecast at a time, and each
+    // stored vehicle's class.
+    let mut stored: Vec<(GroupKey, u64, WearFit)> = Vec::new();
+    let mut classes: Vec<(String, String)> = Vec::new();
+    store.visit_fleet_forecasts(fleet_id, &mut |vehicle| {
+        if !fresh.contains_key(&vehicle.vehicle_id) {
+            stored.extend(stored_fits(&vehicle).map(|(group, key, fit)| (group, key, pooled_part_of(fit))));
+        }
+        classes.push((vehicle.vehicle_id, vehicle.vehicle_class));
+        Ok(())
+    })?;
     let made_now = fresh.iter().flat_map(|(vehicle_id, f)| {
         let key = vehicle_key(&[fleet_id, vehicle_id]);
         f.fits.iter().map(move |(axle_index, component, fit)| {
             (GroupKey { vehicle_class: f.vehicle_class.clone(), axle_index: *axle_index, component: *component }, key, fit)
         })
     });
-    let new = pool_fits(stored.chain(made_now), &model_settings(config, 0.8));
+    let new = pool_fits(stored.iter().map(|(group, key, fit)| (group.clone(), *key, fit)).chain(made_now), &model_settings(config, 0.8));
+    drop(stored);
     // Classes with a group whose prior moved, appeared or disappeared.
     let changed: BTreeSet<&str> = new
         .groups
@@ -369,10 +380,10 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str,
         return Ok(());
     }
     store.put_priors(fleet_id, &new)?;
-    let again: Vec<String> = forecasts
-        .iter()
-        .filter(|f| changed.contains(f.vehicle_class.as_str()) && !fresh.contains_key(&f.vehicle_id))
-        .map(|f| f.vehicle_id.clone())
+    let again: Vec<String> = classes
+        .into_iter()
+        .filter(|(vehicle_id, class)| changed.contains(class.as_str()) && !fresh.contains_key(vehicle_id))
+        .map(|(vehicle_id, _)| vehicle_id)
         .collect();
     tracing::debug!(fleet = %fleet_id, classes = changed.len(), vehicles = again.len(), "fleet priors moved; recomputing");
     store.mark_stale(fleet_id, &again)?;

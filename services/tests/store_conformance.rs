@@ -496,6 +496,33 @@ fn dropped_on_an_async_worker(engine: &Engine) {
     assert!(engine.store.get_fleet("north").unwrap().is_some(), "the other handle still works");
 }
 
+/// The fleet's forecasts one at a time: the same records, in vehicle order, as the whole-fleet
+/// read; nothing from another fleet; the visitor's error ends the scan and comes back.
+fn fleet_forecasts_visited_one_at_a_time(engine: &Engine) {
+    let store = &engine.store;
+    for (n, id) in ["bus-3", "bus-1", "bus-2"].into_iter().enumerate() {
+        store.upsert_vehicle(&vehicle("north", id)).unwrap();
+        store.put_forecasts(&forecasts(id, vec![part(1, Component::Friction, 20_100.0 + n as f64)])).unwrap();
+    }
+    store.upsert_vehicle(&vehicle("west", "w-1")).unwrap();
+    store.put_forecasts(&VehicleForecasts { fleet_id: "west".into(), ..forecasts("w-1", vec![]) }).unwrap();
+    let mut seen = Vec::new();
+    store.visit_fleet_forecasts("north", &mut |f| {
+        seen.push(f);
+        Ok(())
+    })
+    .unwrap();
+    assert_eq!(seen.iter().map(|f| f.vehicle_id.as_str()).collect::<Vec<_>>(), ["bus-1", "bus-2", "bus-3"]);
+    assert_eq!(seen, store.fleet_forecasts("north").unwrap());
+    let mut visited = 0;
+    let stopped = store.visit_fleet_forecasts("north", &mut |_| {
+        visited += 1;
+        Err(StoreError::Engine("enough".into()))
+    });
+    assert!(matches!(stopped, Err(StoreError::Engine(m)) if m == "enough"));
+    assert_eq!(visited, 1, "the first error ends the scan");
+}
+
 /// A round after a burst of new data computes (and stores) each vehicle once: it begins by
 /// estimating the priors from the own fits it is about to store
 /// (`forecaster::priors_for_round`), so its end finds them where they were and marks nothing
@@ -563,6 +590,7 @@ conformance!(
     backup_export_verifies,
     dropped_on_an_async_worker,
     a_round_after_new_data_computes_each_vehicle_once,
+    fleet_forecasts_visited_one_at_a_time,
 );
 
 // ---------------------------------------------------------------------------------------------

@@ -19,7 +19,9 @@
 //! vehicle [100]; `SCALE_ORDER` `vehicle` (trips arrive 20 vehicles at a time, each chunk
 //! holding their recent history, as an integration forwarding per-vehicle uploads does) or
 //! `time` (every vehicle's trip n, then every vehicle's trip n+1: live telematics) [vehicle];
-//! `SCALE_BASELINE_TRIPS` trips written by the engine-alone baseline [400000].
+//! `SCALE_BASELINE_TRIPS` trips written by the engine-alone baseline [400000];
+//! `SCALE_COMPRESS` 0 to serve from a directory created uncompressed
+//! (`[storage] compress_new_directories = false`) [1].
 //!
 //! Run: `cargo bench -p brakeledger-tests --bench fleet_scale` (or, reusing the release
 //! build, `cargo test --release -p brakeledger-tests --bench fleet_scale`).
@@ -333,7 +335,8 @@ fn main() {
     drop(baseline_set);
 
     let data = tempfile::tempdir().expect("data dir");
-    let config = UnlimitedIngestConfig::write();
+    let compress = env_or("SCALE_COMPRESS", 1usize) != 0;
+    let config = UnlimitedIngestConfig::write_with(if compress { "" } else { "[storage]\ncompress_new_directories = false\n" });
     let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.path().as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
     let pid = server.child.id();
     let (mut loaded, mut protobuf_bytes, mut written, mut ingest_s, mut trips_sent) = (0usize, 0u64, 0u64, 0f64, 0u64);
@@ -396,7 +399,13 @@ fn main() {
     let per_trip_pb = protobuf_bytes as f64 / trips_sent as f64;
     let grpc_rate = trips_sent as f64 / ingest_s;
     println!();
-    println!("fleet-scale run: {} vehicles, {trips_sent} trips ({per_vehicle} per vehicle, arriving by {}), {:.0} s in all", loaded, if by_time { "time" } else { "vehicle" }, run_started.elapsed().as_secs_f64());
+    println!(
+        "fleet-scale run: {} vehicles, {trips_sent} trips ({per_vehicle} per vehicle, arriving by {}), data directory {}, {:.0} s in all",
+        loaded,
+        if by_time { "time" } else { "vehicle" },
+        if compress { "compressed" } else { "uncompressed" },
+        run_started.elapsed().as_secs_f64()
+    );
     println!("| measure | baseline | measured | ratio | target |");
     println!("|---|---|---|---|---|");
     println!("| whole server data directory (forecasts included) after a clean stop, per trip | protobuf {per_trip_pb:.1} B | {:.1} B ({:.1} B allocated) | {:.2}× | ≤ 2× |", apparent as f64 / trips_sent as f64, allocated as f64 / trips_sent as f64, apparent as f64 / protobuf_bytes as f64);

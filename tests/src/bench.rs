@@ -25,8 +25,13 @@ impl UnlimitedIngestConfig {
     /// Writes `brakeledger.toml` with `[limits] ingest_trips_per_second = 0` into a temporary
     /// directory.
     pub fn write() -> Self {
+        Self::write_with("")
+    }
+
+    /// [`Self::write`] followed by `more` (whole TOML tables).
+    pub fn write_with(more: &str) -> Self {
         let dir = tempfile::tempdir().expect("config dir");
-        std::fs::write(dir.path().join("brakeledger.toml"), "[limits]\ningest_trips_per_second = 0\n").expect("write config");
+        std::fs::write(dir.path().join("brakeledger.toml"), format!("[limits]\ningest_trips_per_second = 0\n{more}")).expect("write config");
         Self { dir }
     }
 

@@ -144,6 +144,13 @@ pub trait Store: Send + Sync + 'static {
     }
     /// Every materialised forecast of a fleet (for fleet-wide pooling).
     fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>>;
+    /// Hands every materialised forecast of a fleet to `visit`, one at a time, in vehicle
+    /// order; an error from `visit` stops the scan and is returned. An engine that can
+    /// stream does not hold the fleet's forecasts in memory at once (100,000 vehicles' take
+    /// about a gigabyte decoded); the default reads them with [`Store::fleet_forecasts`].
+    fn visit_fleet_forecasts(&self, fleet_id: &str, visit: &mut dyn FnMut(VehicleForecasts) -> StoreResult<()>) -> StoreResult<()> {
+        self.fleet_forecasts(fleet_id)?.into_iter().try_for_each(visit)
+    }
     /// Due-index range scan: parts whose `due_earliest` at band level `level` is before
     /// `due_before_ms`, in index order, strictly after `after`, at most `limit`.
     fn scan_due(

@@ -738,6 +738,14 @@ impl Engine {
         Self::scan_values(&self.forecasts, &fleet_prefix(fleet_id))
     }
 
+    /// See [`Store`]: decoded one at a time from a prefix scan.
+    pub fn visit_fleet_forecasts(&self, fleet_id: &str, visit: &mut dyn FnMut(VehicleForecasts) -> StoreResult<()>) -> StoreResult<()> {
+        for bytes in self.forecasts.scan_prefix(fleet_prefix(fleet_id)).values() {
+            visit(decode(&bytes?)?)?;
+        }
+        Ok(())
+    }
+
     /// See [`Store`].
     pub fn scan_due(
         &self,

@@ -387,6 +387,10 @@ impl Store for SledStore {
         self.read(|e| e.fleet_forecasts(fleet_id))
     }
 
+    fn visit_fleet_forecasts(&self, fleet_id: &str, visit: &mut dyn FnMut(VehicleForecasts) -> StoreResult<()>) -> StoreResult<()> {
+        self.read(|e| e.visit_fleet_forecasts(fleet_id, &mut *visit))
+    }
+
     fn scan_due(&self, fleet_id: &str, level: BandLevel, due_before_ms: i64, after: Option<&DueCursor>, limit: usize) -> StoreResult<Vec<DueCursor>> {
         self.read(|e| e.scan_due(fleet_id, level, due_before_ms, after, limit))
     }
