@@ -393,9 +393,9 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str,
 /// Before a round: re-estimates the priors of every fleet with stale vehicles from the own
 /// fits the round is about to store (made now from each stale vehicle's data, in batches of
 /// `batch_vehicles`) and the stored fits of the others, so that the round computes with the
-/// priors it will end with. Only fleets with more stale vehicles than one pass takes. Without it a round after a stream of new data computed every
-/// vehicle with the old priors, moved them at its end, and computed (and rewrote) the fleet a
-/// second time.
+/// priors it will end with. Only fleets with more stale vehicles than one pass takes. Without
+/// it a round after a stream of new data computed every vehicle with the old priors, moved
+/// them at its end, and computed (and rewrote) the fleet a second time.
 pub fn priors_for_round(store: &dyn Store, config: &ForecastConfig, now_ms: i64) -> ServiceResult<()> {
     let marks = store.stale_vehicles(usize::MAX)?;
     let mut by_fleet: BTreeMap<String, Vec<String>> = BTreeMap::new();
