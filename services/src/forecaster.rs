@@ -224,20 +224,22 @@ fn pool_fits<F: std::borrow::Borrow<WearFit> + Send>(fits: impl Iterator<Item = 
     FleetPriors { groups }
 }
 
-/// The own fits kept in one vehicle's stored forecasts, as pooling reads them.
-fn stored_fits(vehicle: &VehicleForecasts) -> impl Iterator<Item = (GroupKey, u64, &WearFit)> {
+/// The own fits kept in one vehicle's stored forecasts, as pooling reads them (see
+/// [`pooled_part_of`]).
+fn stored_fits(vehicle: VehicleForecasts) -> impl Iterator<Item = (GroupKey, u64, WearFit)> {
     let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
-    vehicle.parts.iter().filter_map(move |part| {
-        let group = GroupKey { vehicle_class: vehicle.vehicle_class.clone(), axle_index: part.axle_index, component: part.component };
-        part.own_fit.as_ref().map(|fit| (group, key, fit))
+    let class = vehicle.vehicle_class;
+    vehicle.parts.into_iter().filter_map(move |part| {
+        let group = GroupKey { vehicle_class: class.clone(), axle_index: part.axle_index, component: part.component };
+        part.own_fit.map(|fit| (group, key, pooled_part_of(fit)))
     })
 }
 
 /// The part of an own fit that pooling reads (rate, residual SD, degrees of freedom and the
 /// sums behind them), without the coefficients' names, values and covariance: what a fleet's
 /// re-estimation holds for each of its parts at once.
-fn pooled_part_of(fit: &WearFit) -> WearFit {
-    WearFit { coefficient_names: Vec::new(), coefficients: Vec::new(), covariance: Vec::new(), ..fit.clone() }
+fn pooled_part_of(fit: WearFit) -> WearFit {
+    WearFit { coefficient_names: Vec::new(), coefficients: Vec::new(), covariance: Vec::new(), ..fit }
 }
 
 /// A vehicle's own fits made from its stored data now (what its next stored forecast will
@@ -252,7 +254,7 @@ struct FreshFits {
 fn fresh_fits(data: &VehicleData, now_ms: i64, settings: &ForecastSettings) -> FreshFits {
     let fits = part_inputs(data, now_ms)
         .into_iter()
-        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, pooled_part_of(&fit))))
+        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, pooled_part_of(fit))))
         .collect();
     FreshFits { vehicle_class: data.vehicle.spec.vehicle_class.clone(), fits }
 }
@@ -351,23 +353,23 @@ fn reestimate_priors(store: &dyn Store, config: &ForecastConfig, fleet_id: &str,
     let old = store.get_priors(fleet_id)?.unwrap_or_default();
     // The stored fits of the vehicles not in `fresh`, read one forecast at a time, and each
     // stored vehicle's class.
-    let mut stored: Vec<(GroupKey, u64, WearFit)> = Vec::new();
+    let mut fits: Vec<(GroupKey, u64, WearFit)> = Vec::new();
     let mut classes: Vec<(String, String)> = Vec::new();
     store.visit_fleet_forecasts(fleet_id, &mut |vehicle| {
+        classes.push((vehicle.vehicle_id.clone(), vehicle.vehicle_class.clone()));
         if !fresh.contains_key(&vehicle.vehicle_id) {
-            stored.extend(stored_fits(&vehicle).map(|(group, key, fit)| (group, key, pooled_part_of(fit))));
+            fits.extend(stored_fits(vehicle));
         }
-        classes.push((vehicle.vehicle_id, vehicle.vehicle_class));
         Ok(())
     })?;
-    let made_now = fresh.iter().flat_map(|(vehicle_id, f)| {
+    // The fits made now join them (already reduced to what pooling reads, so cheap to copy).
+    fits.extend(fresh.iter().flat_map(|(vehicle_id, f)| {
         let key = vehicle_key(&[fleet_id, vehicle_id]);
         f.fits.iter().map(move |(axle_index, component, fit)| {
-            (GroupKey { vehicle_class: f.vehicle_class.clone(), axle_index: *axle_index, component: *component }, key, fit)
+            (GroupKey { vehicle_class: f.vehicle_class.clone(), axle_index: *axle_index, component: *component }, key, fit.clone())
         })
-    });
-    let new = pool_fits(stored.iter().map(|(group, key, fit)| (group.clone(), *key, fit)).chain(made_now), &model_settings(config, 0.8));
-    drop(stored);
+    }));
+    let new = pool_fits(fits.into_iter(), &model_settings(config, 0.8));
     // Classes with a group whose prior moved, appeared or disappeared.
     let changed: BTreeSet<&str> = new
         .groups

@@ -97,13 +97,13 @@ fn undated_reason(part: &StoredPart) -> String {
 /// Every part of a fleet that has no due date (only `component`, when given), by vehicle,
 /// axle and component: parts whose stored forecast has no due distribution, and every part
 /// of a registered vehicle whose forecast has not been computed yet (`pending`). Reads every
-/// stored forecast and vehicle of the fleet.
+/// stored forecast (one at a time) and vehicle of the fleet.
 pub fn undated_parts(store: &dyn Store, fleet_id: &str, component: Option<Component>) -> ServiceResult<Vec<pb::UndatedPart>> {
     let wanted = |c: Component| component.is_none_or(|w| w == c);
     let mut undated = Vec::new();
-    let forecasts = store.fleet_forecasts(fleet_id)?;
-    let computed: BTreeSet<&str> = forecasts.iter().map(|f| f.vehicle_id.as_str()).collect();
-    for record in &forecasts {
+    // The fleet's forecasts one at a time (a large fleet's do not fit in memory at once).
+    let mut computed: BTreeSet<String> = BTreeSet::new();
+    store.visit_fleet_forecasts(fleet_id, &mut |record| {
         for part in record.parts.iter().filter(|p| p.outlook.due.is_none() && wanted(p.component)) {
             undated.push(pb::UndatedPart {
                 fleet_id: record.fleet_id.clone(),
@@ -115,7 +115,9 @@ pub fn undated_parts(store: &dyn Store, fleet_id: &str, component: Option<Compon
                 pending: false,
             });
         }
-    }
+        computed.insert(record.vehicle_id);
+        Ok(())
+    })?;
     let mut after: Option<String> = None;
     loop {
         let page = store.list_vehicles(fleet_id, after.as_deref(), 1000)?;
