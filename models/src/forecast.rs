@@ -80,6 +80,17 @@ pub enum ForecastBasis {
     Combined,
 }
 
+/// Steps of the due quantiles per day: each quantile a forecast computes is rounded to the
+/// nearest hour. Due dates are planned to the day; an hour is far below the spread of any band
+/// (the bands of the simulated fleets span weeks to years), and whole hours let a store keep the
+/// 99 quantiles as small integer steps ([`DueDistribution::grid_steps`]).
+pub const DUE_STEPS_PER_DAY: f64 = 24.0;
+
+/// `day` rounded to the nearest step of [`DUE_STEPS_PER_DAY`] (non-finite days unchanged).
+pub fn snap_due_day(day: f64) -> f64 {
+    (day * DUE_STEPS_PER_DAY).round() / DUE_STEPS_PER_DAY
+}
+
 /// Due day (days since the Unix epoch, fractional) at probabilities 0.01, 0.02, ..., 0.99.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct DueDistribution {
@@ -88,7 +99,8 @@ pub struct DueDistribution {
 }
 
 impl DueDistribution {
-    /// Builds the 99 quantiles from draws (days since epoch). `None` if there are no finite draws.
+    /// Builds the 99 quantiles from draws (days since epoch), each rounded to the hour
+    /// ([`snap_due_day`]). `None` if there are no finite draws.
     pub fn from_draws(draws: Vec<f64>) -> Option<Self> {
         let mut keys: Vec<i64> = draws.iter().filter(|d| !d.is_nan()).map(|d| day_key(*d)).collect();
         Self::from_day_keys(&mut keys)
@@ -114,14 +126,31 @@ impl DueDistribution {
                 let (low, high) = (draws(lo), draws(hi));
                 // Computed before the choice, which is then a select rather than a branch.
                 let between = low + frac * (high - low);
-                if (frac == 0.0) | (low == high) {
-                    low
-                } else {
-                    between
-                }
+                snap_due_day(if (frac == 0.0) | (low == high) { low } else { between })
             })
             .collect();
         Some(Self { quantile_days })
+    }
+
+    /// The quantiles as whole steps of [`DUE_STEPS_PER_DAY`] since the epoch, when every one is
+    /// finite and exactly such a step (as every quantile [`Self::from_draws`] makes is):
+    /// `step / DUE_STEPS_PER_DAY` gives each back bit for bit. `None` otherwise.
+    pub fn grid_steps(&self) -> Option<Vec<i64>> {
+        self.quantile_days
+            .iter()
+            .map(|&day| {
+                let scaled = (day * DUE_STEPS_PER_DAY).round();
+                // Within ±2^53 every integer is an f64; the bound also excludes ±∞ and NaN.
+                let step = (scaled.abs() < 9.0e15).then_some(scaled as i64)?;
+                ((step as f64 / DUE_STEPS_PER_DAY).to_bits() == day.to_bits()).then_some(step)
+            })
+            .collect()
+    }
+
+    /// The distribution whose quantiles are `steps` of [`DUE_STEPS_PER_DAY`] (inverse of
+    /// [`Self::grid_steps`]).
+    pub fn from_grid_steps(steps: &[i64]) -> Self {
+        Self { quantile_days: steps.iter().map(|&s| s as f64 / DUE_STEPS_PER_DAY).collect() }
     }
 
     /// Due day at `probability`, interpolated; probability clamped to [0.01, 0.99].

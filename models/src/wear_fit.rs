@@ -68,6 +68,14 @@ pub struct WearFit {
     pub residual_lag_product_sum_mm2: f64,
 }
 
+impl WearFit {
+    /// The fit without its coefficient names, estimates and covariance: the scalars that fleet
+    /// pooling and a forecast from a stored fit read (what a store keeps of an own fit).
+    pub fn without_coefficients(self) -> Self {
+        Self { coefficient_names: Vec::new(), coefficients: Vec::new(), covariance: Vec::new(), ..self }
+    }
+}
+
 /// Sums describing the rate information in a history, for the closed-form slope used when a
 /// full fit has no residual degrees of freedom: pooled within-cycle `Sxx`, `Sxy`.
 #[derive(Debug, Clone, Copy, PartialEq, Default)]

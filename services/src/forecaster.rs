@@ -206,7 +206,7 @@ pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> V
             .map(|p| StoredPart {
                 axle_index: p.input.history.axle_index,
                 component: p.input.history.component,
-                own_fit: p.own_fit.clone(),
+                own_fit: p.own_fit.clone().map(WearFit::without_coefficients),
                 outlook: PartOutlook { trajectory: Vec::new(), ..p.outlook.clone() },
             })
             .collect(),
@@ -224,22 +224,15 @@ fn pool_fits<F: std::borrow::Borrow<WearFit> + Send>(fits: impl Iterator<Item = 
     FleetPriors { groups }
 }
 
-/// The own fits kept in one vehicle's stored forecasts, as pooling reads them (see
-/// [`pooled_part_of`]).
+/// The own fits kept in one vehicle's stored forecasts (stored without their coefficients,
+/// [`WearFit::without_coefficients`], which is what pooling reads).
 fn stored_fits(vehicle: VehicleForecasts) -> impl Iterator<Item = (GroupKey, u64, WearFit)> {
     let key = vehicle_key(&[&vehicle.fleet_id, &vehicle.vehicle_id]);
     let class = vehicle.vehicle_class;
     vehicle.parts.into_iter().filter_map(move |part| {
         let group = GroupKey { vehicle_class: class.clone(), axle_index: part.axle_index, component: part.component };
-        part.own_fit.map(|fit| (group, key, pooled_part_of(fit)))
+        part.own_fit.map(|fit| (group, key, fit))
     })
-}
-
-/// The part of an own fit that pooling reads (rate, residual SD, degrees of freedom and the
-/// sums behind them), without the coefficients' names, values and covariance: what a fleet's
-/// re-estimation holds for each of its parts at once.
-fn pooled_part_of(fit: WearFit) -> WearFit {
-    WearFit { coefficient_names: Vec::new(), coefficients: Vec::new(), covariance: Vec::new(), ..fit }
 }
 
 /// A vehicle's own fits made from its stored data now (what its next stored forecast will
@@ -254,7 +247,7 @@ struct FreshFits {
 fn fresh_fits(data: &VehicleData, now_ms: i64, settings: &ForecastSettings) -> FreshFits {
     let fits = part_inputs(data, now_ms)
         .into_iter()
-        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, pooled_part_of(fit))))
+        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, fit.without_coefficients())))
         .collect();
     FreshFits { vehicle_class: data.vehicle.spec.vehicle_class.clone(), fits }
 }

@@ -8,11 +8,13 @@
 //! Beside the engine: [`ledger`] (the record of what was acknowledged, kept apart from sled's
 //! files), [`integrity`] (start-up and offline verification against it), [`backup_file`] (the
 //! backup file format, verification and restore), [`keys`] (the key layout),
+//! [`forecast_layout`] (the compact layout of stored forecasts),
 //! [`trip_blocks`] (the compact encoding of trips in day blocks) and [`disk_space`] (the
 //! free-space gate).
 
 pub mod backup_file;
 pub mod disk_space;
+pub mod forecast_layout;
 pub mod integrity;
 pub mod keys;
 pub mod ledger;

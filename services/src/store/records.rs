@@ -300,14 +300,16 @@ impl BandLevel {
 }
 
 /// The materialised forecast of one part: the models' outlook (its trajectory left out: charts
-/// compute it afresh) with the due quantiles whole, so any band level can be read.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// compute it afresh) with the due quantiles whole, so any band level can be read. Stored in
+/// the compact layout of [`super::forecast_layout`] (its serde form).
+#[derive(Debug, Clone, PartialEq)]
 pub struct StoredPart {
     /// Axle, 1 = front-most.
     pub axle_index: u32,
     /// Component.
     pub component: Component,
-    /// The vehicle's own fit, when one could be made (kept for fleet pooling).
+    /// The vehicle's own fit, when one could be made (kept for fleet pooling), without its
+    /// coefficients ([`WearFit::without_coefficients`]: they are not stored).
     pub own_fit: Option<WearFit>,
     /// The outlook, thickness bands at 80 %.
     pub outlook: PartOutlook,

@@ -38,7 +38,9 @@ use super::*;
 /// Version 4: trips are kept in day blocks with a per-vehicle trip-id index (see
 /// [`super::trip_blocks`]) instead of one record per trip; older directories are migrated by
 /// [`Engine::move_trips_into_blocks`] (the ledger's trip keys are the same in both layouts).
-pub const SCHEMA_VERSION: u32 = 4;
+/// Version 5: stored forecasts in the compact layout of [`super::forecast_layout`]; older
+/// directories are migrated by [`Engine::compact_stored_forecasts`] (same values, re-encoded).
+pub const SCHEMA_VERSION: u32 = 5;
 
 /// Trees of schema 3 whose values are postcard records carrying a checksum (the migration to
 /// version 3 runs before the one to version 4, so it works on the schema-3 trees).
@@ -54,6 +56,13 @@ const SCHEMA_KEY: &[u8] = b"schema_version";
 /// Set once the schema-3 trips are copied into blocks and flushed: a migration cut short after
 /// that point only has to drop the old trees.
 const BLOCKS_BUILT_KEY: &[u8] = b"trip_blocks_built";
+/// The last stored forecast re-encoded by the migration to version 5, so that a migration cut
+/// short resumes after it (the layouts cannot be told apart reliably value by value).
+const FORECASTS_COMPACTED_THROUGH_KEY: &[u8] = b"forecasts_compacted_through";
+/// Set once every stored forecast is in the layout of version 5.
+const FORECASTS_COMPACTED_KEY: &[u8] = b"forecasts_compacted";
+/// Forecasts re-encoded per transaction by that migration.
+const COMPACTION_CHUNK: usize = 1_000;
 
 /// zstd level of sled's page compression: 1, zstd's fastest regular level. sled compresses
 /// each log message with a fresh zstd context; in the fleet-scale benchmark the trip store alone
@@ -234,11 +243,14 @@ impl Engine {
                         engine.add_value_checksums()?;
                     }
                     engine.move_trips_into_blocks()?;
+                    if found < 5 {
+                        engine.compact_stored_forecasts()?;
+                    }
                     // The schema version is written by `finish_migration`, once the caller has
                     // checked (or written) the ledger: a crash before that runs the
                     // (idempotent) migration again.
                     engine.db.flush()?;
-                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: trips now kept in day blocks");
+                    tracing::info!(from = found, to = SCHEMA_VERSION, "migrated the data directory: trips kept in day blocks, forecasts in the compact layout");
                     return Ok(engine);
                 }
             }
@@ -321,6 +333,46 @@ impl Engine {
             batch.insert(key, value);
         }
         self.trip_id_index.apply_batch(batch)?;
+        Ok(())
+    }
+
+    /// Migration to version 5: re-encodes every stored forecast from the schema-4 layout into
+    /// the compact one ([`super::forecast_layout`]); no value changes, so the due index stays as
+    /// it is. Resumable: each chunk is written in one transaction with the key it reached.
+    pub fn compact_stored_forecasts(&self) -> StoreResult<()> {
+        let meta = self.db.open_tree("meta")?;
+        if meta.get(FORECASTS_COMPACTED_KEY)?.is_some() {
+            return Ok(());
+        }
+        let mut after = meta.get(FORECASTS_COMPACTED_THROUGH_KEY)?.map(|k| k.to_vec());
+        loop {
+            let range = match &after {
+                Some(key) => self.forecasts.range::<&[u8], _>((std::ops::Bound::Excluded(key.as_slice()), std::ops::Bound::Unbounded)),
+                None => self.forecasts.iter(),
+            };
+            let mut chunk = Vec::with_capacity(COMPACTION_CHUNK);
+            for entry in range.take(COMPACTION_CHUNK) {
+                let (key, value) = entry?;
+                let old: super::forecast_layout::LegacyVehicleForecasts = decode(&value)?;
+                chunk.push((key, encode(&VehicleForecasts::from(old))?));
+            }
+            let Some((last, _)) = chunk.last() else { break };
+            let last = last.to_vec();
+            (&self.forecasts, &meta)
+                .transaction(|(forecasts, meta)| {
+                    for (key, value) in &chunk {
+                        forecasts.insert(key.as_ref(), value.as_slice())?;
+                    }
+                    meta.insert(FORECASTS_COMPACTED_THROUGH_KEY, last.as_slice())?;
+                    Ok(())
+                })
+                .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
+            after = Some(last);
+        }
+        self.db.flush()?;
+        meta.insert(FORECASTS_COMPACTED_KEY, &[1])?;
+        meta.remove(FORECASTS_COMPACTED_THROUGH_KEY)?;
+        self.db.flush()?;
         Ok(())
     }
 
@@ -1513,6 +1565,60 @@ mod tests {
         }
         let store = SledStore::open(dir.path()).expect("the migration finishes");
         assert_eq!(store.vehicle_trips("north", "van-2").unwrap().len(), SEGMENT_ENTRIES + 300);
+    }
+
+    /// A schema-4 directory holding `forecasts` in the schema-4 layout (fits whole) and their
+    /// due index; returns the due index's keys. With `cut_short_after`, that many vehicles'
+    /// forecasts are already in the new layout with the migration's progress key at the last of
+    /// them, as a migration stopped between two chunks leaves them.
+    fn write_schema_4_forecasts(dir: &std::path::Path, forecasts: &[(VehicleForecasts, Vec<Option<brakeledger_models::WearFit>>)], cut_short_after: Option<usize>) -> Vec<Vec<u8>> {
+        let store = SledStore::open(dir).unwrap();
+        for (record, _) in forecasts {
+            store.put_forecasts(record).unwrap();
+        }
+        drop(store);
+        let db = open_when_released(dir);
+        let tree = db.open_tree("forecasts").unwrap();
+        for (i, (record, fits)) in forecasts.iter().enumerate() {
+            let key = vehicle_key(&record.fleet_id, &record.vehicle_id);
+            if cut_short_after.is_some_and(|n| i < n) {
+                db.open_tree("meta").unwrap().insert(FORECASTS_COMPACTED_THROUGH_KEY, key.as_slice()).unwrap();
+            } else {
+                tree.insert(key, encode(&super::super::forecast_layout::LegacyVehicleForecasts::of(record, fits)).unwrap()).unwrap();
+            }
+        }
+        db.open_tree("meta").unwrap().insert(SCHEMA_KEY, &4u32.to_be_bytes()).unwrap();
+        db.flush().unwrap();
+        db.open_tree("due_index").unwrap().iter().keys().map(|k| k.unwrap().to_vec()).collect()
+    }
+
+    #[test]
+    fn a_schema_4_directory_gets_its_forecasts_in_the_compact_layout_with_every_value_kept() {
+        let mut forecasts = super::super::forecast_layout::computed_forecasts(6);
+        // One part with quantiles off the hour (as schema 4 stored every computed one).
+        if let Some(due) = forecasts[0].0.parts[0].outlook.due.as_mut() {
+            due.quantile_days.iter_mut().for_each(|d| *d += 0.01);
+        }
+        for cut_short_after in [None, Some(2)] {
+            let dir = tempfile::tempdir().unwrap();
+            let due_index = write_schema_4_forecasts(dir.path(), &forecasts, cut_short_after);
+            let legacy_bytes: u64 = open_when_released(dir.path()).open_tree("forecasts").unwrap().iter().values().map(|v| v.unwrap().len() as u64).sum();
+            let store = SledStore::open(dir.path()).expect("migrated at start-up");
+            for (record, _) in &forecasts {
+                assert_eq!(store.get_forecasts("north", &record.vehicle_id).unwrap().as_ref(), Some(record), "{cut_short_after:?}");
+            }
+            drop(store);
+            let db = open_when_released(dir.path());
+            assert_eq!(Engine::stored_schema_version(&db).unwrap(), Some(SCHEMA_VERSION));
+            let keys: Vec<Vec<u8>> = db.open_tree("due_index").unwrap().iter().keys().map(|k| k.unwrap().to_vec()).collect();
+            assert_eq!(keys, due_index, "the due index is unchanged");
+            let bytes: u64 = db.open_tree("forecasts").unwrap().iter().values().map(|v| v.unwrap().len() as u64).sum();
+            if cut_short_after.is_none() {
+                assert!(bytes * 2 < legacy_bytes, "{bytes} bytes after the migration, {legacy_bytes} before");
+            }
+            let meta = db.open_tree("meta").unwrap();
+            assert!(meta.get(FORECASTS_COMPACTED_KEY).unwrap().is_some() && meta.get(FORECASTS_COMPACTED_THROUGH_KEY).unwrap().is_none());
+        }
     }
 
     #[test]

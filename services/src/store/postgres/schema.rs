@@ -16,7 +16,7 @@ use ::postgres::GenericClient;
 use crate::store::{StoreError, StoreResult};
 
 /// Schema version this build writes; a database with a higher one is refused.
-pub const SCHEMA_VERSION: u32 = 2;
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// Advisory lock key held while migrating (any constant shared by every replica).
 const MIGRATION_LOCK: i64 = 0x6272_616b_656c_6467; // "brakeldg"
@@ -178,7 +178,37 @@ CREATE TABLE audit (
 ALTER TABLE forecasts ADD COLUMN stored_at_ms bigint NOT NULL DEFAULT 0;
 CREATE INDEX forecasts_by_stored_at ON forecasts (fleet_id, stored_at_ms);
 "#,
+    // 2 → 3: stored forecasts in the compact layout; no change to the tables, the bodies are
+    // re-encoded by `compact_stored_forecasts` in the same transaction.
+    "",
 ];
+
+/// Forecast bodies re-encoded per round trip by [`compact_stored_forecasts`].
+const COMPACTION_CHUNK: i64 = 1_000;
+
+/// Migration 2 → 3: re-encodes every stored forecast body from the schema-4 layout of the sled
+/// engine into the compact one ([`crate::store::forecast_layout`]); no value changes, so the due
+/// index and `stored_at_ms` stay as they are (replicas have nothing new to hear).
+fn compact_stored_forecasts(tx: &mut ::postgres::Transaction<'_>) -> StoreResult<()> {
+    use crate::store::forecast_layout::LegacyVehicleForecasts;
+    use crate::store::sled_engine::{decode, encode};
+    use crate::store::VehicleForecasts;
+
+    let mut after = (String::new(), String::new());
+    loop {
+        let rows = tx.query(
+            "SELECT fleet_id, vehicle_id, body FROM forecasts WHERE (fleet_id, vehicle_id) > ($1, $2) ORDER BY fleet_id, vehicle_id LIMIT $3",
+            &[&after.0, &after.1, &COMPACTION_CHUNK],
+        )?;
+        let Some(last) = rows.last() else { return Ok(()) };
+        after = (last.get(0), last.get(1));
+        for row in &rows {
+            let old: LegacyVehicleForecasts = decode(row.get::<_, &[u8]>(2))?;
+            let body = encode(&VehicleForecasts::from(old))?;
+            tx.execute("UPDATE forecasts SET body = $3 WHERE fleet_id = $1 AND vehicle_id = $2", &[&row.get::<_, &str>(0), &row.get::<_, &str>(1), &body])?;
+        }
+    }
+}
 
 /// Creates or migrates the schema, or refuses a database written by a newer brakeledger.
 pub fn migrate(client: &mut ::postgres::Client) -> StoreResult<()> {
@@ -205,6 +235,9 @@ fn migrate_locked(client: &mut ::postgres::Client) -> StoreResult<()> {
         let to = index as i32 + 1;
         let mut tx = client.transaction()?;
         tx.batch_execute(sql)?;
+        if to == 3 {
+            compact_stored_forecasts(&mut tx)?;
+        }
         tx.execute(
             "INSERT INTO brakeledger_schema (one, version) VALUES (true, $1) ON CONFLICT (one) DO UPDATE SET version = EXCLUDED.version",
             &[&to],
@@ -226,4 +259,56 @@ pub fn force_version(client: &mut impl GenericClient, version: u32) -> StoreResu
     let version = i32::try_from(version).map_err(|_| StoreError::Engine("schema version out of range".into()))?;
     client.execute("UPDATE brakeledger_schema SET version = $1", &[&version])?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::store::forecast_layout::{computed_forecasts, LegacyVehicleForecasts};
+    use crate::store::postgres::scratch::ScratchDatabase;
+    use crate::store::postgres::PostgresStore;
+    use crate::store::sled_engine::encode;
+    use crate::store::Store;
+
+    #[test]
+    fn a_schema_2_database_gets_its_forecasts_in_the_compact_layout_with_every_value_kept() {
+        let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
+            assert_ne!(std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref(), Ok("1"), "BRAKELEDGER_TEST_POSTGRES_URL is not set");
+            eprintln!("skipped: BRAKELEDGER_TEST_POSTGRES_URL is not set");
+            return;
+        };
+        let database = ScratchDatabase::create(&admin_url, "brakeledger_migration").unwrap();
+        let mut forecasts = computed_forecasts(6);
+        // One part with quantiles off the hour (as the old layout stored every computed one).
+        if let Some(due) = forecasts[0].0.parts[0].outlook.due.as_mut() {
+            due.quantile_days.iter_mut().for_each(|d| *d += 0.01);
+        }
+        let store = PostgresStore::open(&database.url).unwrap();
+        for (record, _) in &forecasts {
+            store.put_forecasts(record).unwrap();
+        }
+        drop(store);
+        let mut client = ::postgres::Client::connect(&database.url, ::postgres::NoTls).unwrap();
+        for (record, fits) in &forecasts {
+            let body = encode(&LegacyVehicleForecasts::of(record, fits)).unwrap();
+            client.execute("UPDATE forecasts SET body = $3 WHERE fleet_id = $1 AND vehicle_id = $2", &[&record.fleet_id, &record.vehicle_id, &body]).unwrap();
+        }
+        force_version(&mut client, 2).unwrap();
+        let due_rows = |client: &mut ::postgres::Client| -> Vec<(String, i64)> {
+            client.query("SELECT vehicle_id, due_earliest_ms FROM due_index ORDER BY 1, 2", &[]).unwrap().iter().map(|r| (r.get(0), r.get(1))).collect()
+        };
+        let body_bytes = |client: &mut ::postgres::Client| -> i64 { client.query_one("SELECT sum(length(body))::int8 FROM forecasts", &[]).unwrap().get(0) };
+        let (due_before, bytes_before) = (due_rows(&mut client), body_bytes(&mut client));
+
+        let store = PostgresStore::open(&database.url).expect("migrated at start");
+        for (record, _) in &forecasts {
+            assert_eq!(store.get_forecasts("north", &record.vehicle_id).unwrap().as_ref(), Some(record));
+        }
+        assert_eq!(stored_version(&mut client).unwrap(), SCHEMA_VERSION);
+        assert_eq!(due_rows(&mut client), due_before, "the due index is unchanged");
+        let bytes_after = body_bytes(&mut client);
+        assert!(bytes_after * 2 < bytes_before, "{bytes_after} bytes after the migration, {bytes_before} before");
+        drop(client);
+        drop(store);
+    }
 }
