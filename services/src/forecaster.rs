@@ -311,12 +311,9 @@ pub fn refresh_pass(store: &dyn Store, config: &ForecastConfig, now_ms: i64, pen
             materialise(data, &compute_vehicle(data, priors, now_ms, &settings), now_ms)
         })
         .collect();
-    let mut changes = Vec::with_capacity(records.len());
-    for record in records {
-        let before = store.get_forecasts(&record.fleet_id, &record.vehicle_id)?.map(Arc::new);
-        store.put_forecasts(&record)?;
-        changes.push(ForecastChange { before, after: Arc::new(record) });
-    }
+    let before = store.replace_forecasts(&records)?;
+    let changes: Vec<ForecastChange> =
+        before.into_iter().zip(records).map(|(before, record)| ForecastChange { before: before.map(Arc::new), after: Arc::new(record) }).collect();
     pending_priors.extend(priors_by_fleet.into_keys());
     // This pass's own marks (a vehicle written again meanwhile keeps its key) and nothing else.
     let round_ends = store.stale_vehicles(marks.len() + 1)?.len() <= marks.len();

@@ -498,6 +498,27 @@ fn dropped_on_an_async_worker(engine: &Engine) {
 
 /// The fleet's forecasts one at a time: the same records, in vehicle order, as the whole-fleet
 /// read; nothing from another fleet; the visitor's error ends the scan and comes back.
+fn forecasts_replaced_together(engine: &Engine) {
+    let store = &engine.store;
+    let start = 20_100.0;
+    store.put_forecasts(&forecasts("v-a", vec![part(1, Component::Friction, start), part(1, Component::Disc, start + 40.0)])).unwrap();
+    let first_a = store.get_forecasts("north", "v-a").unwrap();
+    let a = forecasts("v-a", vec![part(1, Component::Friction, start + 20.0), part(1, Component::Disc, start + 40.0)]);
+    let b = forecasts("v-b", vec![part(2, Component::Friction, start + 5.0)]);
+    assert_eq!(store.replace_forecasts(&[a.clone(), b.clone()]).unwrap(), vec![first_a, None], "what each vehicle held before");
+    assert_eq!(store.get_forecasts("north", "v-a").unwrap(), Some(a.clone()));
+    assert_eq!(store.get_forecasts("north", "v-b").unwrap(), Some(b.clone()));
+    // The index holds the new entries only: v-b's, v-a's moved pad, v-a's unchanged rotor.
+    let due: Vec<(String, i64)> =
+        store.scan_due("north", BandLevel::P80, i64::MAX, None, usize::MAX).unwrap().into_iter().map(|c| (c.vehicle_id, c.due_earliest_ms)).collect();
+    let expected = vec![("v-b".to_owned(), days_to_ms(start + 14.0)), ("v-a".to_owned(), days_to_ms(start + 29.0)), ("v-a".to_owned(), days_to_ms(start + 49.0))];
+    assert_eq!(due, expected);
+    // The same again changes nothing and returns the stored ones.
+    assert_eq!(store.replace_forecasts(&[a.clone(), b.clone()]).unwrap(), vec![Some(a), Some(b)]);
+    assert_eq!(store.scan_due("north", BandLevel::P80, i64::MAX, None, usize::MAX).unwrap().len(), 3);
+    assert!(store.replace_forecasts(&[]).unwrap().is_empty());
+}
+
 fn fleet_forecasts_visited_one_at_a_time(engine: &Engine) {
     let store = &engine.store;
     for (n, id) in ["bus-3", "bus-1", "bus-2"].into_iter().enumerate() {
@@ -591,6 +612,7 @@ conformance!(
     dropped_on_an_async_worker,
     a_round_after_new_data_computes_each_vehicle_once,
     fleet_forecasts_visited_one_at_a_time,
+    forecasts_replaced_together,
 );
 
 // ---------------------------------------------------------------------------------------------

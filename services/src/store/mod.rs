@@ -132,6 +132,18 @@ pub trait Store: Send + Sync + 'static {
     fn service_history(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<ServiceHistory>;
     /// Replaces the materialised forecasts of one vehicle and their due-index entries.
     fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()>;
+    /// [`Self::put_forecasts`] for several vehicles (a forecast pass), in one write where the
+    /// engine allows; returns each one's forecasts as they were before, in order.
+    fn replace_forecasts(&self, records: &[VehicleForecasts]) -> StoreResult<Vec<Option<VehicleForecasts>>> {
+        records
+            .iter()
+            .map(|record| {
+                let before = self.get_forecasts(&record.fleet_id, &record.vehicle_id)?;
+                self.put_forecasts(record)?;
+                Ok(before)
+            })
+            .collect()
+    }
     /// The materialised forecasts of one vehicle.
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>>;
     /// The materialised forecasts of several vehicles of one fleet (a page of the due list),

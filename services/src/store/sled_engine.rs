@@ -753,29 +753,41 @@ impl Engine {
 
     /// See [`Store`].
     pub fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()> {
-        let key = vehicle_key(&record.fleet_id, &record.vehicle_id);
-        let bytes = encode(record)?;
-        let new_keys: BTreeSet<Vec<u8>> = due_index_keys(record).into_iter().collect();
+        self.replace_forecasts(std::slice::from_ref(record)).map(drop)
+    }
+
+    /// See [`Store`]: one transaction for all of them. sled logs every insert and removal, and
+    /// a transaction costs about as much to log as a forecast (measured: BENCHMARKS.md, "Fleet
+    /// scale"), so a pass's vehicles share one.
+    pub fn replace_forecasts(&self, records: &[VehicleForecasts]) -> StoreResult<Vec<Option<VehicleForecasts>>> {
+        let writes = records
+            .iter()
+            .map(|record| {
+                let new_keys: BTreeSet<Vec<u8>> = due_index_keys(record).into_iter().collect();
+                Ok((vehicle_key(&record.fleet_id, &record.vehicle_id), encode(record)?, new_keys))
+            })
+            .collect::<StoreResult<Vec<_>>>()?;
         (&self.forecasts, &self.due_index)
             .transaction(|(forecasts, due_index)| {
-                let old = forecasts.get(&key)?;
-                // Only what changed is written: sled logs every insert and removal, and a part
-                // whose due date stays where it was keeps its due-index entry.
-                if old.as_deref() == Some(bytes.as_slice()) {
-                    return Ok(());
+                let mut before = Vec::with_capacity(writes.len());
+                for (key, bytes, new_keys) in &writes {
+                    let old = forecasts.get(key)?;
+                    let old_record = old.as_deref().map(decode::<VehicleForecasts>).transpose().map_err(abort)?;
+                    // Only what changed is written: a part whose due date stays where it was
+                    // keeps its due-index entry.
+                    if old.as_deref() != Some(bytes.as_slice()) {
+                        let old_keys: BTreeSet<Vec<u8>> = old_record.as_ref().map(|r| due_index_keys(r).into_iter().collect()).unwrap_or_default();
+                        for gone in old_keys.difference(new_keys) {
+                            due_index.remove(gone.as_slice())?;
+                        }
+                        for added in new_keys.difference(&old_keys) {
+                            due_index.insert(added.as_slice(), &[])?;
+                        }
+                        forecasts.insert(key.as_slice(), bytes.as_slice())?;
+                    }
+                    before.push(old_record);
                 }
-                let old_keys: BTreeSet<Vec<u8>> = match &old {
-                    Some(old) => due_index_keys(&decode::<VehicleForecasts>(old).map_err(abort)?).into_iter().collect(),
-                    None => BTreeSet::new(),
-                };
-                for gone in old_keys.difference(&new_keys) {
-                    due_index.remove(gone.as_slice())?;
-                }
-                for added in new_keys.difference(&old_keys) {
-                    due_index.insert(added.as_slice(), &[])?;
-                }
-                forecasts.insert(key.as_slice(), bytes.as_slice())?;
-                Ok(())
+                Ok(before)
             })
             .map_err(|e: TransactionError<StoreError>| StoreError::from(e))
     }

@@ -379,6 +379,10 @@ impl Store for SledStore {
         self.write(|e| e.put_forecasts(record))
     }
 
+    fn replace_forecasts(&self, records: &[VehicleForecasts]) -> StoreResult<Vec<Option<VehicleForecasts>>> {
+        self.write(|e| e.replace_forecasts(records))
+    }
+
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
         self.read(|e| e.get_forecasts(fleet_id, vehicle_id))
     }

@@ -321,6 +321,17 @@ impl Store for PostgresStore {
         self.transaction(|tx| derived::put_forecasts(tx, record, &self.replica_id).map(Finish::Commit))
     }
 
+    fn replace_forecasts(&self, records: &[VehicleForecasts]) -> StoreResult<Vec<Option<VehicleForecasts>>> {
+        self.transaction(|tx| {
+            let mut before = Vec::with_capacity(records.len());
+            for record in records {
+                before.push(derived::get_forecasts(tx, &record.fleet_id, &record.vehicle_id)?);
+                derived::put_forecasts(tx, record, &self.replica_id)?;
+            }
+            Ok(Finish::Commit(before))
+        })
+    }
+
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
         self.with_client(|c| derived::get_forecasts(c, fleet_id, vehicle_id))
     }
