@@ -82,6 +82,12 @@ pub struct ForecastConfig {
     /// for: under writes that never pause (live telematics) forecasts are still refreshed at
     /// least this often. Default 60,000 ms (a minute).
     pub coalesce_max_ms: u64,
+    /// Longest the fleet priors go without re-estimation in a round that does not end (writes
+    /// that never pause), ms; a round that ends re-estimates them anyway. A re-estimation whose
+    /// prior moved recomputes every vehicle of the class, so during a bulk load (new vehicles
+    /// moving the priors each time) a short interval recomputes the whole fleet again and
+    /// again. Default 600,000 ms (10 minutes).
+    pub priors_interval_ms: u64,
     /// Vehicles recomputed per pass.
     pub batch_vehicles: usize,
     /// GetVehicleForecast answers from the materialised forecast (a few key reads) when no
@@ -93,7 +99,7 @@ pub struct ForecastConfig {
 
 impl Default for ForecastConfig {
     fn default() -> Self {
-        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, coalesce_max_ms: 60_000, batch_vehicles: 256, materialised_max_age_s: 3600 }
+        Self { energy_window_days: 120, monte_carlo_draws: 2000, coalesce_ms: 200, coalesce_max_ms: 60_000, priors_interval_ms: 600_000, batch_vehicles: 256, materialised_max_age_s: 3600 }
     }
 }
 

@@ -6,13 +6,13 @@
 //! Every accepted write marks its vehicle stale (in the same transaction). [`run`] wakes on
 //! writes and waits until they pause for `coalesce_ms` (at most `coalesce_max_ms`; see
 //! [`settle`]), so that a burst or a stream of trips becomes one round after it ends instead
-//! of a rewrite of the same forecasts (about 5 KB each, plus their due-index entries) for
+//! of a rewrite of the same forecasts (about 1 KB each, plus their due-index entries) for
 //! every chunk that reaches the vehicle. A round recomputes stale vehicles in batches off the
 //! async runtime until none is left (when writes arrived during a pass it waits for them to
 //! pause again, within the round's `coalesce_max_ms`), and stores their forecasts together
 //! with the due index, so that ListDue, WatchDue and PlanVisits read ranges, never refit the
 //! fleet. When a round ends (no vehicle is left stale; writes arriving during a pass keep it
-//! going), and at least every `coalesce_max_ms` in a round that does not end, it re-estimates
+//! going), and at least every `priors_interval_ms` in a round that does not end, it re-estimates
 //! the priors of the fleets it touched from the stored own-data fits; when a group's prior
 //! moved, the vehicles of that class are marked stale once more. Own fits do not depend on
 //! priors, so this settles after one extra round; and a round over more vehicles than one
@@ -484,7 +484,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
         let started = std::time::Instant::now();
-        let priors_due = priors_estimated_at.elapsed() >= longest;
+        let priors_due = priors_estimated_at.elapsed() >= Duration::from_millis(state.forecast.priors_interval_ms).max(longest);
         let mut pending = std::mem::take(&mut pending_priors);
         let prepare = std::mem::take(&mut round_begins);
         let pass = tokio::task::spawn_blocking(move || {

@@ -38,8 +38,8 @@ open. Without tokens the server serves only on a loopback address, unless --inse
   [metrics]   listen (Prometheus text at GET /metrics)
   [tls]       cert_file, key_file, client_ca_file (re-read at SIGHUP)
   [health]    listen (plain-text listener for gRPC health only)
-  [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, coalesce_max_ms, batch_vehicles,
-              materialised_max_age_s
+  [forecast]  energy_window_days, monte_carlo_draws, coalesce_ms, coalesce_max_ms,
+              priors_interval_ms, batch_vehicles, materialised_max_age_s
   [ingest]    chunk_trips, max_listed_rejections, max_rejection_groups, ack_delay_ms
   [http2]     stream_window_bytes, connection_window_bytes, max_concurrent_streams
   [shutdown]  drain_deadline_ms
