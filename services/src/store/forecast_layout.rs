@@ -270,7 +270,7 @@ pub fn computed_forecasts(vehicles: usize) -> Vec<(VehicleForecasts, Vec<Option<
     let results = forecast_parts(&inputs, today, &settings);
     let mut out: Vec<(VehicleForecasts, Vec<Option<WearFit>>)> = Vec::new();
     for (input, result) in inputs.iter().zip(results) {
-        if out.last().map_or(true, |(v, _)| v.vehicle_id != input.vehicle_id) {
+        if out.last().is_none_or(|(v, _)| v.vehicle_id != input.vehicle_id) {
             let record = VehicleForecasts {
                 fleet_id: "north".into(),
                 vehicle_id: input.vehicle_id.clone(),
