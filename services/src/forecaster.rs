@@ -441,6 +441,8 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
     use futures::FutureExt;
     let quiet = Duration::from_millis(state.forecast.coalesce_ms);
     let longest = Duration::from_millis(state.forecast.coalesce_max_ms.max(state.forecast.coalesce_ms));
+    // Longest the priors wait in a round that does not end (never shorter than a round's wait).
+    let priors_interval = Duration::from_millis(state.forecast.priors_interval_ms).max(longest);
     let mut more_work = true; // stale marks may survive a restart
     // Whether the next pass begins a round (see `priors_for_round`).
     let mut round_begins = true;
@@ -484,7 +486,7 @@ pub async fn run(state: AppState, mut stop: watch::Receiver<bool>) {
         let store = Arc::clone(&state.store);
         let config = state.forecast.clone();
         let started = std::time::Instant::now();
-        let priors_due = priors_estimated_at.elapsed() >= Duration::from_millis(state.forecast.priors_interval_ms).max(longest);
+        let priors_due = priors_estimated_at.elapsed() >= priors_interval;
         let mut pending = std::mem::take(&mut pending_priors);
         let prepare = std::mem::take(&mut round_begins);
         let pass = tokio::task::spawn_blocking(move || {

@@ -55,7 +55,7 @@ fn sled_engine() -> Option<Engine> {
 }
 
 fn postgres_engine() -> Option<Engine> {
-    let database = TestDatabase::create()?;
+    let database = ScratchDatabase::for_test("brakeledger_test")?;
     let url = database.url.clone();
     let store: Arc<dyn Store> = Arc::new(PostgresStore::open(&url).unwrap());
     let (second_url, version_url) = (url.clone(), url);
@@ -68,25 +68,6 @@ fn postgres_engine() -> Option<Engine> {
         }),
         _database: Some(database),
     })
-}
-
-/// A database of its own for one test, or `None` (with a message) when no server is named.
-struct TestDatabase;
-
-impl TestDatabase {
-    fn create() -> Option<ScratchDatabase> {
-        let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
-            if std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() == Ok("1") {
-                panic!("BRAKELEDGER_REQUIRE_POSTGRES=1 but BRAKELEDGER_TEST_POSTGRES_URL is not set: .ci/run starts a throwaway PostgreSQL and sets it");
-            }
-            eprintln!(
-                "PostgreSQL half skipped: set BRAKELEDGER_TEST_POSTGRES_URL=postgres://USER@127.0.0.1:PORT/postgres (a server where the tests may \
-                 create databases; `bash .ci/run` starts one) to run it"
-            );
-            return None;
-        };
-        Some(ScratchDatabase::create(&admin_url, "brakeledger_test").expect("creating a test database on BRAKELEDGER_TEST_POSTGRES_URL"))
-    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -620,7 +601,7 @@ conformance!(
 
 #[test]
 fn replicas_claim_disjoint_stale_vehicles_until_the_lease_ends() {
-    let Some(database) = TestDatabase::create() else { return };
+    let Some(database) = ScratchDatabase::for_test("brakeledger_test") else { return };
     let one = PostgresStore::open(&database.url).unwrap();
     let two = PostgresStore::open(&database.url).unwrap().with_claim_lease_ms(200);
     let ids: Vec<String> = (0..10).map(|i| format!("v-{i}")).collect();
@@ -643,7 +624,7 @@ fn replicas_claim_disjoint_stale_vehicles_until_the_lease_ends() {
 
 #[test]
 fn one_replica_at_a_time_reestimates_a_fleets_priors() {
-    let Some(database) = TestDatabase::create() else { return };
+    let Some(database) = ScratchDatabase::for_test("brakeledger_test") else { return };
     let one = PostgresStore::open(&database.url).unwrap();
     let two = PostgresStore::open(&database.url).unwrap();
     let held = one.lock_fleet_priors("north").unwrap();
@@ -656,7 +637,7 @@ fn one_replica_at_a_time_reestimates_a_fleets_priors() {
 
 #[test]
 fn forecasts_stored_by_one_replica_reach_the_listener_of_another() {
-    let Some(database) = TestDatabase::create() else { return };
+    let Some(database) = ScratchDatabase::for_test("brakeledger_test") else { return };
     let one = PostgresStore::open(&database.url).unwrap();
     let two = PostgresStore::open(&database.url).unwrap();
     let (sender, received) = std::sync::mpsc::channel();
@@ -674,7 +655,7 @@ fn forecasts_stored_by_one_replica_reach_the_listener_of_another() {
 /// another replica while no LISTEN was in place still arrives.
 #[test]
 fn a_listener_that_lost_its_connection_replays_what_it_missed() {
-    let Some(database) = TestDatabase::create() else { return };
+    let Some(database) = ScratchDatabase::for_test("brakeledger_test") else { return };
     let one = PostgresStore::open(&database.url).unwrap();
     let two = PostgresStore::open(&database.url).unwrap();
     one.upsert_fleet(&FleetRecord { fleet_id: "north".into(), time_zone: "UTC".into(), display_name: "North".into() }).unwrap();
@@ -707,7 +688,7 @@ fn a_listener_that_lost_its_connection_replays_what_it_missed() {
 /// PostgreSQL, exported again, holds exactly the same entries (same keys, same stored bytes).
 #[test]
 fn sled_backup_restores_into_postgres_and_exports_the_same_entries() {
-    let Some(database) = TestDatabase::create() else { return };
+    let Some(database) = ScratchDatabase::for_test("brakeledger_test") else { return };
     let dir = tempfile::tempdir().unwrap();
     let sled = SledStore::open(&dir.path().join("data")).unwrap();
     sled.upsert_fleet(&FleetRecord { fleet_id: "north".into(), time_zone: "Europe/Lisbon".into(), display_name: "North".into() }).unwrap();

@@ -465,20 +465,7 @@ pub async fn wait_for_forecasts(server: &TestServer) {
     panic!("forecasts still pending after 30 s");
 }
 
-/// A PostgreSQL database of its own for one test, on the server named by
-/// `BRAKELEDGER_TEST_POSTGRES_URL`; `None` with a message on how to run the test when it is not
-/// set, and a failure instead when `BRAKELEDGER_REQUIRE_POSTGRES=1` (as in CI).
+/// A PostgreSQL database of its own for one test (see `ScratchDatabase::for_test`).
 pub fn postgres_test_database() -> Option<brakeledger::store::postgres::scratch::ScratchDatabase> {
-    let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
-        assert!(
-            std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() != Ok("1"),
-            "BRAKELEDGER_REQUIRE_POSTGRES=1 but BRAKELEDGER_TEST_POSTGRES_URL is not set: .ci/run starts a throwaway PostgreSQL and sets it"
-        );
-        eprintln!(
-            "PostgreSQL test skipped: set BRAKELEDGER_TEST_POSTGRES_URL=postgres://USER@127.0.0.1:PORT/postgres (a server where tests may create \
-             databases; `bash .ci/run` starts one) to run it"
-        );
-        return None;
-    };
-    Some(brakeledger::store::postgres::scratch::ScratchDatabase::create(&admin_url, "brakeledger_e2e").expect("creating a test database"))
+    brakeledger::store::postgres::scratch::ScratchDatabase::for_test("brakeledger_e2e")
 }

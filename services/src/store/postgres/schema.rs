@@ -272,12 +272,7 @@ mod tests {
 
     #[test]
     fn a_schema_2_database_gets_its_forecasts_in_the_compact_layout_with_every_value_kept() {
-        let Some(admin_url) = std::env::var("BRAKELEDGER_TEST_POSTGRES_URL").ok().filter(|u| !u.is_empty()) else {
-            assert_ne!(std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref(), Ok("1"), "BRAKELEDGER_TEST_POSTGRES_URL is not set");
-            eprintln!("skipped: BRAKELEDGER_TEST_POSTGRES_URL is not set");
-            return;
-        };
-        let database = ScratchDatabase::create(&admin_url, "brakeledger_migration").unwrap();
+        let Some(database) = ScratchDatabase::for_test("brakeledger_migration") else { return };
         let mut forecasts = computed_forecasts(6);
         // One part with quantiles off the hour (as the old layout stored every computed one).
         if let Some(due) = forecasts[0].0.parts[0].outlook.due.as_mut() {

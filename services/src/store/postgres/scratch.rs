@@ -32,6 +32,29 @@ impl ScratchDatabase {
     }
 }
 
+/// Environment variable naming the PostgreSQL server tests may create databases on.
+pub const TEST_SERVER_VARIABLE: &str = "BRAKELEDGER_TEST_POSTGRES_URL";
+
+impl ScratchDatabase {
+    /// A database of its own for one test (named `prefix`_…), on the server named by
+    /// `BRAKELEDGER_TEST_POSTGRES_URL`; `None` with a message on how to run the test when it is
+    /// not set, and a failure instead when `BRAKELEDGER_REQUIRE_POSTGRES=1` (as in CI).
+    pub fn for_test(prefix: &str) -> Option<Self> {
+        let Some(admin_url) = std::env::var(TEST_SERVER_VARIABLE).ok().filter(|u| !u.is_empty()) else {
+            assert!(
+                std::env::var("BRAKELEDGER_REQUIRE_POSTGRES").as_deref() != Ok("1"),
+                "BRAKELEDGER_REQUIRE_POSTGRES=1 but {TEST_SERVER_VARIABLE} is not set: .ci/run starts a throwaway PostgreSQL and sets it"
+            );
+            eprintln!(
+                "PostgreSQL test skipped: set {TEST_SERVER_VARIABLE}=postgres://USER@127.0.0.1:PORT/postgres (a server where tests may \
+                 create databases; `bash .ci/run` starts one) to run it"
+            );
+            return None;
+        };
+        Some(Self::create(&admin_url, prefix).unwrap_or_else(|e| panic!("creating a test database on {TEST_SERVER_VARIABLE}: {e}")))
+    }
+}
+
 /// `admin_url` with its database replaced by `name` (URL form or key=value form).
 pub fn url_with_database(admin_url: &str, name: &str) -> String {
     let Some(scheme_end) = admin_url.find("://").map(|i| i + 3) else {
