@@ -115,12 +115,29 @@ impl FirstPassage {
         chi_square: f64,
         uniform: f64,
     ) -> Option<f64> {
+        let (days, valid) = Self::transform_margin_unchecked(margin_mm, rate_mm_per_mj, daily_mean_mj, daily_variance_mj2, chi_square, uniform);
+        valid.then_some(days)
+    }
+
+    /// [`Self::transform_margin`] computed without a branch: the passage time, days, whatever
+    /// the inputs, and whether they were valid (the value means nothing otherwise). A loop over
+    /// many points with it has no branches, so the compiler can vectorise it.
+    #[inline]
+    pub fn transform_margin_unchecked(
+        margin_mm: f64,
+        rate_mm_per_mj: f64,
+        daily_mean_mj: f64,
+        daily_variance_mj2: f64,
+        chi_square: f64,
+        uniform: f64,
+    ) -> (f64, bool) {
         let q = 1.0 / (margin_mm * rate_mm_per_mj * daily_mean_mj);
         let m = margin_mm * margin_mm * q;
         let a = 0.5 * chi_square * daily_variance_mj2 * rate_mm_per_mj * rate_mm_per_mj * q;
-        let valid = |v: f64| v.is_finite() && v > 0.0;
-        (valid(margin_mm) && valid(rate_mm_per_mj) && valid(daily_mean_mj) && valid(daily_variance_mj2) && valid(m) && valid(q))
-            .then(|| smaller_or_larger_root(m, a, uniform))
+        // Finite and positive, as comparisons (NaN fails both) combined without short cuts.
+        let valid = |v: f64| (v > 0.0) & (v < f64::INFINITY);
+        let all_valid = valid(margin_mm) & valid(rate_mm_per_mj) & valid(daily_mean_mj) & valid(daily_variance_mj2) & valid(m) & valid(q);
+        (smaller_or_larger_root(m, a, uniform), all_valid)
     }
 
     /// One random passage time, days (Michael, Schucany & Haas 1976 via `rand_distr`).
