@@ -205,7 +205,8 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
     // Made once: `fit_line` walks the points three times and the residuals once more, and each
     // point's recency weight is an exponential.
     let half_life_days = fit_half_life_days(history, settings);
-    let points: Vec<(usize, WeightedPoint)> = cycles.iter().enumerate().flat_map(move |(ci, cycle)| {
+    let mut points: Vec<(usize, WeightedPoint)> = Vec::with_capacity(cycles.iter().map(|c| c.points.len()).sum());
+    points.extend(cycles.iter().enumerate().flat_map(move |(ci, cycle)| {
         let origin = cycle.origin_energy_mj().map_or(0.0, |o| o.0);
         let (reference_mm, group) = match cycle.start {
             Some(s) => (s.new_thickness_mm, bedding.then_some(unknown)),
@@ -220,7 +221,7 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
             };
             (ci, point)
         })
-    }).collect();
+    }));
     let line = fit_line(points.iter().map(|(_, p)| *p))?;
     let p = line.coefficients();
     let mut lag_products = 0.0;
