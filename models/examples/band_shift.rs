@@ -9,9 +9,9 @@
 //! cargo run --release -p brakeledger-models --example band_shift -- compare before.txt after.txt
 //! ```
 //!
-//! `compare` prints, per fleet and per probability, the median, 95th percentile and largest
-//! `|Δ|` in days and relative to the earlier date's distance from today, over the parts dated
-//! (and not due now) in both files. Used for BENCHMARKS.md ("Forecast refresh against
+//! `compare` prints, per fleet, how many parts have any of their 99 quantiles changed, and per
+//! probability the median, 95th percentile and largest `|Δ|` in days and relative to the
+//! earlier date's distance from today, over the parts dated (and not due now) in both files. Used for BENCHMARKS.md ("Forecast refresh against
 //! PostgreSQL"). Only tuning seeds: the test seeds of the calibration suite stay unseen.
 
 #![allow(missing_docs)]
@@ -46,13 +46,15 @@ fn write(path: &str) -> Result<(), String> {
             .collect();
         for (part, due) in forecasts.into_iter().take(8_000) {
             let q = &due.quantile_days;
-            let _ = writeln!(out, "{name}\t{part}\t{}\t{}\t{}\t{}", fleet.cut_day, q[9].to_bits(), q[49].to_bits(), q[89].to_bits());
+            // All 99 quantiles' bits folded into one number (FNV-1a), to tell whether any moved.
+            let all = q.iter().fold(0xcbf2_9ce4_8422_2325u64, |h, d| (h ^ d.to_bits()).wrapping_mul(0x0000_0100_0000_01b3));
+            let _ = writeln!(out, "{name}\t{part}\t{}\t{}\t{}\t{}\t{all}", fleet.cut_day, q[9].to_bits(), q[49].to_bits(), q[89].to_bits());
         }
     }
     std::fs::write(path, out).map_err(|e| format!("{path}: {e}"))
 }
 
-type Rows = BTreeMap<(String, String), (f64, [f64; 3])>;
+type Rows = BTreeMap<(String, String), (f64, [f64; 3], u64)>;
 
 fn read(path: &str) -> Result<Rows, String> {
     let text = std::fs::read_to_string(path).map_err(|e| format!("{path}: {e}"))?;
@@ -61,7 +63,8 @@ fn read(path: &str) -> Result<Rows, String> {
             let f: Vec<&str> = line.split('\t').collect();
             let bits = |i: usize| f.get(i).and_then(|s| s.parse::<u64>().ok()).map(f64::from_bits).ok_or(format!("bad line: {line}"));
             let today: f64 = f.get(2).and_then(|s| s.parse().ok()).ok_or(format!("bad line: {line}"))?;
-            Ok(((f[0].to_owned(), f[1].to_owned()), (today, [bits(3)?, bits(4)?, bits(5)?])))
+            let all: u64 = f.get(6).and_then(|s| s.parse().ok()).ok_or(format!("bad line: {line}"))?;
+            Ok(((f[0].to_owned(), f[1].to_owned()), (today, [bits(3)?, bits(4)?, bits(5)?], all)))
         })
         .collect()
 }
@@ -77,12 +80,15 @@ fn compare(before: &str, after: &str) -> Result<(), String> {
     println!("|---|---|---|---|---|");
     for name in names {
         // Parts dated in both and not due now (a due-now part has every quantile at today).
-        let pairs: Vec<(f64, [f64; 3], [f64; 3])> = a
+        let both: Vec<(f64, [f64; 3], [f64; 3], bool)> = a
             .iter()
             .filter(|(k, _)| k.0 == name)
-            .filter_map(|(k, (today, qa))| b.get(k).map(|(_, qb)| (*today, *qa, *qb)))
-            .filter(|(today, qa, _)| qa[0] > *today)
+            .filter_map(|(k, (today, qa, all_a))| b.get(k).map(|(_, qb, all_b)| (*today, *qa, *qb, all_a != all_b)))
             .collect();
+        let moved = both.iter().filter(|p| p.3).count();
+        println!("({name}: {moved} of {} parts dated in both have any of their 99 quantiles changed)", both.len());
+        let pairs: Vec<(f64, [f64; 3], [f64; 3])> =
+            both.into_iter().filter(|(today, qa, _, _)| qa[0] > *today).map(|(t, qa, qb, _)| (t, qa, qb)).collect();
         for (column, (_, label)) in PROBABILITIES.iter().enumerate() {
             let mut days: Vec<f64> = pairs.iter().map(|(_, qa, qb)| (qa[column] - qb[column]).abs()).collect();
             let mut relative: Vec<f64> = pairs.iter().map(|(t, qa, qb)| (qa[column] - qb[column]).abs() / (qa[column] - t)).collect();
