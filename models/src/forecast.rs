@@ -691,10 +691,8 @@ impl DueInputs {
     #[inline]
     fn days_by_transform(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> Option<f64> {
         let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
-        Some(
-            FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform)
-                .unwrap_or_else(|| margin / rate / mu),
-        )
+        let (days, valid) = FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
+        Some(if valid { days } else { margin / rate / mu })
     }
 
     /// `self.days_by_transform(..).unwrap_or(0.0)` computed without a branch, so that a loop
@@ -703,7 +701,7 @@ impl DueInputs {
     #[inline]
     fn days_by_transform_or_nan(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> f64 {
         let (margin, rate, mu) = self.point_unchecked(zk, za, zm, drift);
-        let (days, valid) = FirstPassage::transform_margin_unchecked(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
+        let (days, valid) = FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
         let days = if valid { days } else { f64::NAN };
         if margin <= 0.0 {
             0.0
