@@ -158,13 +158,14 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     let (fits, keys, priors) = fit_and_pool_keyed(inputs, settings);
     let prior_by_group: HashMap<(&str, u32, Component), &WearPrior> =
         priors.iter().map(|(k, p)| ((k.vehicle_class.as_str(), k.axle_index, k.component), p)).collect();
-    // (vehicle key, part index), grouped by vehicle: by key, then id (keys are hashes), then
-    // input order within the vehicle.
+    // (vehicle key, part index) by key, then input order. The keys are hashes of the ids, so a
+    // run of one key is one vehicle unless two ids collide; each run is checked (one id
+    // comparison per part) and split by id in that case, and no id is compared while sorting.
     let mut order: Vec<(u64, usize)> = keys.into_iter().enumerate().map(|(i, key)| (key, i)).collect();
-    let same_vehicle = |a: &(u64, usize), b: &(u64, usize)| a.0 == b.0 && inputs[a.1].vehicle_id == inputs[b.1].vehicle_id;
-    order.par_sort_unstable_by(|a, b| a.0.cmp(&b.0).then_with(|| inputs[a.1].vehicle_id.cmp(&inputs[b.1].vehicle_id)).then(a.1.cmp(&b.1)));
+    order.par_sort_unstable();
     let outlooks: Vec<OnceLock<PartOutlook>> = (0..inputs.len()).into_par_iter().map(|_| OnceLock::new()).collect();
-    order.par_chunk_by(same_vehicle).for_each(|members| {
+    // Forecasts one vehicle's parts (`(key, part index)`, in input order) into their places.
+    let forecast = |members: &[(u64, usize)]| {
         let first = &inputs[members[0].1];
         // One random stream per vehicle, as in the service.
         let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[&first.vehicle_id]), ..settings.clone() };
@@ -183,6 +184,17 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
         for (&(_, i), outlook) in members.iter().zip(forecasts) {
             // Each part belongs to one vehicle, so its place is empty.
             let _ = outlooks[i].set(outlook);
+        }
+    };
+    order.par_chunk_by(|a, b| a.0 == b.0).for_each(|run| {
+        let id = &inputs[run[0].1].vehicle_id;
+        if run.iter().all(|&(_, i)| inputs[i].vehicle_id == *id) {
+            forecast(run);
+        } else {
+            // Two ids with one key: each vehicle apart, by id, its parts in input order.
+            let mut by_id = run.to_vec();
+            by_id.sort_by(|a, b| inputs[a.1].vehicle_id.cmp(&inputs[b.1].vehicle_id).then(a.1.cmp(&b.1)));
+            by_id.chunk_by(|a, b| inputs[a.1].vehicle_id == inputs[b.1].vehicle_id).for_each(forecast);
         }
     });
     let results: Vec<Option<PartResult>> = fits
