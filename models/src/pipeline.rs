@@ -186,17 +186,7 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
             let _ = outlooks[i].set(outlook);
         }
     };
-    order.par_chunk_by(|a, b| a.0 == b.0).for_each(|run| {
-        let id = &inputs[run[0].1].vehicle_id;
-        if run.iter().all(|&(_, i)| inputs[i].vehicle_id == *id) {
-            forecast(run);
-        } else {
-            // Two ids with one key: each vehicle apart, by id, its parts in input order.
-            let mut by_id = run.to_vec();
-            by_id.sort_by(|a, b| inputs[a.1].vehicle_id.cmp(&inputs[b.1].vehicle_id).then(a.1.cmp(&b.1)));
-            by_id.chunk_by(|a, b| inputs[a.1].vehicle_id == inputs[b.1].vehicle_id).for_each(forecast);
-        }
-    });
+    order.par_chunk_by(|a, b| a.0 == b.0).for_each(|run| for_each_vehicle(run, |i| inputs[i].vehicle_id.as_str(), forecast));
     let results: Vec<Option<PartResult>> = fits
         .into_par_iter()
         .zip(outlooks)
@@ -208,4 +198,43 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     #[allow(clippy::filter_map_identity)]
     let results: Vec<PartResult> = results.into_iter().filter_map(|r| r).collect();
     results
+}
+
+/// Calls `forecast` with the parts of each vehicle in `run` (`(key, part index)` pairs of one
+/// vehicle key, in input order), `id_of` giving a part's vehicle id: the whole run when every
+/// part has the same id (always, unless two ids' keys collide), else each id's parts apart, by
+/// id, each in input order.
+fn for_each_vehicle<'a>(run: &[(u64, usize)], id_of: impl Fn(usize) -> &'a str, forecast: impl Fn(&[(u64, usize)])) {
+    let Some(&(_, first)) = run.first() else { return };
+    if run.iter().all(|&(_, i)| id_of(i) == id_of(first)) {
+        forecast(run);
+    } else {
+        let mut by_id = run.to_vec();
+        by_id.sort_by(|a, b| id_of(a.1).cmp(id_of(b.1)).then(a.1.cmp(&b.1)));
+        by_id.chunk_by(|a, b| id_of(a.1) == id_of(b.1)).for_each(forecast);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::sync::Mutex;
+
+    use super::for_each_vehicle;
+
+    /// Two vehicles whose keys collide (forced here: a 64-bit hash collision is too rare to
+    /// meet) are forecast apart, each with its own parts in input order; one vehicle's run
+    /// is forecast whole.
+    #[test]
+    fn a_key_shared_by_two_ids_is_split_by_id() {
+        let ids = ["van-7", "bus-2", "van-7", "bus-2", "van-7"];
+        let run: Vec<(u64, usize)> = (0..ids.len()).map(|i| (42, i)).collect();
+        let seen = Mutex::new(Vec::new());
+        for_each_vehicle(&run, |i| ids[i], |members| seen.lock().expect("not poisoned").push(members.iter().map(|m| m.1).collect::<Vec<_>>()));
+        assert_eq!(seen.into_inner().expect("not poisoned"), vec![vec![1, 3], vec![0, 2, 4]]);
+
+        let one = ["van-7"; 3];
+        let seen = Mutex::new(Vec::new());
+        for_each_vehicle(&run[..3], |i| one[i], |members| seen.lock().expect("not poisoned").push(members.iter().map(|m| m.1).collect::<Vec<_>>()));
+        assert_eq!(seen.into_inner().expect("not poisoned"), vec![vec![0, 1, 2]]);
+    }
 }
