@@ -133,20 +133,22 @@ impl DueDistribution {
         keys.sort_unstable();
         let n = keys.len();
         let draws = |i: usize| day_from_key(keys[i]);
-        let quantile_days = DUE_PROBABILITIES
-            .iter()
-            .map(|p| {
-                let pos = p * (n - 1) as f64;
-                // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
-                let lo = pos as usize;
-                let hi = (lo + 1).min(n - 1);
-                let frac = pos - lo as f64;
-                let (low, high) = (draws(lo), draws(hi));
-                // Computed before the choice, which is then a select rather than a branch.
-                let between = low + frac * (high - low);
-                snap_due_day(if (frac == 0.0) | (low == high) { low } else { between })
-            })
-            .collect();
+        let quantile_days = QUANTILE_POSITIONS.with(|cell| {
+            let mut cached = cell.borrow_mut();
+            if cached.0 != n {
+                *cached = (n, quantile_positions(n));
+            }
+            cached
+                .1
+                .iter()
+                .map(|&(lo, hi, frac)| {
+                    let (low, high) = (draws(lo), draws(hi));
+                    // Computed before the choice, which is then a select rather than a branch.
+                    let between = low + frac * (high - low);
+                    snap_due_day(if (frac == 0.0) | (low == high) { low } else { between })
+                })
+                .collect()
+        });
         Some(Self { quantile_days })
     }
 
@@ -194,6 +196,26 @@ impl DueDistribution {
         let level = if level.is_nan() { 0.8 } else { level.clamp(0.0, 0.98) };
         (self.at(0.5 - level / 2.0), self.at(0.5), self.at(0.5 + level / 2.0))
     }
+}
+
+thread_local! {
+    /// The count of sorted draws [`DueDistribution::from_day_keys`] last read quantiles from,
+    /// and [`quantile_positions`] of it: the quasi-random integral gives nearly every part the
+    /// same count, so the positions are worked out once per thread rather than once per part.
+    static QUANTILE_POSITIONS: RefCell<(usize, [(usize, usize, f64); DUE_QUANTILES])> =
+        const { RefCell::new((0, [(0, 0, 0.0); DUE_QUANTILES])) };
+}
+
+/// Where each probability of [`DUE_PROBABILITIES`] lies among `n` sorted draws (`n` ≥ 1):
+/// `(lo, hi, frac)` with the quantile `draws[lo] + frac·(draws[hi] − draws[lo])`, at position
+/// `p·(n − 1)` (linear interpolation between order statistics).
+fn quantile_positions(n: usize) -> [(usize, usize, f64); DUE_QUANTILES] {
+    DUE_PROBABILITIES.map(|p| {
+        let pos = p * (n - 1) as f64;
+        // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
+        let lo = pos as usize;
+        (lo, (lo + 1).min(n - 1), pos - lo as f64)
+    })
 }
 
 /// The sort key of a day (not NaN): its bit pattern as an integer with every bit below the
