@@ -87,8 +87,26 @@ pub enum ForecastBasis {
 pub const DUE_STEPS_PER_DAY: f64 = 24.0;
 
 /// `day` rounded to the nearest step of [`DUE_STEPS_PER_DAY`] (non-finite days unchanged).
+#[inline]
 pub fn snap_due_day(day: f64) -> f64 {
-    (day * DUE_STEPS_PER_DAY).round() / DUE_STEPS_PER_DAY
+    round_half_away_from_zero(day * DUE_STEPS_PER_DAY) / DUE_STEPS_PER_DAY
+}
+
+/// `x.round()` (ties away from zero, the sign kept, so −0.3 gives −0.0) without the call to
+/// the C library's `round` that the baseline x86-64 target makes for it: below 2⁵² in
+/// magnitude the truncation `x as i64` is exact, and so is `x − trunc(x)`; larger or
+/// non-finite values are integers already or NaN and go to `round`. A forecast snaps 99
+/// quantiles per part, and the call was about 2 % of a refresh.
+#[inline]
+fn round_half_away_from_zero(x: f64) -> f64 {
+    if x.abs() < 4.0e15 {
+        let whole = x as i64;
+        let fraction = x - whole as f64;
+        let rounded = whole + i64::from(fraction >= 0.5) - i64::from(fraction <= -0.5);
+        (rounded as f64).copysign(x)
+    } else {
+        x.round()
+    }
 }
 
 /// Due day (days since the Unix epoch, fractional) at probabilities 0.01, 0.02, ..., 0.99.
@@ -115,20 +133,22 @@ impl DueDistribution {
         keys.sort_unstable();
         let n = keys.len();
         let draws = |i: usize| day_from_key(keys[i]);
-        let quantile_days = DUE_PROBABILITIES
-            .iter()
-            .map(|p| {
-                let pos = p * (n - 1) as f64;
-                // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
-                let lo = pos as usize;
-                let hi = (lo + 1).min(n - 1);
-                let frac = pos - lo as f64;
-                let (low, high) = (draws(lo), draws(hi));
-                // Computed before the choice, which is then a select rather than a branch.
-                let between = low + frac * (high - low);
-                snap_due_day(if (frac == 0.0) | (low == high) { low } else { between })
-            })
-            .collect();
+        let quantile_days = QUANTILE_POSITIONS.with(|cell| {
+            let mut cached = cell.borrow_mut();
+            if cached.0 != n {
+                *cached = (n, quantile_positions(n));
+            }
+            cached
+                .1
+                .iter()
+                .map(|&(lo, hi, frac)| {
+                    let (low, high) = (draws(lo), draws(hi));
+                    // Computed before the choice, which is then a select rather than a branch.
+                    let between = low + frac * (high - low);
+                    snap_due_day(if (frac == 0.0) | (low == high) { low } else { between })
+                })
+                .collect()
+        });
         Some(Self { quantile_days })
     }
 
@@ -176,6 +196,26 @@ impl DueDistribution {
         let level = if level.is_nan() { 0.8 } else { level.clamp(0.0, 0.98) };
         (self.at(0.5 - level / 2.0), self.at(0.5), self.at(0.5 + level / 2.0))
     }
+}
+
+thread_local! {
+    /// The count of sorted draws [`DueDistribution::from_day_keys`] last read quantiles from,
+    /// and [`quantile_positions`] of it: the quasi-random integral gives nearly every part the
+    /// same count, so the positions are worked out once per thread rather than once per part.
+    static QUANTILE_POSITIONS: RefCell<(usize, [(usize, usize, f64); DUE_QUANTILES])> =
+        const { RefCell::new((0, [(0, 0, 0.0); DUE_QUANTILES])) };
+}
+
+/// Where each probability of [`DUE_PROBABILITIES`] lies among `n` sorted draws (`n` ≥ 1):
+/// `(lo, hi, frac)` with the quantile `draws[lo] + frac·(draws[hi] − draws[lo])`, at position
+/// `p·(n − 1)` (linear interpolation between order statistics).
+fn quantile_positions(n: usize) -> [(usize, usize, f64); DUE_QUANTILES] {
+    DUE_PROBABILITIES.map(|p| {
+        let pos = p * (n - 1) as f64;
+        // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
+        let lo = pos as usize;
+        (lo, (lo + 1).min(n - 1), pos - lo as f64)
+    })
 }
 
 /// The sort key of a day (not NaN): its bit pattern as an integer with every bit below the
@@ -641,15 +681,20 @@ impl DueInputs {
     /// (mm/MJ) and the mean daily energy (MJ/day); `None`: already at the minimum.
     #[inline]
     fn point(&self, zk: f64, za: f64, zm: f64, drift: f64) -> Option<(f64, f64, f64)> {
+        let point = self.point_unchecked(zk, za, zm, drift);
+        // Not `> 0.0`: a NaN margin goes on (and ends as a NaN day, which is left out).
+        (!(point.0 <= 0.0)).then_some(point)
+    }
+
+    /// [`Self::point`] whatever the margin.
+    #[inline]
+    fn point_unchecked(&self, zk: f64, za: f64, zm: f64, drift: f64) -> (f64, f64, f64) {
         let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
         let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
-        if margin <= 0.0 {
-            return None;
-        }
         let mean = self.energy.mean_mj_per_day;
         let mu = (mean + self.mean_energy_sd * zm).max(0.05 * mean);
         // The rate from today on drifts around the rate so far (lognormal, median-preserving).
-        Some((margin, k * drift, mu))
+        (margin, k * drift, mu)
     }
 
     /// Days from today to the minimum for one point ([`Self::point`]); `passage` draws the
@@ -668,10 +713,23 @@ impl DueInputs {
     #[inline]
     fn days_by_transform(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> Option<f64> {
         let (margin, rate, mu) = self.point(zk, za, zm, drift)?;
-        Some(
-            FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform)
-                .unwrap_or_else(|| margin / rate / mu),
-        )
+        let (days, valid) = FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
+        Some(if valid { days } else { margin / rate / mu })
+    }
+
+    /// `self.days_by_transform(..).unwrap_or(0.0)` computed without a branch, so that a loop
+    /// over the points vectorises; NaN where that takes the fallback of an invalid passage
+    /// (the caller recomputes those few points with [`Self::days_by_transform`]).
+    #[inline]
+    fn days_by_transform_or_nan(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> f64 {
+        let (margin, rate, mu) = self.point_unchecked(zk, za, zm, drift);
+        let (days, valid) = FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
+        let days = if valid { days } else { f64::NAN };
+        if margin <= 0.0 {
+            0.0
+        } else {
+            days
+        }
     }
 }
 
@@ -680,22 +738,35 @@ impl DueInputs {
 /// 6 draw the passage time by Michael, Schucany & Haas (1976).
 fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution> {
     thread_local! {
-        /// The due days' sort keys of one part, reused for every part this thread forecasts.
-        static DUE_DAY_KEYS: RefCell<Vec<i64>> = const { RefCell::new(Vec::new()) };
+        /// The due days of one part's points and their sort keys, reused for every part this
+        /// thread forecasts.
+        static DUE_DAY_KEYS: RefCell<(Vec<f64>, Vec<i64>)> = const { RefCell::new((Vec::new(), Vec::new())) };
     }
     let scores = NormalScores::cached(points);
     let drift = scores.exp_scaled(2, inputs.drift_sd);
+    let [rate, energy, _, anchor, passage, _] = &scores.score_columns;
+    let uniform = &scores.cell_columns[5];
     DUE_DAY_KEYS.with(|buffer| {
-        let mut keys = buffer.borrow_mut();
-        keys.clear();
-        for ((z, u), f) in scores.points.iter().zip(&scores.cells).zip(drift.iter()) {
-            let days = inputs.days_by_transform(z[0], z[3], z[1], *f, z[4] * z[4], u[5]);
-            let due_day = inputs.today_day + days.unwrap_or(0.0);
-            if !due_day.is_nan() {
-                keys.push(day_key(due_day));
-            }
+        let (days, keys) = &mut *buffer.borrow_mut();
+        // First every point's days from today into a buffer (a loop without branches, pushes
+        // or early exits, which the compiler vectorises), then the few that need the general
+        // path, then the sort keys of the due days that are not NaN.
+        days.clear();
+        days.extend(
+            rate.iter()
+                .zip(anchor)
+                .zip(energy)
+                .zip(drift.iter())
+                .zip(passage)
+                .zip(uniform)
+                .map(|(((((zk, za), zm), f), nu), u)| inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u)),
+        );
+        for (i, d) in days.iter_mut().enumerate().filter(|(_, d)| d.is_nan()) {
+            *d = inputs.days_by_transform(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]).unwrap_or(0.0);
         }
-        DueDistribution::from_day_keys(&mut keys)
+        keys.clear();
+        keys.extend(days.iter().map(|d| inputs.today_day + d).filter(|d| !d.is_nan()).map(day_key));
+        DueDistribution::from_day_keys(keys)
     })
 }
 
@@ -785,7 +856,24 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
 
 #[cfg(test)]
 mod tests {
-    use super::{day_from_key, day_key};
+    use super::{day_from_key, day_key, round_half_away_from_zero};
+
+    /// Reference: Rust's `f64::round` (IEEE 754 roundToIntegralTiesToAway), bit for bit,
+    /// at the ties, around zero, near the 2⁵² limit and beyond it.
+    #[test]
+    fn rounding_matches_the_standard_library() {
+        let mut values = vec![0.0, -0.0, 0.5, -0.5, 1.5, -1.5, 2.5, 0.49999999999999994, -0.49999999999999994, 0.3, -0.3, 483_123.5, -483_123.5];
+        values.extend([4.0e15 - 0.5, 4.0e15, 4.5e15 + 1.0, 9.0e15, 1e300, -1e300, f64::INFINITY, f64::NEG_INFINITY, f64::MIN_POSITIVE, f64::EPSILON]);
+        let mut x: f64 = 1.0e-3;
+        while x < 1.0e17 {
+            values.extend([x, -x, x * 24.0 + 0.5, 480_000.0 + x.fract()]);
+            x *= 1.37;
+        }
+        for v in values {
+            assert_eq!(round_half_away_from_zero(v).to_bits(), v.round().to_bits(), "{v:e}");
+        }
+        assert!(round_half_away_from_zero(f64::NAN).is_nan());
+    }
 
     #[test]
     fn sorting_by_bit_pattern_is_the_total_order() {

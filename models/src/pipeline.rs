@@ -10,6 +10,7 @@
 use std::borrow::Borrow;
 use std::collections::HashMap;
 use std::hash::Hash;
+use std::sync::OnceLock;
 
 use rayon::prelude::*;
 
@@ -17,7 +18,7 @@ use crate::domain::Component;
 use crate::forecast::{vehicle_seed, PartOutlook};
 use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, CouplingEstimate, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
-use crate::vehicle_forecast::{forecast_vehicle_fitted, PartData, PartForecast};
+use crate::vehicle_forecast::{forecast_vehicle_outlooks, PartData};
 use crate::wear_fit::{fit_part_any_sign, WearFit};
 use crate::wear_history::PartHistory;
 
@@ -71,12 +72,21 @@ where
     for (group, key, fit) in fits {
         groups.entry(group).or_default().push((key, fit));
     }
+    priors_of_groups(groups, settings)
+}
+
+/// [`estimate_group_priors`] from the fits already grouped, each group's in the order given.
+fn priors_of_groups<G, F>(groups: HashMap<G, Vec<(u64, F)>>, settings: &ForecastSettings) -> HashMap<GroupKey, WearPrior>
+where
+    G: Borrow<GroupKey> + Hash + Eq + Send,
+    F: Borrow<WearFit> + Send,
+{
     let mut priors: HashMap<GroupKey, WearPrior> = groups
         .into_par_iter()
         .filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k.borrow().clone(), p)))
         .collect();
     let couplings: Vec<(GroupKey, CouplingEstimate)> = priors
-        .iter()
+        .par_iter()
         .filter(|(k, _)| k.component == Component::Disc)
         .filter_map(|(k, rotor)| {
             let own_pad = priors.get(&GroupKey { component: Component::Friction, ..k.clone() })?;
@@ -104,13 +114,35 @@ where
 
 /// Fits every part (of any sign) and estimates one prior per group.
 pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, HashMap<GroupKey, WearPrior>) {
-    let fits: Vec<Option<WearFit>> = inputs.par_iter().map(|p| fit_part_any_sign(&p.history, settings).ok()).collect();
-    let triples = inputs
-        .iter()
-        .zip(&fits)
-        .filter_map(|(input, fit)| fit.as_ref().map(|f| (&input.group, vehicle_key(&[&input.vehicle_id]), f)));
-    let priors = estimate_group_priors(triples, settings);
+    let (fits, _, priors) = fit_and_pool_keyed(inputs, settings);
     (fits, priors)
+}
+
+/// [`fit_and_pool`] with every part's [`vehicle_key`] (in input order) beside the fits. The
+/// fits are grouped on rayon's threads: each thread gathers a contiguous run of the inputs and
+/// the runs are joined in input order, so every group lists its fits as a serial pass would.
+fn fit_and_pool_keyed(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, Vec<u64>, HashMap<GroupKey, WearPrior>) {
+    let (fits, keys): (Vec<Option<WearFit>>, Vec<u64>) =
+        inputs.par_iter().map(|p| (fit_part_any_sign(&p.history, settings).ok(), vehicle_key(&[&p.vehicle_id]))).unzip();
+    type Groups<'a> = HashMap<&'a GroupKey, Vec<(u64, &'a WearFit)>>;
+    let groups: Groups<'_> = inputs
+        .par_iter()
+        .zip(&fits)
+        .zip(&keys)
+        .fold(Groups::new, |mut groups, ((input, fit), key)| {
+            if let Some(fit) = fit {
+                groups.entry(&input.group).or_default().push((*key, fit));
+            }
+            groups
+        })
+        .reduce(Groups::new, |mut earlier, later| {
+            for (group, mut fits) in later {
+                earlier.entry(group).or_default().append(&mut fits);
+            }
+            earlier
+        });
+    let priors = priors_of_groups(groups, settings);
+    (fits, keys, priors)
 }
 
 /// Runs the pipeline over `inputs` for `today_day` (days since epoch); results in input order.
@@ -119,51 +151,90 @@ pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<O
 ///
 /// Vehicles are forecast in the order of their keys ([`vehicle_key`]): each prior's members
 /// are sorted by that key, so the leave-one-out look-ups of consecutive vehicles land close
-/// together instead of all over a group of many thousand vehicles.
+/// together instead of all over a group of many thousand vehicles. Nothing is moved on one
+/// thread alone: each fit stays where it was made until it joins its result, and each
+/// vehicle's outlooks go straight to their parts' places (set once each).
 pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastSettings) -> Vec<PartResult> {
-    let (mut fits, priors) = fit_and_pool(inputs, settings);
+    let (fits, keys, priors) = fit_and_pool_keyed(inputs, settings);
     let prior_by_group: HashMap<(&str, u32, Component), &WearPrior> =
         priors.iter().map(|(k, p)| ((k.vehicle_class.as_str(), k.axle_index, k.component), p)).collect();
-    // (vehicle key, part index), grouped by vehicle: by key, then id (keys are hashes), then
-    // input order within the vehicle.
-    let mut order: Vec<(u64, usize)> = inputs.par_iter().enumerate().map(|(i, p)| (vehicle_key(&[&p.vehicle_id]), i)).collect();
-    let same_vehicle = |a: &(u64, usize), b: &(u64, usize)| a.0 == b.0 && inputs[a.1].vehicle_id == inputs[b.1].vehicle_id;
-    order.par_sort_unstable_by(|a, b| a.0.cmp(&b.0).then_with(|| inputs[a.1].vehicle_id.cmp(&inputs[b.1].vehicle_id)).then(a.1.cmp(&b.1)));
-    // Each vehicle with its key and its parts' indices and own fits.
-    type Members = Vec<(usize, Option<WearFit>)>;
-    let vehicles: Vec<(u64, Members)> =
-        order.chunk_by(same_vehicle).map(|parts| (parts[0].0, parts.iter().map(|&(_, i)| (i, fits[i].take())).collect())).collect();
-    let computed: Vec<(Vec<usize>, Vec<PartForecast>)> = vehicles
-        .into_par_iter()
-        .map(|(key, members)| {
-            let vehicle_id = inputs[members[0].0].vehicle_id.as_str();
-            // One random stream per vehicle, as in the service.
-            let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[vehicle_id]), ..settings.clone() };
-            let parts: Vec<PartData<'_>> = members
-                .iter()
-                .map(|&(i, _)| PartData {
-                    history: &inputs[i].history,
-                    daily_energy_mj: &inputs[i].daily_energy_mj,
-                    current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
-                })
-                .collect();
-            let class = inputs[members[0].0].group.vehicle_class.as_str();
-            let prior_of = |axle_index: u32, component: Component| prior_by_group.get(&(class, axle_index, component)).copied();
-            let indices: Vec<usize> = members.iter().map(|m| m.0).collect();
-            let own_fits = members.into_iter().map(|m| m.1).collect();
-            (indices, forecast_vehicle_fitted(key, &parts, own_fits, prior_of, today_day, &vehicle_settings))
-        })
-        .collect();
-    let mut out: Vec<Option<PartResult>> = std::iter::repeat_with(|| None).take(inputs.len()).collect();
-    for (indices, forecasts) in computed {
-        for (i, r) in indices.into_iter().zip(forecasts) {
-            out[i] = Some(PartResult { own_fit: r.own_fit, outlook: r.outlook });
+    // (vehicle key, part index) by key, then input order. The keys are hashes of the ids, so a
+    // run of one key is one vehicle unless two ids collide; each run is checked (one id
+    // comparison per part) and split by id in that case, and no id is compared while sorting.
+    let mut order: Vec<(u64, usize)> = keys.into_iter().enumerate().map(|(i, key)| (key, i)).collect();
+    order.par_sort_unstable();
+    let outlooks: Vec<OnceLock<PartOutlook>> = (0..inputs.len()).into_par_iter().map(|_| OnceLock::new()).collect();
+    // Forecasts one vehicle's parts (`(key, part index)`, in input order) into their places.
+    let forecast = |members: &[(u64, usize)]| {
+        let first = &inputs[members[0].1];
+        // One random stream per vehicle, as in the service.
+        let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[&first.vehicle_id]), ..settings.clone() };
+        let parts: Vec<PartData<'_>> = members
+            .iter()
+            .map(|&(_, i)| PartData {
+                history: &inputs[i].history,
+                daily_energy_mj: &inputs[i].daily_energy_mj,
+                current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
+            })
+            .collect();
+        let class = first.group.vehicle_class.as_str();
+        let prior_of = |axle_index: u32, component: Component| prior_by_group.get(&(class, axle_index, component)).copied();
+        let own_fits: Vec<Option<&WearFit>> = members.iter().map(|&(_, i)| fits[i].as_ref()).collect();
+        let forecasts = forecast_vehicle_outlooks(members[0].0, &parts, &own_fits, prior_of, today_day, &vehicle_settings);
+        for (&(_, i), outlook) in members.iter().zip(forecasts) {
+            // Each part belongs to one vehicle, so its place is empty.
+            let _ = outlooks[i].set(outlook);
         }
-    }
-    // Every slot is filled (each part belongs to one vehicle). `filter_map` collects in place
+    };
+    order.par_chunk_by(|a, b| a.0 == b.0).for_each(|run| for_each_vehicle(run, |i| inputs[i].vehicle_id.as_str(), forecast));
+    let results: Vec<Option<PartResult>> = fits
+        .into_par_iter()
+        .zip(outlooks)
+        .map(|(own_fit, outlook)| outlook.into_inner().map(|outlook| PartResult { own_fit, outlook }))
+        .collect();
+    // Every place is filled (each part belongs to one vehicle). `filter_map` collects in place
     // (an `Option<PartResult>` is as large as a `PartResult`); `flatten` would copy the lot
     // into a second vector of fresh pages.
     #[allow(clippy::filter_map_identity)]
-    let results: Vec<PartResult> = out.into_iter().filter_map(|r| r).collect();
+    let results: Vec<PartResult> = results.into_iter().filter_map(|r| r).collect();
     results
+}
+
+/// Calls `forecast` with the parts of each vehicle in `run` (`(key, part index)` pairs of one
+/// vehicle key, in input order), `id_of` giving a part's vehicle id: the whole run when every
+/// part has the same id (always, unless two ids' keys collide), else each id's parts apart, by
+/// id, each in input order.
+fn for_each_vehicle<'a>(run: &[(u64, usize)], id_of: impl Fn(usize) -> &'a str, forecast: impl Fn(&[(u64, usize)])) {
+    let Some(&(_, first)) = run.first() else { return };
+    if run.iter().all(|&(_, i)| id_of(i) == id_of(first)) {
+        forecast(run);
+    } else {
+        let mut by_id = run.to_vec();
+        by_id.sort_by(|a, b| id_of(a.1).cmp(id_of(b.1)).then(a.1.cmp(&b.1)));
+        by_id.chunk_by(|a, b| id_of(a.1) == id_of(b.1)).for_each(forecast);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::sync::Mutex;
+
+    use super::for_each_vehicle;
+
+    /// Two vehicles whose keys collide (forced here: a 64-bit hash collision is too rare to
+    /// meet) are forecast apart, each with its own parts in input order; one vehicle's run
+    /// is forecast whole.
+    #[test]
+    fn a_key_shared_by_two_ids_is_split_by_id() {
+        let ids = ["van-7", "bus-2", "van-7", "bus-2", "van-7"];
+        let run: Vec<(u64, usize)> = (0..ids.len()).map(|i| (42, i)).collect();
+        let seen = Mutex::new(Vec::new());
+        for_each_vehicle(&run, |i| ids[i], |members| seen.lock().expect("not poisoned").push(members.iter().map(|m| m.1).collect::<Vec<_>>()));
+        assert_eq!(seen.into_inner().expect("not poisoned"), vec![vec![1, 3], vec![0, 2, 4]]);
+
+        let one = ["van-7"; 3];
+        let seen = Mutex::new(Vec::new());
+        for_each_vehicle(&run[..3], |i| one[i], |members| seen.lock().expect("not poisoned").push(members.iter().map(|m| m.1).collect::<Vec<_>>()));
+        assert_eq!(seen.into_inner().expect("not poisoned"), vec![vec![0, 1, 2]]);
+    }
 }

@@ -57,8 +57,26 @@ pub fn forecast_vehicle_fitted<'p>(
     today_day: f64,
     settings: &ForecastSettings,
 ) -> Vec<PartForecast> {
+    let outlooks = {
+        let borrowed: Vec<Option<&WearFit>> = own_fits.iter().map(Option::as_ref).collect();
+        forecast_vehicle_outlooks(vehicle_key, parts, &borrowed, prior_of, today_day, settings)
+    };
     own_fits.resize(parts.len(), None);
-    let mut out: Vec<Option<PartForecast>> = vec![None; parts.len()];
+    own_fits.into_iter().zip(outlooks).map(|(own_fit, outlook)| PartForecast { own_fit, outlook }).collect()
+}
+
+/// The outlooks of [`forecast_vehicle_fitted`] from borrowed fits (`own_fits[i]` for
+/// `parts[i]`; missing entries count as no fit), in the order of `parts`: the pipeline keeps
+/// the fits where they are and moves each into its result once, in parallel.
+pub fn forecast_vehicle_outlooks<'p>(
+    vehicle_key: u64,
+    parts: &[PartData<'_>],
+    own_fits: &[Option<&WearFit>],
+    prior_of: impl Fn(u32, Component) -> Option<&'p WearPrior>,
+    today_day: f64,
+    settings: &ForecastSettings,
+) -> Vec<PartOutlook> {
+    let mut out: Vec<Option<PartOutlook>> = vec![None; parts.len()];
     // (axle, posterior mean, posterior variance, prior) of each forecast pad.
     let mut pads: Vec<(u32, f64, f64, RatePrior)> = Vec::new();
     // Each distinct energy window and its estimate.
@@ -90,7 +108,7 @@ pub fn forecast_vehicle_fitted<'p>(
                 }
             }
         });
-        let own_fit = own_fits[index].take();
+        let own_fit = own_fits.get(index).copied().flatten();
         // Pad and rotor of one axle brake on the same energy: estimate it once per window.
         let window = energy_window(part.daily_energy_mj, settings.energy_window_days);
         let energy = match energies.iter().find(|(w, _)| *w == window) {
@@ -103,7 +121,7 @@ pub fn forecast_vehicle_fitted<'p>(
         };
         let outlook = forecast_part_with_energy(
             part.history,
-            own_fit.as_ref(),
+            own_fit,
             prior.as_ref(),
             energy,
             today_day,
@@ -118,10 +136,10 @@ pub fn forecast_vehicle_fitted<'p>(
                 }
             }
         }
-        out[index] = Some(PartForecast { own_fit, outlook });
+        out[index] = Some(outlook);
     }
     // Every slot is filled; `filter_map` collects in place, `flatten` would copy.
     #[allow(clippy::filter_map_identity)]
-    let forecasts: Vec<PartForecast> = out.into_iter().filter_map(|f| f).collect();
-    forecasts
+    let outlooks: Vec<PartOutlook> = out.into_iter().filter_map(|f| f).collect();
+    outlooks
 }

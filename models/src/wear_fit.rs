@@ -202,7 +202,11 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
     let latest_day = latest_inspection_day(cycles);
     // (cycle index, point) in design row order; an unknown-start cycle's intercept is group
     // `k` (its rank among those cycles), the shared bedding intercept the group after them.
-    let points = cycles.iter().enumerate().flat_map(move |(ci, cycle)| {
+    // Made once: `fit_line` walks the points three times and the residuals once more, and each
+    // point's recency weight is an exponential.
+    let half_life_days = fit_half_life_days(history, settings);
+    let mut points: Vec<(usize, WeightedPoint)> = Vec::with_capacity(cycles.iter().map(|c| c.points.len()).sum());
+    points.extend(cycles.iter().enumerate().flat_map(move |(ci, cycle)| {
         let origin = cycle.origin_energy_mj().map_or(0.0, |o| o.0);
         let (reference_mm, group) = match cycle.start {
             Some(s) => (s.new_thickness_mm, bedding.then_some(unknown)),
@@ -212,17 +216,17 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
             let point = WeightedPoint {
                 x: p.energy_mj - origin,
                 y: reference_mm - p.thickness_mm,
-                weight: recency_weight(latest_day - p.day, fit_half_life_days(history, settings)),
+                weight: recency_weight(latest_day - p.day, half_life_days),
                 group,
             };
             (ci, point)
         })
-    });
-    let line = fit_line(points.clone().map(|(_, p)| p))?;
+    }));
+    let line = fit_line(points.iter().map(|(_, p)| *p))?;
     let p = line.coefficients();
     let mut lag_products = 0.0;
     let mut previous: Option<(usize, f64)> = None;
-    for (ci, point) in points {
+    for &(ci, point) in &points {
         let residual = line.weighted_residual(&point);
         if let Some((previous_cycle, previous_residual)) = previous {
             if previous_cycle == ci {

@@ -111,11 +111,17 @@ impl PartHistory {
     /// Splits the events into wear cycles, oldest first. The last cycle is the part fitted
     /// now. Events with non-finite values are skipped.
     pub fn cycles(&self) -> Vec<WearCycle> {
-        let mut cycles = vec![WearCycle { start: None, points: Vec::new() }];
-        for event in self.events.iter().filter(|e| usable_event(e)) {
+        // Each cycle's points get room at once for every event up to the next replacement (one
+        // allocation per cycle rather than one per doubling; every part is fitted each refresh).
+        let is_replacement = |e: &PartEvent| matches!(e.kind, PartEventKind::Replacement { .. });
+        let room = |from: usize| self.events.get(from..).map_or(0, |rest| rest.iter().take_while(|e| !is_replacement(e)).count());
+        let mut cycles = Vec::with_capacity(1 + self.events.iter().filter(|e| is_replacement(e)).count());
+        cycles.push(WearCycle { start: None, points: Vec::with_capacity(room(0)) });
+        for (index, event) in self.events.iter().enumerate().filter(|(_, e)| usable_event(e)) {
             match event.kind {
                 PartEventKind::Replacement { new_thickness_mm } => {
-                    cycles.push(WearCycle { start: Some(self.cycle_start(event, new_thickness_mm)), points: Vec::new() });
+                    let start = Some(self.cycle_start(event, new_thickness_mm));
+                    cycles.push(WearCycle { start, points: Vec::with_capacity(room(index + 1)) });
                 }
                 PartEventKind::Inspection { thickness_mm } => {
                     if let (Some(last), Some(point)) = (cycles.last_mut(), cycle_point(event, thickness_mm)) {
@@ -143,14 +149,11 @@ impl PartHistory {
             },
             None => (None, &self.events[..]),
         };
-        let points = after
-            .iter()
-            .filter(|e| usable_event(e))
-            .filter_map(|e| match e.kind {
-                PartEventKind::Inspection { thickness_mm } => cycle_point(e, thickness_mm),
-                PartEventKind::Replacement { .. } => None,
-            })
-            .collect();
+        let mut points = Vec::with_capacity(after.len());
+        points.extend(after.iter().filter(|e| usable_event(e)).filter_map(|e| match e.kind {
+            PartEventKind::Inspection { thickness_mm } => cycle_point(e, thickness_mm),
+            PartEventKind::Replacement { .. } => None,
+        }));
         WearCycle { start, points }
     }
 
