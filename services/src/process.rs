@@ -7,10 +7,18 @@
 //! allocate, so freed memory piled up in many arenas: in the fleet-scale benchmark a server
 //! that had taken in 9 million trips of 100,000 vehicles held 5 GB resident, nearly all of it
 //! in 64 MiB arena heaps (BENCHMARKS.md, "Fleet scale"). jemalloc hands freed pages back to
-//! the system after a few seconds, so the resident set follows what is in use.
+//! the system, so the resident set follows what is in use. Two settings are compiled in: the
+//! `background_threads` feature (services/Cargo.toml) starts jemalloc's purging threads, so
+//! pages go back while the server is idle too, not only when a thread next allocates; and
+//! `.cargo/config.toml` sets `dirty_decay_ms:1000,muzzy_decay_ms:0`, so they go back within
+//! about a second instead of ten. Without them the resident set read just after a forecast
+//! refresh held that refresh's freed pages (about 480 MB instead of about 350 MB at 10,000
+//! vehicles; BENCHMARKS.md, "Fleet scale"). `_RJEM_MALLOC_CONF` overrides them at start.
 
 /// The process allocator of every binary that links this crate (the server and command line,
-/// and the tests' copy of it).
+/// and the tests' copy of it). The `system-allocator` feature leaves it out, for heap profilers
+/// that interpose malloc (heaptrack).
+#[cfg(not(feature = "system-allocator"))]
 #[global_allocator]
 static ALLOCATOR: tikv_jemallocator::Jemalloc = tikv_jemallocator::Jemalloc;
 

@@ -9,7 +9,8 @@
 //!   trip, against the same protobuf size;
 //! - **ingest**: StreamTrips over loopback against the storage engine alone (sled, one record
 //!   per trip, one batch and one flush per 2,000 trips: the one-record-per-trip layout's floor);
-//! - **memory**: the server's resident set (VmRSS) after loading and one full forecast refresh;
+//! - **memory**: the server's resident set (VmRSS) after loading and one full forecast refresh,
+//!   again once the reads are done, and its peak (VmHWM);
 //! - **reads**: GetVehicleForecast with 64 concurrent callers against the gRPC health Check on
 //!   the same server and channel, with p99 latencies; ListDue's first page at each step
 //!   against the first step.
@@ -21,7 +22,8 @@
 //! `time` (every vehicle's trip n, then every vehicle's trip n+1: live telematics) [vehicle];
 //! `SCALE_BASELINE_TRIPS` trips written by the engine-alone baseline [400000];
 //! `SCALE_COMPRESS` 0 to serve from a directory created uncompressed
-//! (`[storage] compress_new_directories = false`) [1].
+//! (`[storage] compress_new_directories = false`) [1]; `SCALE_CACHE_BYTES` the server's
+//! `[storage] cache_capacity_bytes` [the default].
 //!
 //! Run: `cargo bench -p brakeledger-tests --bench fleet_scale` (or, reusing the release
 //! build, `cargo test --release -p brakeledger-tests --bench fleet_scale`).
@@ -305,6 +307,10 @@ struct Step {
     vehicles: usize,
     trips: u64,
     rss_mb: f64,
+    /// RSS once the step's reads are done (about 7 s after `rss_mb`), MB.
+    rss_after_reads_mb: f64,
+    /// The largest RSS so far (VmHWM), MB.
+    peak_rss_mb: f64,
     refresh_s: f64,
     list_due_ms: f64,
     forecast: (f64, f64, f64),
@@ -336,7 +342,11 @@ fn main() {
 
     let data = tempfile::tempdir().expect("data dir");
     let compress = env_or("SCALE_COMPRESS", 1usize) != 0;
-    let config = UnlimitedIngestConfig::write_with(if compress { "" } else { "[storage]\ncompress_new_directories = false\n" });
+    let mut storage = format!("[storage]\ncompress_new_directories = {compress}\n");
+    if let Ok(bytes) = std::env::var("SCALE_CACHE_BYTES") {
+        storage.push_str(&format!("cache_capacity_bytes = {bytes}\n"));
+    }
+    let config = UnlimitedIngestConfig::write_with(&storage);
     let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.path().as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
     let pid = server.child.id();
     let (mut loaded, mut protobuf_bytes, mut written, mut ingest_s, mut trips_sent) = (0usize, 0u64, 0u64, 0f64, 0u64);
@@ -385,11 +395,13 @@ fn main() {
                 }
             })
             .await;
+            let (rss_after_reads, peak_rss) = (rss_mb(pid), proc_field(pid, "status", "VmHWM:") as f64 / 1024.0);
+            let (anonymous_mb, threads) = (proc_field(pid, "status", "RssAnon:") as f64 / 1024.0, proc_field(pid, "status", "Threads:"));
             println!(
-                "step {loaded} vehicles, {trips_sent} trips: RSS {rss:.0} MB, refresh {refresh_s:.1} s, ListDue {list_due_ms:.2} ms, GetVehicleForecast {:.0}/s p99 {:.2} ms, health Check {:.0}/s p99 {:.2} ms",
+                "step {loaded} vehicles, {trips_sent} trips: RSS {rss:.0} MB ({rss_after_reads:.0} MB after the reads, {anonymous_mb:.0} MB of it anonymous, {threads} threads; peak {peak_rss:.0} MB), refresh {refresh_s:.1} s, ListDue {list_due_ms:.2} ms, GetVehicleForecast {:.0}/s p99 {:.2} ms, health Check {:.0}/s p99 {:.2} ms",
                 forecast.0, forecast.2, health.0, health.2
             );
-            results.push(Step { vehicles: loaded, trips: trips_sent, rss_mb: rss, refresh_s, list_due_ms, forecast, health });
+            results.push(Step { vehicles: loaded, trips: trips_sent, rss_mb: rss, rss_after_reads_mb: rss_after_reads, peak_rss_mb: peak_rss, refresh_s, list_due_ms, forecast, health });
         }
     });
     let status = server.terminate();
@@ -421,7 +433,10 @@ fn main() {
     );
     let first = &results[0];
     for step in &results {
-        println!("| RSS after loading {} vehicles / {} trips and a refresh ({:.0} s) | – | {:.0} MB | – | ≤ 300 MB at 100k |", step.vehicles, step.trips, step.refresh_s, step.rss_mb);
+        println!(
+            "| RSS after loading {} vehicles / {} trips and a refresh ({:.0} s); after the reads; peak so far | – | {:.0} MB; {:.0} MB; {:.0} MB | – | ≤ 300 MB at 100k |",
+            step.vehicles, step.trips, step.refresh_s, step.rss_mb, step.rss_after_reads_mb, step.peak_rss_mb
+        );
     }
     for step in &results {
         println!(

@@ -344,6 +344,11 @@ fn memory_and_stop_time_follow_the_config() {
     let one_connection = u64::from(http2.max_concurrent_streams) * u64::from(http2.stream_window_bytes);
     assert!(limit >= settings.storage.cache_capacity_bytes + one_connection + (256 << 20), "limit {limit} bytes");
     assert!(request >= settings.storage.cache_capacity_bytes + one_connection, "request {request} bytes");
+    // And the peak resident set measured with the default cache at 100,000 vehicles and 10
+    // million trips (BENCHMARKS.md, "Fleet scale", 2026-12-04: VmHWM 746 MB; sled counts its
+    // cache in compressed page bytes, so the cache alone does not bound the memory).
+    const MEASURED_PEAK_BYTES: u64 = 746_000_000;
+    assert!(limit >= MEASURED_PEAK_BYTES + one_connection, "limit {limit} bytes, below the measured peak");
     // Kubernetes waits longer than the drain before it kills the pod.
     let grace_ms = number(stateful_set, &["spec", "template", "spec", "terminationGracePeriodSeconds"]) * 1000;
     assert!(grace_ms > settings.shutdown.drain_deadline_ms, "grace {grace_ms} ms");
@@ -476,6 +481,20 @@ fn containerfile() -> Vec<(String, String)> {
 /// The user the image finally runs as.
 fn containerfile_user() -> String {
     containerfile().into_iter().filter(|(word, _)| word == "USER").map(|(_, user)| user).next_back().expect("a USER instruction")
+}
+
+#[test]
+fn the_containerfile_builds_with_the_workspace_build_settings() {
+    // `.cargo/config.toml` compiles jemalloc's settings into the binary (pages handed back
+    // within about a second); an image built without it would hold more memory than the
+    // benchmarks measured.
+    let settings = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("../.cargo/config.toml")).expect("read .cargo/config.toml");
+    assert!(settings.contains("JEMALLOC_SYS_WITH_MALLOC_CONF"), ".cargo/config.toml sets no jemalloc settings");
+    let instructions = containerfile();
+    let copy = |what: &str| instructions.iter().position(|(word, rest)| word == "COPY" && rest.split_whitespace().next() == Some(what));
+    let build = instructions.iter().position(|(word, rest)| word == "RUN" && rest.contains("cargo build")).expect("RUN cargo build");
+    let settings_copied = copy(".cargo").expect("COPY .cargo");
+    assert!(settings_copied < build, "the build settings are copied after the build");
 }
 
 #[test]

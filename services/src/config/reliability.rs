@@ -87,8 +87,12 @@ impl Default for ShutdownConfig {
 #[derive(Debug, Clone, Deserialize, PartialEq)]
 #[serde(default, deny_unknown_fields)]
 pub struct StorageConfig {
-    /// Page cache of the storage engine, bytes. Default 64 MiB (sled's own default is 1 GB,
-    /// which made memory grow with every write until it was reached).
+    /// Page cache of the storage engine, bytes, as sled counts them: the serialized size of
+    /// each cached page, compressed on a compressed directory, so the heap the cache takes is
+    /// several times this (at 100,000 vehicles, about 660 MB resident with 64 MiB and 295 MB
+    /// with 16 MiB while trips streamed in; BENCHMARKS.md, "Fleet scale"). Default 64 MiB
+    /// (sled's own default is 1 GB, which made memory grow with every write until it was
+    /// reached); a smaller cache saves memory but slows reads once the forecasts outgrow it.
     pub cache_capacity_bytes: u64,
     /// Whether a data directory created from now on compresses its pages (zstd level 1).
     /// Default true: about a third of the disk and of the bytes written, at the price of

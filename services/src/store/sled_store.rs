@@ -2,7 +2,9 @@
 //! and its trees) behind a slot that can be reopened, with a disk-space gate in front of writes.
 //!
 //! - **Memory**: sled's page cache is `[storage] cache_capacity_bytes` (64 MiB by default;
-//!   sled's own default of 1 GB let memory grow with every write until it got there).
+//!   sled's own default of 1 GB let memory grow with every write until it got there). sled
+//!   counts it in serialized (on a compressed directory, compressed) page bytes, so the heap
+//!   it takes is several times the setting (BENCHMARKS.md, "Fleet scale").
 //! - **Full disk**: every write first checks free space and is refused with
 //!   [`StoreError::StorageFull`] below `[storage] min_free_bytes`. If the engine hits a full
 //!   disk anyway, sled keeps failing every write with that error until the database is

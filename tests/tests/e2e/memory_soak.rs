@@ -45,6 +45,12 @@ fn rss_mib(pid: u32) -> Option<f64> {
     Some(kib / 1024.0)
 }
 
+/// The names of the process's threads (`/proc/<pid>/task/*/comm`).
+fn thread_names(pid: u32) -> Vec<String> {
+    let Ok(tasks) = std::fs::read_dir(format!("/proc/{pid}/task")) else { return Vec::new() };
+    tasks.filter_map(|task| std::fs::read_to_string(task.ok()?.path().join("comm")).ok()).map(|name| name.trim().to_owned()).collect()
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn rss_stays_under_the_bound_and_grows_little_with_the_trips_stored() {
     let total: usize = std::env::var("BRAKELEDGER_SOAK_TRIPS").ok().and_then(|v| v.parse().ok()).unwrap_or(300_000);
@@ -117,6 +123,10 @@ async fn rss_stays_under_the_bound_and_grows_little_with_the_trips_stored() {
     }
     let backup_time = started.elapsed();
     let after_backup = rss_mib(pid).expect("rss");
+    // jemalloc's background threads, compiled in by `.cargo/config.toml` and the
+    // `background_threads` feature, hand freed pages back while the server is idle.
+    let threads = thread_names(pid);
+    let purging = threads.iter().filter(|name| name.as_str() == "jemalloc_bg_thd").count();
     done.store(true, Ordering::SeqCst);
     let samples = sampler.join().expect("sampler");
     server.kill();
@@ -137,6 +147,7 @@ async fn rss_stays_under_the_bound_and_grows_little_with_the_trips_stored() {
         "soak: peak {peak:.1} MiB; growth while storing {early:.2} then {late:.2} MiB per 1,000 trips ({growth:.2} from a quarter to the end); at the end of storing {at_store_end:.1}, after 3 s idle {idle_end:.1}, after the duplicates {after_duplicates:.1}, after a {backup_bytes}-byte backup in {:.2} s {after_backup:.1} MiB",
         backup_time.as_secs_f64()
     );
+    assert!(purging > 0, "no jemalloc background thread in the server: {threads:?}");
     let bounded = total <= 300_000;
     if bounded {
         assert!(peak < RSS_BOUND_MIB, "RSS peaked at {peak:.1} MiB, over the {RSS_BOUND_MIB} MiB bound");
@@ -146,5 +157,9 @@ async fn rss_stays_under_the_bound_and_grows_little_with_the_trips_stored() {
     // idle, and writes that store nothing new add (almost) nothing. (The curve rises in steps
     // as the allocator takes more memory, so the halves of the stream are printed, not compared.)
     assert!(idle_end < at_store_end + 8.0, "RSS grows while idle: {at_store_end:.1} then {idle_end:.1} MiB");
-    assert!(after_duplicates < idle_end * 1.1 + 8.0, "duplicates grow RSS: {idle_end:.1} then {after_duplicates:.1} MiB");
+    // jemalloc's purging threads hand pages back while idle, so the idle reading can be well
+    // under the one at the end of storing (65 against 104 MiB, 2026-12-04); the resend reads
+    // the cached pages back in. What it must not do is grow past what storing took.
+    let settled = idle_end.max(at_store_end);
+    assert!(after_duplicates < settled * 1.1 + 8.0, "duplicates grow RSS: {settled:.1} then {after_duplicates:.1} MiB");
 }
