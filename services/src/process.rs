@@ -12,8 +12,9 @@
 //! pages go back while the server is idle too, not only when a thread next allocates; and
 //! `.cargo/config.toml` sets `dirty_decay_ms:1000,muzzy_decay_ms:0`, so they go back within
 //! about a second instead of ten. Without them the resident set read just after a forecast
-//! refresh held that refresh's freed pages (about 480 MB instead of about 350 MB at 10,000
-//! vehicles; BENCHMARKS.md, "Fleet scale"). `_RJEM_MALLOC_CONF` overrides them at start.
+//! refresh held that refresh's freed pages (743 MB instead of 645 MB at 100,000 vehicles; at
+//! 10,000, 481 MB against 316-411 MB, which is within the spread between runs; BENCHMARKS.md,
+//! "Fleet scale"). `_RJEM_MALLOC_CONF` overrides them at start.
 
 /// The process allocator of every binary that links this crate (the server and command line,
 /// and the tests' copy of it). The `system-allocator` feature leaves it out, for heap profilers
