@@ -17,9 +17,16 @@
 //!
 //! The refresh is `pipeline::forecast_parts` on both cores (rayon), median of 3 rounds, as the
 //! service's refresh runs it (no chart trajectories); with `BRAKELEDGER_BENCH_ONE_THREAD=1` the
-//! same on one thread is printed beside it.
+//! same on one thread is printed beside it. The bench links jemalloc with the service's
+//! settings (`tikv-jemallocator`, a dev-dependency, and `.cargo/config.toml`), as the server
+//! binary does, so the refresh allocates as it does in the service; the models crate itself
+//! stays free of it.
 
 #![allow(missing_docs)]
+
+/// The allocator the service's binaries use (`services/src/process.rs`).
+#[global_allocator]
+static ALLOCATOR: tikv_jemallocator::Jemalloc = tikv_jemallocator::Jemalloc;
 
 use std::io::Write;
 use std::path::PathBuf;
