@@ -34,11 +34,13 @@ use std::process::{Command, Stdio};
 use std::time::Instant;
 
 use brakeledger_models::calibration::repeated_fleet_inputs;
-use brakeledger_models::pipeline::{forecast_parts, PartInput};
+use brakeledger_models::pipeline::{forecast_parts, forecast_parts_in_passes, PartInput};
 use brakeledger_models::{ForecastSettings, PartEventKind};
 
 const DEFAULT_PARTS: usize = 400_000;
 const ROUNDS: usize = 3;
+/// Vehicles per pass of the service's forecast worker (`[forecast] batch_vehicles`, default).
+const PASS_VEHICLES: usize = 256;
 
 fn median(mut v: Vec<f64>) -> f64 {
     v.sort_by(f64::total_cmp);
@@ -211,21 +213,36 @@ fn process_cpu_s() -> f64 {
     (ticks(11) + ticks(12)) / 100.0
 }
 
-/// Median wall time and median CPU time of the full refresh, seconds, and the parts dated.
-fn time_refresh(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> (f64, f64, usize) {
+/// Median wall time and median CPU time of `refresh` (which returns the parts dated), seconds,
+/// and the parts dated.
+fn time_refresh(refresh: impl Fn() -> usize) -> (f64, f64, usize) {
     let mut dated = 0;
     let (walls, cpus): (Vec<f64>, Vec<f64>) = (0..ROUNDS)
         .map(|_| {
             let cpu = process_cpu_s();
             let started = Instant::now();
-            let results = forecast_parts(inputs, today, settings);
-            let elapsed = started.elapsed().as_secs_f64();
-            dated = results.iter().filter(|r| r.outlook.due.is_some()).count();
-            drop(results);
-            (elapsed, process_cpu_s() - cpu)
+            dated = refresh();
+            (started.elapsed().as_secs_f64(), process_cpu_s() - cpu)
         })
         .unzip();
     (median(walls), median(cpus), dated)
+}
+
+/// The refresh as the service's forecast worker runs it: fits and priors over every part, then
+/// the vehicles in passes of [`PASS_VEHICLES`], each pass's results dropped (the worker stores
+/// them) before the next. Returns the parts dated.
+fn refresh_in_passes(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> usize {
+    let mut dated = 0;
+    forecast_parts_in_passes(inputs, today, settings, PASS_VEHICLES, |pass| dated += pass.iter().filter(|(_, r)| r.outlook.due.is_some()).count());
+    dated
+}
+
+/// The whole refresh held at once: every part's result in one vector. Returns the parts dated.
+fn refresh_held_whole(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> usize {
+    let results = forecast_parts(inputs, today, settings);
+    let dated = results.iter().filter(|r| r.outlook.due.is_some()).count();
+    drop(results);
+    dated
 }
 
 fn main() {
@@ -250,7 +267,8 @@ fn main() {
         Ok((copy_s, default, raised, version.lines().nth(2).unwrap_or("").trim().to_owned()))
     });
 
-    let (refresh_s, refresh_cpu_s, dated) = time_refresh(&inputs, today, &settings);
+    let (refresh_s, refresh_cpu_s, dated) = time_refresh(|| refresh_in_passes(&inputs, today, &settings));
+    let (whole_s, whole_cpu_s, _) = time_refresh(|| refresh_held_whole(&inputs, today, &settings));
     let cpu = process_cpu_s();
     let started = Instant::now();
     let (fits, priors) = brakeledger_models::pipeline::fit_and_pool(&inputs, &settings);
@@ -258,15 +276,20 @@ fn main() {
     drop((fits, priors));
     let single = std::env::var_os("BRAKELEDGER_BENCH_ONE_THREAD")
         .and_then(|_| rayon::ThreadPoolBuilder::new().num_threads(1).build().ok())
-        .map(|pool| pool.install(|| time_refresh(&inputs, today, &settings).0));
+        .map(|pool| pool.install(|| time_refresh(|| refresh_in_passes(&inputs, today, &settings)).0));
 
     println!();
     println!("| what | time | ratio to full refresh |");
     println!("|---|---|---|");
     println!(
-        "| brakeledger full refresh (fit, pool, bands; {} threads), {dated} parts dated; CPU {refresh_cpu_s:.2} s = {:.1} µs per part | {refresh_s:.3} s | 1.00 |",
+        "| brakeledger full refresh (fit, pool, bands; {} threads; vehicles in passes of {PASS_VEHICLES}), {dated} parts dated; CPU {refresh_cpu_s:.2} s = {:.1} µs per part | {refresh_s:.3} s | 1.00 |",
         rayon::current_num_threads(),
         refresh_cpu_s / parts as f64 * 1e6
+    );
+    println!(
+        "| the same held whole (every part's result in one vector); CPU {whole_cpu_s:.2} s = {:.1} µs per part | {whole_s:.3} s | {:.2} |",
+        whole_cpu_s / parts as f64 * 1e6,
+        whole_s / refresh_s
     );
     println!("| of which fits and priors alone; CPU {:.2} s = {:.1} µs per part | {:.3} s | {:.2} |", fit_pool.1, fit_pool.1 / parts as f64 * 1e6, fit_pool.0, fit_pool.0 / refresh_s);
     if let Some(single_s) = single {

@@ -85,7 +85,7 @@ where
         .into_par_iter()
         .filter_map(|(k, fits)| estimate_prior(&fits, settings).map(|p| (k.borrow().clone(), p)))
         .collect();
-    let couplings: Vec<(GroupKey, CouplingEstimate)> = priors
+    let mut couplings: Vec<(GroupKey, CouplingEstimate)> = priors
         .par_iter()
         .filter(|(k, _)| k.component == Component::Disc)
         .filter_map(|(k, rotor)| {
@@ -101,6 +101,9 @@ where
             estimate_pad_coupling(&pads, own_pad, rotor, settings).map(|c| (k.clone(), c))
         })
         .collect();
+    // In key order: the map's order changes from one map to the next, and the pooled sums
+    // would change in their last bits with it.
+    couplings.sort_by(|a, b| a.0.cmp(&b.0));
     // Each group's correlation shrunk toward the fleet's (pooling docs); β follows it.
     let pooled = pool_pad_rotor_correlations(&couplings.iter().map(|(_, c)| (c.coupling.correlation, c.coupling.vehicles)).collect::<Vec<_>>());
     for ((k, c), correlation) in couplings.into_iter().zip(pooled) {
@@ -155,39 +158,16 @@ fn fit_and_pool_keyed(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec
 /// thread alone: each fit stays where it was made until it joins its result, and each
 /// vehicle's outlooks go straight to their parts' places (set once each).
 pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastSettings) -> Vec<PartResult> {
-    let (fits, keys, priors) = fit_and_pool_keyed(inputs, settings);
-    let prior_by_group: HashMap<(&str, u32, Component), &WearPrior> =
-        priors.iter().map(|(k, p)| ((k.vehicle_class.as_str(), k.axle_index, k.component), p)).collect();
-    // (vehicle key, part index) by key, then input order. The keys are hashes of the ids, so a
-    // run of one key is one vehicle unless two ids collide; each run is checked (one id
-    // comparison per part) and split by id in that case, and no id is compared while sorting.
-    let mut order: Vec<(u64, usize)> = keys.into_iter().enumerate().map(|(i, key)| (key, i)).collect();
-    order.par_sort_unstable();
+    let refresh = Refresh::prepare(inputs, today_day, settings);
     let outlooks: Vec<OnceLock<PartOutlook>> = (0..inputs.len()).into_par_iter().map(|_| OnceLock::new()).collect();
-    // Forecasts one vehicle's parts (`(key, part index)`, in input order) into their places.
-    let forecast = |members: &[(u64, usize)]| {
-        let first = &inputs[members[0].1];
-        // One random stream per vehicle, as in the service.
-        let vehicle_settings = ForecastSettings { seed: vehicle_seed(settings.seed, &[&first.vehicle_id]), ..settings.clone() };
-        let parts: Vec<PartData<'_>> = members
-            .iter()
-            .map(|&(_, i)| PartData {
-                history: &inputs[i].history,
-                daily_energy_mj: &inputs[i].daily_energy_mj,
-                current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
-            })
-            .collect();
-        let class = first.group.vehicle_class.as_str();
-        let prior_of = |axle_index: u32, component: Component| prior_by_group.get(&(class, axle_index, component)).copied();
-        let own_fits: Vec<Option<&WearFit>> = members.iter().map(|&(_, i)| fits[i].as_ref()).collect();
-        let forecasts = forecast_vehicle_outlooks(members[0].0, &parts, &own_fits, prior_of, today_day, &vehicle_settings);
-        for (&(_, i), outlook) in members.iter().zip(forecasts) {
+    refresh.vehicle_runs().par_iter().for_each(|run| {
+        refresh.forecast_run(run, |i, outlook| {
             // Each part belongs to one vehicle, so its place is empty.
             let _ = outlooks[i].set(outlook);
-        }
-    };
-    order.par_chunk_by(|a, b| a.0 == b.0).for_each(|run| for_each_vehicle(run, |i| inputs[i].vehicle_id.as_str(), forecast));
-    let results: Vec<Option<PartResult>> = fits
+        })
+    });
+    let results: Vec<Option<PartResult>> = refresh
+        .fits
         .into_par_iter()
         .zip(outlooks)
         .map(|(own_fit, outlook)| outlook.into_inner().map(|outlook| PartResult { own_fit, outlook }))
@@ -200,18 +180,109 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
     results
 }
 
+/// The pipeline of [`forecast_parts`] run as the service's forecast worker runs a refresh:
+/// fits and priors over every part first, then the vehicles in passes of `pass_vehicles`
+/// (each pass on rayon's threads), handing each pass's results to `each_pass` as
+/// `(input index, result)` pairs (in vehicle-key order, each vehicle's parts in input order)
+/// before the next pass begins. Only one pass's outlooks are held at a time, as the worker
+/// holds only the pass it is storing. Every result equals [`forecast_parts`]'s for that part.
+pub fn forecast_parts_in_passes(
+    inputs: &[PartInput],
+    today_day: f64,
+    settings: &ForecastSettings,
+    pass_vehicles: usize,
+    mut each_pass: impl FnMut(Vec<(usize, PartResult)>),
+) {
+    let refresh = Refresh::prepare(inputs, today_day, settings);
+    for pass in refresh.vehicle_runs().chunks(pass_vehicles.max(1)) {
+        let results: Vec<(usize, PartResult)> = pass
+            .par_iter()
+            .flat_map_iter(|run| {
+                let mut outlooks = Vec::with_capacity(run.len());
+                refresh.forecast_run(run, |i, outlook| outlooks.push((i, PartResult { own_fit: refresh.fits[i].clone(), outlook })));
+                outlooks
+            })
+            .collect();
+        each_pass(results);
+    }
+}
+
+/// What a refresh has after fitting and pooling: every part's own fit, the priors, and the
+/// parts in vehicle-key order (see [`forecast_parts`]).
+struct Refresh<'a> {
+    inputs: &'a [PartInput],
+    today_day: f64,
+    settings: &'a ForecastSettings,
+    fits: Vec<Option<WearFit>>,
+    /// Each group's prior by (vehicle class, axle, component), the class borrowed from the
+    /// inputs (no key is built to look one up).
+    priors: HashMap<(&'a str, u32, Component), WearPrior>,
+    /// `(vehicle key, part index)` by key, then input order.
+    order: Vec<(u64, usize)>,
+}
+
+impl<'a> Refresh<'a> {
+    fn prepare(inputs: &'a [PartInput], today_day: f64, settings: &'a ForecastSettings) -> Self {
+        let (fits, keys, priors) = fit_and_pool_keyed(inputs, settings);
+        // The keys are hashes of the ids, so a run of one key is one vehicle unless two ids
+        // collide; each run is checked (one id comparison per part) and split by id in that
+        // case ([`for_each_vehicle`]), and no id is compared while sorting.
+        let mut order: Vec<(u64, usize)> = keys.into_iter().enumerate().map(|(i, key)| (key, i)).collect();
+        order.par_sort_unstable();
+        let priors = priors
+            .into_iter()
+            .filter_map(|(k, p)| {
+                let class = inputs.iter().find(|i| i.group.vehicle_class == k.vehicle_class)?.group.vehicle_class.as_str();
+                Some(((class, k.axle_index, k.component), p))
+            })
+            .collect();
+        Self { inputs, today_day, settings, fits, priors, order }
+    }
+
+    /// The runs of one vehicle key in [`Self::order`].
+    fn vehicle_runs(&self) -> Vec<&[(u64, usize)]> {
+        self.order.chunk_by(|a, b| a.0 == b.0).collect()
+    }
+
+    /// Forecasts the vehicles of one key `run`, calling `place(part index, outlook)` once for
+    /// each of their parts.
+    fn forecast_run(&self, run: &[(u64, usize)], mut place: impl FnMut(usize, PartOutlook)) {
+        let inputs = self.inputs;
+        for_each_vehicle(run, |i| inputs[i].vehicle_id.as_str(), |members| {
+            let first = &inputs[members[0].1];
+            // One random stream per vehicle, as in the service.
+            let vehicle_settings = ForecastSettings { seed: vehicle_seed(self.settings.seed, &[&first.vehicle_id]), ..self.settings.clone() };
+            let parts: Vec<PartData<'_>> = members
+                .iter()
+                .map(|&(_, i)| PartData {
+                    history: &inputs[i].history,
+                    daily_energy_mj: &inputs[i].daily_energy_mj,
+                    current_cumulative_energy_mj: inputs[i].current_cumulative_energy_mj,
+                })
+                .collect();
+            let class = first.group.vehicle_class.as_str();
+            let prior_of = |axle_index: u32, component: Component| self.priors.get(&(class, axle_index, component));
+            let own_fits: Vec<Option<&WearFit>> = members.iter().map(|&(_, i)| self.fits[i].as_ref()).collect();
+            let forecasts = forecast_vehicle_outlooks(members[0].0, &parts, &own_fits, prior_of, self.today_day, &vehicle_settings);
+            for (&(_, i), outlook) in members.iter().zip(forecasts) {
+                place(i, outlook);
+            }
+        });
+    }
+}
+
 /// Calls `forecast` with the parts of each vehicle in `run` (`(key, part index)` pairs of one
 /// vehicle key, in input order), `id_of` giving a part's vehicle id: the whole run when every
 /// part has the same id (always, unless two ids' keys collide), else each id's parts apart, by
 /// id, each in input order.
-fn for_each_vehicle<'a>(run: &[(u64, usize)], id_of: impl Fn(usize) -> &'a str, forecast: impl Fn(&[(u64, usize)])) {
+fn for_each_vehicle<'a>(run: &[(u64, usize)], id_of: impl Fn(usize) -> &'a str, mut forecast: impl FnMut(&[(u64, usize)])) {
     let Some(&(_, first)) = run.first() else { return };
     if run.iter().all(|&(_, i)| id_of(i) == id_of(first)) {
         forecast(run);
     } else {
         let mut by_id = run.to_vec();
         by_id.sort_by(|a, b| id_of(a.1).cmp(id_of(b.1)).then(a.1.cmp(&b.1)));
-        by_id.chunk_by(|a, b| id_of(a.1) == id_of(b.1)).for_each(forecast);
+        by_id.chunk_by(|a, b| id_of(a.1) == id_of(b.1)).for_each(&mut forecast);
     }
 }
 
