@@ -107,7 +107,7 @@ impl FirstPassage {
     /// The same value up to rounding, computed without a branch, and whether the inputs were
     /// ones [`Self::new`] accepts (all positive and finite; the value means nothing otherwise).
     /// A loop over many points with it has no branches, so the compiler can vectorise it.
-    #[inline]
+    #[inline(always)]
     pub fn transform_margin(
         margin_mm: f64,
         rate_mm_per_mj: f64,
@@ -137,7 +137,7 @@ impl FirstPassage {
 /// The Michael-Schucany-Haas step of [`FirstPassage::transform`] given the mean `m` and
 /// `a = m·ν²/(2λ)`: the smaller root `x = m/D`, `D = 1 + a + √(a² + 2a)`, taken with
 /// probability `m/(m + x)` (`uniform` below it), else the larger `m²/x = m·D`.
-#[inline]
+#[inline(always)]
 fn smaller_or_larger_root(m: f64, a: f64, uniform: f64) -> f64 {
     let denominator = 1.0 + a + (a * a + 2.0 * a).sqrt();
     let x = m / denominator;

@@ -687,7 +687,7 @@ impl DueInputs {
     }
 
     /// [`Self::point`] whatever the margin.
-    #[inline]
+    #[inline(always)]
     fn point_unchecked(&self, zk: f64, za: f64, zm: f64, drift: f64) -> (f64, f64, f64) {
         let k = (self.rate_mean + self.rate_sd * zk).max(0.05 * self.rate_mean);
         let margin = self.anchor_mm + self.anchor_sd * za - k * self.energy_since_anchor_mj - self.min_thickness_mm;
@@ -720,7 +720,7 @@ impl DueInputs {
     /// `self.days_by_transform(..).unwrap_or(0.0)` computed without a branch, so that a loop
     /// over the points vectorises; NaN where that takes the fallback of an invalid passage
     /// (the caller recomputes those few points with [`Self::days_by_transform`]).
-    #[inline]
+    #[inline(always)]
     fn days_by_transform_or_nan(&self, zk: f64, za: f64, zm: f64, drift: f64, chi_square: f64, uniform: f64) -> f64 {
         let (margin, rate, mu) = self.point_unchecked(zk, za, zm, drift);
         let (days, valid) = FirstPassage::transform_margin(margin, rate, mu, self.energy.variance_mj2_per_day, chi_square, uniform);
@@ -752,15 +752,8 @@ fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution
         // or early exits, which the compiler vectorises), then the few that need the general
         // path, then the sort keys of the due days that are not NaN.
         days.clear();
-        days.extend(
-            rate.iter()
-                .zip(anchor)
-                .zip(energy)
-                .zip(drift.iter())
-                .zip(passage)
-                .zip(uniform)
-                .map(|(((((zk, za), zm), f), nu), u)| inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u)),
-        );
+        days.resize(rate.len(), 0.0);
+        pulp::Arch::new().dispatch(DaysOfPoints { inputs, days, rate, anchor, energy, drift: &drift, passage, uniform });
         for (i, d) in days.iter_mut().enumerate().filter(|(_, d)| d.is_nan()) {
             *d = inputs.days_by_transform(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]).unwrap_or(0.0);
         }
@@ -768,6 +761,34 @@ fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution
         keys.extend(days.iter().map(|d| inputs.today_day + d).filter(|d| !d.is_nan()).map(day_key));
         DueDistribution::from_day_keys(keys)
     })
+}
+
+/// The loop of [`quasi_random_due`] over its points, as a [`pulp::WithSimd`] operation: pulp
+/// compiles it once more for the processor's widest vectors (AVX2 where present: four lanes
+/// instead of SSE2's two) and picks the copy at run time. The same IEEE operations lane by
+/// lane (no fused multiply-add is formed), so every day is the same bit for bit.
+struct DaysOfPoints<'a> {
+    inputs: &'a DueInputs,
+    /// Out: each point's days from today ([`DueInputs::days_by_transform_or_nan`]).
+    days: &'a mut [f64],
+    rate: &'a [f64],
+    anchor: &'a [f64],
+    energy: &'a [f64],
+    drift: &'a [f64],
+    passage: &'a [f64],
+    uniform: &'a [f64],
+}
+
+impl pulp::WithSimd for DaysOfPoints<'_> {
+    type Output = ();
+
+    #[inline(always)]
+    fn with_simd<S: pulp::Simd>(self, _simd: S) {
+        let points = self.rate.iter().zip(self.anchor).zip(self.energy).zip(self.drift).zip(self.passage).zip(self.uniform);
+        for (day, (((((zk, za), zm), f), nu), u)) in self.days.iter_mut().zip(points) {
+            *day = self.inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u);
+        }
+    }
 }
 
 /// The due-day distribution by seeded pseudo-random draws (the earlier method, a reference for
@@ -856,7 +877,48 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
 
 #[cfg(test)]
 mod tests {
-    use super::{day_from_key, day_key, round_half_away_from_zero};
+    use super::{day_from_key, day_key, round_half_away_from_zero, DaysOfPoints, DueInputs};
+    use crate::energy_rate::EnergyRate;
+    use crate::quasi_random::NormalScores;
+
+    /// The loop pulp compiles for the processor's widest vectors gives each point's days bit
+    /// for bit as [`DueInputs::days_by_transform_or_nan`] called point by point (reference:
+    /// the scalar IEEE 754 operations themselves), over parts that take every path: valid
+    /// passages, a margin at or below zero, and inputs the passage rejects (NaN, the fallback).
+    #[test]
+    fn the_vectorised_points_loop_is_the_scalar_one_bit_for_bit() {
+        let scores = NormalScores::cached(128);
+        let [rate, energy, _, anchor, passage, _] = &scores.score_columns;
+        let uniform = &scores.cell_columns[5];
+        let energy_rate = |mean: f64, variance: f64| EnergyRate { mean_mj_per_day: mean, variance_mj2_per_day: variance, mean_variance: 4.0, days: 120, active_days: 100 };
+        let cases = [
+            (9.0, 0.8, 3e-4, 4e-5, 8_000.0, energy_rate(35.0, 900.0), 0.1),
+            (3.1, 0.5, 1e-3, 5e-4, 100.0, energy_rate(5.0, 400.0), 0.3),
+            (2.05, 0.0, 2e-4, 1e-4, 200.0, energy_rate(60.0, 0.0), 0.0),
+            (6.0, 0.2, 2e-5, 1e-6, 0.0, energy_rate(f64::NAN, 50.0), 0.2),
+        ];
+        for (anchor_mm, anchor_sd, rate_mean, rate_sd, since, energy_rate, drift_sd) in cases {
+            let inputs = DueInputs {
+                min_thickness_mm: 2.0,
+                rate_mean,
+                rate_sd,
+                anchor_mm,
+                anchor_sd,
+                energy_since_anchor_mj: since,
+                energy: energy_rate,
+                mean_energy_sd: 2.0,
+                drift_sd,
+                today_day: 20_000.0,
+            };
+            let drift = scores.exp_scaled(2, drift_sd);
+            let mut days = vec![0.0; rate.len()];
+            pulp::Arch::new().dispatch(DaysOfPoints { inputs: &inputs, days: &mut days, rate, anchor, energy, drift: &drift, passage, uniform });
+            for (i, day) in days.iter().enumerate() {
+                let scalar = inputs.days_by_transform_or_nan(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]);
+                assert_eq!(day.to_bits(), scalar.to_bits(), "point {i}: {day} against {scalar}");
+            }
+        }
+    }
 
     /// Reference: Rust's `f64::round` (IEEE 754 roundToIntegralTiesToAway), bit for bit,
     /// at the ties, around zero, near the 2⁵² limit and beyond it.
