@@ -233,7 +233,7 @@ fn time_refresh(refresh: impl Fn() -> usize) -> (f64, f64, usize) {
 /// them) before the next. Returns the parts dated.
 fn refresh_in_passes(inputs: &[PartInput], today: f64, settings: &ForecastSettings) -> usize {
     let mut dated = 0;
-    forecast_parts_in_passes(inputs, today, settings, PASS_VEHICLES, |pass| dated += pass.iter().filter(|(_, r)| r.outlook.due.is_some()).count());
+    forecast_parts_in_passes(inputs, today, settings, PASS_VEHICLES, |_, pass| dated += pass.iter().filter(|(_, outlook)| outlook.due.is_some()).count());
     dated
 }
 

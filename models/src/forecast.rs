@@ -222,6 +222,7 @@ fn quantile_positions(n: usize) -> [(usize, usize, f64); DUE_QUANTILES] {
 /// sign flipped when negative, the order-preserving map of the IEEE 754 total order
 /// (`f64::total_cmp`). Integers sort about twice as fast as `total_cmp` for the hundred-odd
 /// values of a forecast.
+#[inline(always)]
 fn day_key(day: f64) -> i64 {
     let bits = day.to_bits() as i64;
     bits ^ (((bits >> 63) as u64) >> 1) as i64
@@ -748,17 +749,24 @@ fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution
     let uniform = &scores.cell_columns[5];
     DUE_DAY_KEYS.with(|buffer| {
         let (days, keys) = &mut *buffer.borrow_mut();
-        // First every point's days from today into a buffer (a loop without branches, pushes
-        // or early exits, which the compiler vectorises), then the few that need the general
-        // path, then the sort keys of the due days that are not NaN.
+        // First every point's days from today and the sort key of its due day into buffers (a
+        // loop without branches, pushes or early exits, which the compiler vectorises), then
+        // the few that need the general path; due days that are NaN are left out.
         days.clear();
         days.resize(rate.len(), 0.0);
-        pulp::Arch::new().dispatch(DaysOfPoints { inputs, days, rate, anchor, energy, drift: &drift, passage, uniform });
+        keys.clear();
+        keys.resize(rate.len(), 0);
+        pulp::Arch::new().dispatch(DaysOfPoints { inputs, days, keys, rate, anchor, energy, drift: &drift, passage, uniform });
+        let mut undated = false;
         for (i, d) in days.iter_mut().enumerate().filter(|(_, d)| d.is_nan()) {
             *d = inputs.days_by_transform(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]).unwrap_or(0.0);
+            keys[i] = day_key(inputs.today_day + *d);
+            undated |= d.is_nan();
         }
-        keys.clear();
-        keys.extend(days.iter().map(|d| inputs.today_day + d).filter(|d| !d.is_nan()).map(day_key));
+        if undated {
+            keys.clear();
+            keys.extend(days.iter().map(|d| inputs.today_day + d).filter(|d| !d.is_nan()).map(day_key));
+        }
         DueDistribution::from_day_keys(keys)
     })
 }
@@ -771,6 +779,8 @@ struct DaysOfPoints<'a> {
     inputs: &'a DueInputs,
     /// Out: each point's days from today ([`DueInputs::days_by_transform_or_nan`]).
     days: &'a mut [f64],
+    /// Out: the [`day_key`] of each point's due day (today plus its days).
+    keys: &'a mut [i64],
     rate: &'a [f64],
     anchor: &'a [f64],
     energy: &'a [f64],
@@ -785,8 +795,9 @@ impl pulp::WithSimd for DaysOfPoints<'_> {
     #[inline(always)]
     fn with_simd<S: pulp::Simd>(self, _simd: S) {
         let points = self.rate.iter().zip(self.anchor).zip(self.energy).zip(self.drift).zip(self.passage).zip(self.uniform);
-        for (day, (((((zk, za), zm), f), nu), u)) in self.days.iter_mut().zip(points) {
+        for ((day, key), (((((zk, za), zm), f), nu), u)) in self.days.iter_mut().zip(self.keys.iter_mut()).zip(points) {
             *day = self.inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u);
+            *key = day_key(self.inputs.today_day + *day);
         }
     }
 }
@@ -911,11 +922,12 @@ mod tests {
                 today_day: 20_000.0,
             };
             let drift = scores.exp_scaled(2, drift_sd);
-            let mut days = vec![0.0; rate.len()];
-            pulp::Arch::new().dispatch(DaysOfPoints { inputs: &inputs, days: &mut days, rate, anchor, energy, drift: &drift, passage, uniform });
-            for (i, day) in days.iter().enumerate() {
+            let (mut days, mut keys) = (vec![0.0; rate.len()], vec![0; rate.len()]);
+            pulp::Arch::new().dispatch(DaysOfPoints { inputs: &inputs, days: &mut days, keys: &mut keys, rate, anchor, energy, drift: &drift, passage, uniform });
+            for (i, (day, key)) in days.iter().zip(&keys).enumerate() {
                 let scalar = inputs.days_by_transform_or_nan(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]);
                 assert_eq!(day.to_bits(), scalar.to_bits(), "point {i}: {day} against {scalar}");
+                assert_eq!(*key, day_key(inputs.today_day + scalar), "point {i}");
             }
         }
     }

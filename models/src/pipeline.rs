@@ -182,29 +182,32 @@ pub fn forecast_parts(inputs: &[PartInput], today_day: f64, settings: &ForecastS
 
 /// The pipeline of [`forecast_parts`] run as the service's forecast worker runs a refresh:
 /// fits and priors over every part first, then the vehicles in passes of `pass_vehicles`
-/// (each pass on rayon's threads), handing each pass's results to `each_pass` as
-/// `(input index, result)` pairs (in vehicle-key order, each vehicle's parts in input order)
-/// before the next pass begins. Only one pass's outlooks are held at a time, as the worker
-/// holds only the pass it is storing. Every result equals [`forecast_parts`]'s for that part.
+/// (each pass on rayon's threads), handing each pass's outlooks to `each_pass` as
+/// `(input index, outlook)` pairs (in vehicle-key order, each vehicle's parts in input order),
+/// with every part's own fit (by input index), before the next pass begins. Only one pass's
+/// outlooks are held at a time, as the worker holds only the pass it is storing. Every fit and
+/// outlook equals [`forecast_parts`]'s for that part.
 pub fn forecast_parts_in_passes(
     inputs: &[PartInput],
     today_day: f64,
     settings: &ForecastSettings,
     pass_vehicles: usize,
-    mut each_pass: impl FnMut(Vec<(usize, PartResult)>),
+    mut each_pass: impl FnMut(&[Option<WearFit>], Vec<(usize, PartOutlook)>),
 ) {
     let refresh = Refresh::prepare(inputs, today_day, settings);
     for pass in refresh.vehicle_runs().chunks(pass_vehicles.max(1)) {
-        let results: Vec<(usize, PartResult)> = pass
+        let outlooks: Vec<(usize, PartOutlook)> = pass
             .par_iter()
             .flat_map_iter(|run| {
                 let mut outlooks = Vec::with_capacity(run.len());
-                refresh.forecast_run(run, |i, outlook| outlooks.push((i, PartResult { own_fit: refresh.fits[i].clone(), outlook })));
+                refresh.forecast_run(run, |i, outlook| outlooks.push((i, outlook)));
                 outlooks
             })
             .collect();
-        each_pass(results);
+        each_pass(&refresh.fits, outlooks);
     }
+    // Each fit holds a few small allocations: freed on every thread, not one.
+    refresh.fits.into_par_iter().for_each(drop);
 }
 
 /// What a refresh has after fitting and pooling: every part's own fit, the priors, and the

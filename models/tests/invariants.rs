@@ -143,7 +143,7 @@ proptest! {
 #[test]
 fn a_refresh_in_passes_gives_the_whole_refresh_part_for_part() {
     use brakeledger_models::calibration::repeated_fleet_inputs;
-    use brakeledger_models::pipeline::{forecast_parts, forecast_parts_in_passes};
+    use brakeledger_models::pipeline::{forecast_parts, forecast_parts_in_passes, PartResult};
 
     let (inputs, today) = repeated_fleet_inputs(900);
     let settings = ForecastSettings { with_trajectory: false, ..ForecastSettings::default() };
@@ -152,11 +152,11 @@ fn a_refresh_in_passes_gives_the_whole_refresh_part_for_part() {
     for pass_vehicles in [1, 7, 10_000] {
         let mut seen: Vec<Option<_>> = vec![None; inputs.len()];
         let mut passes = 0;
-        forecast_parts_in_passes(&inputs, today, &settings, pass_vehicles, |pass| {
+        forecast_parts_in_passes(&inputs, today, &settings, pass_vehicles, |fits, pass| {
             passes += 1;
-            for (i, result) in pass {
+            for (i, outlook) in pass {
                 assert!(seen[i].is_none(), "part {i} given twice");
-                seen[i] = Some(result);
+                seen[i] = Some(PartResult { own_fit: fits[i].clone(), outlook });
             }
         });
         assert_eq!(passes, vehicles.div_ceil(pass_vehicles), "passes of {pass_vehicles} over {vehicles} vehicles");
