@@ -217,9 +217,10 @@ struct Refresh<'a> {
     today_day: f64,
     settings: &'a ForecastSettings,
     fits: Vec<Option<WearFit>>,
-    /// Each group's prior by (vehicle class, axle, component), the class borrowed from the
-    /// inputs (no key is built to look one up).
-    priors: HashMap<(&'a str, u32, Component), WearPrior>,
+    /// Each group's prior with its (vehicle class, axle, component), the class borrowed from
+    /// the inputs: a fleet has a few dozen groups, and a scan of them costs less than hashing
+    /// a key for each of a refresh's million-odd look-ups.
+    priors: Vec<((&'a str, u32, Component), WearPrior)>,
     /// `(vehicle key, part index)` by key, then input order.
     order: Vec<(u64, usize)>,
 }
@@ -264,7 +265,9 @@ impl<'a> Refresh<'a> {
                 })
                 .collect();
             let class = first.group.vehicle_class.as_str();
-            let prior_of = |axle_index: u32, component: Component| self.priors.get(&(class, axle_index, component));
+            let prior_of = |axle_index: u32, component: Component| {
+                self.priors.iter().find(|((c, a, k), _)| *a == axle_index && *k == component && *c == class).map(|(_, p)| p)
+            };
             let own_fits: Vec<Option<&WearFit>> = members.iter().map(|&(_, i)| self.fits[i].as_ref()).collect();
             let forecasts = forecast_vehicle_outlooks(members[0].0, &parts, &own_fits, prior_of, self.today_day, &vehicle_settings);
             for (&(_, i), outlook) in members.iter().zip(forecasts) {
