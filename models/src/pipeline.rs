@@ -5,7 +5,9 @@
 //! [`estimate_group_priors`]: [`crate::estimate_prior`] over the fits of each group (vehicle
 //! class, axle, component), then each rotor group's coupling to its vehicles' pads; (3)
 //! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
-//! prior it is shrunk toward.
+//! prior it is shrunk toward. [`forecast_parts`] returns every result at once;
+//! [`forecast_parts_in_passes`] hands them out a pass of vehicles at a time, as the service's
+//! forecast worker stores them, with the same results.
 
 use std::borrow::Borrow;
 use std::collections::HashMap;
