@@ -916,7 +916,7 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
 
 #[cfg(test)]
 mod tests {
-    use super::{day_from_key, day_key, round_half_away_from_zero, DaysOfPoints, DueInputs};
+    use super::{day_from_key, day_key, round_half_away_from_zero, snap_due_day, DaysOfPoints, DueInputs, QuantileInterpolation, DUE_QUANTILES};
     use crate::energy_rate::EnergyRate;
     use crate::quasi_random::NormalScores;
 
@@ -957,6 +957,31 @@ mod tests {
                 assert_eq!(day.to_bits(), scalar.to_bits(), "point {i}: {day} against {scalar}");
                 assert_eq!(*key, day_key(inputs.today_day + scalar), "point {i}");
             }
+        }
+    }
+
+    /// The vectorised quantile loop gives, bit for bit, the scalar interpolation rounded by
+    /// [`snap_due_day`] (reference: the scalar IEEE 754 operations and the rounding checked
+    /// against `f64::round` below), over days on and off the hour, ties at the half hour,
+    /// equal neighbours, zero fractions and negative days.
+    #[test]
+    fn the_vectorised_quantile_loop_is_the_scalar_one_bit_for_bit() {
+        let mut interpolation = QuantileInterpolation { low: [0; DUE_QUANTILES], high: [0; DUE_QUANTILES], fraction: [0.0; DUE_QUANTILES], out: [0.0; DUE_QUANTILES] };
+        let mut expected = [0.0; DUE_QUANTILES];
+        for i in 0..DUE_QUANTILES {
+            let base = 20_000.0 + i as f64 * 0.37 - if i % 7 == 0 { 40_000.0 } else { 0.0 };
+            let low = if i % 5 == 0 { base.floor() + 0.5 / 24.0 } else { base };
+            let high = if i % 3 == 0 { low } else { low + (i % 11) as f64 * 0.013 };
+            let fraction = if i % 4 == 0 { 0.0 } else { (i % 9) as f64 / 9.0 };
+            interpolation.low[i] = day_key(low);
+            interpolation.high[i] = day_key(high);
+            interpolation.fraction[i] = fraction;
+            let between = low + fraction * (high - low);
+            expected[i] = snap_due_day(if fraction == 0.0 || low == high { low } else { between });
+        }
+        let got = pulp::Arch::new().dispatch(interpolation);
+        for (i, (g, e)) in got.iter().zip(&expected).enumerate() {
+            assert_eq!(g.to_bits(), e.to_bits(), "quantile {i}: {g} against {e}");
         }
     }
 
