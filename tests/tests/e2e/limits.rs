@@ -19,9 +19,11 @@ fn stalled_stream() -> (tokio::sync::mpsc::Sender<pb::TripSummary>, tokio_stream
 }
 
 /// The call ended because its time ran out: gRPC names this DEADLINE_EXCEEDED, and tonic's
-/// server-side timeout answers CANCELLED with "Timeout expired"; either is a deadline.
+/// server-side timeout answers CANCELLED ("Timeout expired"). On a loaded machine the stream
+/// may instead be reset as the deadline passes, which the client also reads as CANCELLED with
+/// the transport's wording; the callers check the elapsed time to tell this from an early end.
 fn ended_by_deadline(status: &tonic::Status) -> bool {
-    status.code() == Code::DeadlineExceeded || (status.code() == Code::Cancelled && status.message().contains("Timeout expired"))
+    matches!(status.code(), Code::DeadlineExceeded | Code::Cancelled)
 }
 
 async fn server_with(limits: LimitsConfig) -> (TestServer, tempfile::TempDir) {
@@ -41,6 +43,7 @@ async fn a_client_deadline_ends_a_stalled_stream_and_the_server_keeps_serving() 
     let started = Instant::now();
     let status = server.telemetry().stream_trips(request).await.expect_err("the deadline passes first");
     assert!(ended_by_deadline(&status), "{status:?}");
+    assert!(started.elapsed() >= Duration::from_millis(650), "not before the deadline: {:?} ({status:?})", started.elapsed());
     assert!(started.elapsed() < Duration::from_secs(30), "ended near the deadline, not by some other limit: {:?}", started.elapsed());
 
     // Nothing was acknowledged, so resending is safe; the server still answers.
