@@ -23,6 +23,8 @@ pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
 pub mod trip_blocks;
+#[cfg(test)]
+mod zstd_reuse_check;
 
 pub use records::*;
 

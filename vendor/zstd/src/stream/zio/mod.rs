@@ -1,0 +1,7 @@
+//! Wrappers around raw operations implementing `std::io::{Read, Write}`.
+
+mod reader;
+mod writer;
+
+pub use self::reader::Reader;
+pub use self::writer::Writer;
