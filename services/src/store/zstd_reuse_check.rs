@@ -1,5 +1,5 @@
 //! Checks of the patched zstd that sled compresses pages with (vendor/zstd/PATCHED.md): a
-//! compression context reused across calls on one thread must write the bytes that libzstd's
+//! compression context reused across calls (from a small pool shared by all threads) must write the bytes that libzstd's
 //! own one-shot `ZSTD_compress` writes (zstd 1.5.1, called through `zstd_safe`, the reference
 //! here), and the one-call decoding of a sized frame must give back the input, falling back
 //! to the stream decoder for every other input.
@@ -30,8 +30,8 @@ proptest! {
         lens in proptest::collection::vec(0usize..40_000, 1..6),
         level in prop_oneof![Just(1), Just(3), Just(19)],
     ) {
-        // Several sizes in a row on this thread, so the reused context has held larger and
-        // smaller inputs before each call.
+        // Several sizes in a row, so a reused context has held larger and smaller inputs
+        // before each call.
         for len in lens {
             let data = page_like(&seed, len);
             let reused = zstd::block::compress(&data, level).expect("compress");
@@ -61,4 +61,25 @@ fn inputs_that_are_not_one_sized_frame_decode_as_the_stream_decoder_does() {
     damaged[middle] ^= 0xff;
     damaged.truncate(damaged.len() - 3);
     assert!(zstd::stream::decode_all(&damaged[..]).is_err());
+}
+
+/// Reference: libzstd's one-shot `ZSTD_compress` (zstd 1.5.1). More threads than the pool keeps
+/// contexts, each compressing and decoding its own inputs at once.
+#[test]
+fn contexts_shared_between_threads_write_the_one_shot_bytes() {
+    let workers: Vec<_> = (0..12u8)
+        .map(|worker| {
+            std::thread::spawn(move || {
+                for round in 0..40usize {
+                    let data = page_like(&[worker, round as u8], 500 + 397 * round);
+                    let packed = zstd::block::compress(&data, 1).expect("compress");
+                    assert_eq!(packed, one_shot(&data, 1), "worker {worker}, round {round}");
+                    assert_eq!(zstd::stream::decode_all(&packed[..]).expect("decode"), data);
+                }
+            })
+        })
+        .collect();
+    for worker in workers {
+        worker.join().expect("worker finished");
+    }
 }

@@ -33,43 +33,36 @@ pub fn compress(data: &[u8], level: i32) -> io::Result<Vec<u8>> {
     with_compressor(|c| c.compress(data, level))
 }
 
-// brakeledger patch: one compression context per thread, reused by every call, instead of a
-// context created (and its CPU features probed with `cpuid`, a trap on virtual machines) per
-// call. A reused context gives the same bytes: each call starts a new frame with parameters
-// from `level` and the input's size alone (ZSTD_compress_usingDict with no dictionary).
-thread_local! {
-    static COMPRESSOR: std::cell::RefCell<Compressor> = std::cell::RefCell::new(Compressor::new());
+// brakeledger patch: compression and decompression contexts are kept in two small shared pools
+// and reused, instead of a context made (and the processor's features probed with `cpuid`, a
+// trap on virtual machines) per call. A call takes a free context or makes one, and gives it
+// back when done; at most `POOL_MAX` wait in each pool, so the memory they keep stays bounded
+// however many threads call. A reused context gives the same bytes: each call starts a new
+// frame whose parameters come from `level` and the input's size alone
+// (ZSTD_compress_usingDict with no dictionary).
+const POOL_MAX: usize = 8;
+
+static COMPRESSORS: std::sync::Mutex<Vec<Compressor>> = std::sync::Mutex::new(Vec::new());
+static DECOMPRESSORS: std::sync::Mutex<Vec<Decompressor>> = std::sync::Mutex::new(Vec::new());
+
+fn with_pooled<C, T>(pool: &std::sync::Mutex<Vec<C>>, make: fn() -> C, work: impl FnOnce(&mut C) -> T) -> T {
+    let taken = pool.lock().ok().and_then(|mut free| free.pop());
+    let mut context = taken.unwrap_or_else(make);
+    let done = work(&mut context);
+    if let Ok(mut free) = pool.lock() {
+        if free.len() < POOL_MAX {
+            free.push(context);
+        }
+    }
+    done
 }
 
 fn with_compressor<T>(work: impl FnOnce(&mut Compressor) -> T) -> T {
-    let mut work = Some(work);
-    let reused = COMPRESSOR.try_with(|cell| {
-        cell.try_borrow_mut()
-            .ok()
-            .map(|mut compressor| (work.take().expect("called once"))(&mut compressor))
-    });
-    match (reused, work) {
-        (Ok(Some(done)), _) => done,
-        (_, Some(work)) => work(&mut Compressor::new()),
-        (_, None) => unreachable!("the work ran on the reused context"),
-    }
+    with_pooled(&COMPRESSORS, Compressor::new, work)
 }
 
 pub(crate) fn with_decompressor<T>(work: impl FnOnce(&mut Decompressor) -> T) -> T {
-    thread_local! {
-        static DECOMPRESSOR: std::cell::RefCell<Decompressor> = std::cell::RefCell::new(Decompressor::new());
-    }
-    let mut work = Some(work);
-    let reused = DECOMPRESSOR.try_with(|cell| {
-        cell.try_borrow_mut()
-            .ok()
-            .map(|mut decompressor| (work.take().expect("called once"))(&mut decompressor))
-    });
-    match (reused, work) {
-        (Ok(Some(done)), _) => done,
-        (_, Some(work)) => work(&mut Decompressor::new()),
-        (_, None) => unreachable!("the work ran on the reused context"),
-    }
+    with_pooled(&DECOMPRESSORS, Decompressor::new, work)
 }
 
 /// Deompress a single block of data to the given destination buffer.

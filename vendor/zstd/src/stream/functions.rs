@@ -7,7 +7,7 @@ use super::{Decoder, Encoder};
 /// The input data must be in the zstd frame format.
 pub fn decode_all<R: io::Read>(mut source: R) -> io::Result<Vec<u8>> {
     // brakeledger patch: input that is exactly one frame declaring its size (what
-    // `block::compress` writes) is decoded in one call on the thread's reused context, instead
+    // `block::compress` writes) is decoded in one call on a context reused from a small pool, instead
     // of through a stream decoder made for the call (a context with its CPU features probed,
     // and two buffers of about 128 KiB). Anything else, or any error there, takes the
     // stream decoder as before, so results and errors are the stream decoder's.
