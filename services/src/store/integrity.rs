@@ -88,28 +88,37 @@ fn panic_message(payload: Box<dyn std::any::Any + Send>) -> String {
         .unwrap_or_else(|| "a panic without a message".to_owned())
 }
 
+thread_local! {
+    /// Set while this thread runs [`guarded`] work: its panics are logged, not reported.
+    static PANICS_QUIET: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// Installs, once per process, a panic hook that logs a panic at debug level on a thread running
+/// [`guarded`] work and hands every other panic to the hook that was there before.
+fn install_quiet_panic_hook() {
+    static INSTALLED: std::sync::Once = std::sync::Once::new();
+    INSTALLED.call_once(|| {
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            if PANICS_QUIET.try_with(std::cell::Cell::get).unwrap_or(false) {
+                tracing::debug!(%info, "storage engine panicked on a damaged database");
+            } else {
+                previous(info);
+            }
+        }));
+    });
+}
+
 /// Runs `work`, turning a panic inside the storage engine into an error. The default panic
 /// report (a backtrace on stderr) is replaced by a debug log line meanwhile, for panics on this
 /// thread only: the refusal says what happened. A panic on any other thread meanwhile (another
-/// store opening in the same process, a test beside it) still goes to the hook that was there.
-/// Only used while opening and checking, before the server serves.
+/// store opening in the same process, a test beside it), or on this one afterwards, still goes
+/// to the hook that was there. Only used while opening and checking, before the server serves.
 fn guarded<T>(doing: &str, work: impl FnOnce() -> StoreResult<T>) -> StoreResult<T> {
-    let previous: std::sync::Arc<Box<dyn Fn(&std::panic::PanicHookInfo<'_>) + Sync + Send>> = std::sync::Arc::new(std::panic::take_hook());
-    let guarded_thread = std::thread::current().id();
-    // Cleared when `work` is done: two stores opening at once restore each other's hooks out of
-    // order, and a hook left behind must not silence this thread's later panics.
-    let active = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(true));
-    let (others, still_active) = (std::sync::Arc::clone(&previous), std::sync::Arc::clone(&active));
-    std::panic::set_hook(Box::new(move |info| {
-        if still_active.load(std::sync::atomic::Ordering::SeqCst) && std::thread::current().id() == guarded_thread {
-            tracing::debug!(%info, "storage engine panicked on a damaged database");
-        } else {
-            others(info);
-        }
-    }));
+    install_quiet_panic_hook();
+    let was_quiet = PANICS_QUIET.with(|quiet| quiet.replace(true));
     let outcome = catch_unwind(AssertUnwindSafe(work));
-    active.store(false, std::sync::atomic::Ordering::SeqCst);
-    std::panic::set_hook(Box::new(move |info| previous(info)));
+    PANICS_QUIET.with(|quiet| quiet.set(was_quiet));
     match outcome {
         Ok(result) => result,
         Err(payload) => Err(StoreError::Corrupt(format!("the storage engine failed while {doing} ({})", panic_message(payload)))),

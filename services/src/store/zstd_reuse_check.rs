@@ -1,8 +1,8 @@
 //! Checks of the patched zstd that sled compresses pages with (vendor/zstd/PATCHED.md): a
-//! compression context reused across calls (from a small pool shared by all threads) must write the bytes that libzstd's
-//! own one-shot `ZSTD_compress` writes (zstd 1.5.1, called through `zstd_safe`, the reference
-//! here), and the one-call decoding of a sized frame must give back the input, falling back
-//! to the stream decoder for every other input.
+//! compression context reused across calls (from a small pool shared by all threads) must
+//! write the bytes that libzstd's own one-shot `ZSTD_compress` writes (zstd 1.5.1, called
+//! through `zstd_safe`, the reference here), and the one-call decoding of a sized frame must
+//! give back the input, falling back to the stream decoder for every other input.
 
 use proptest::prelude::*;
 
