@@ -46,9 +46,15 @@ async fn a_client_deadline_ends_a_stalled_stream_and_the_server_keeps_serving() 
     assert!(started.elapsed() >= Duration::from_millis(650), "not before the deadline: {:?} ({status:?})", started.elapsed());
     assert!(started.elapsed() < Duration::from_secs(30), "ended near the deadline, not by some other limit: {:?}", started.elapsed());
 
-    // Nothing was acknowledged, so resending is safe; the server still answers.
-    let report = server.telemetry().push_trips(pb::PushTripsRequest { trips: vec![trip("north", "van-1", 0, now_s() - 60)] }).await.expect("push");
-    assert_eq!(report.into_inner().accepted, 1, "the stalled stream's trip was never acknowledged, and is taken once now");
+    // Nothing was acknowledged, so the client resends; the server still answers. Which side
+    // ended the call decides whether the read trip was written: tonic's own timeout drops the
+    // handler before it writes, while a client reset that reaches the handler first ends the
+    // stream with an error, and what was read is written then (as at shutdown). Either way
+    // the resent trip is counted once: accepted now, or found already stored.
+    let report = server.telemetry().push_trips(pb::PushTripsRequest { trips: vec![trip("north", "van-1", 0, now_s() - 60)] }).await.expect("push").into_inner();
+    assert_eq!((report.accepted + report.duplicates, report.rejected_count), (1, 0), "the resent trip is taken or known, once: {report:?}");
+    let vehicle = server.fleet().get_vehicle(pb::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "van-1".into() }).await.expect("get").into_inner();
+    assert_eq!(vehicle.trips_recorded, 1, "stored once, whichever side ended the stalled call");
     server.stop().await;
 }
 
