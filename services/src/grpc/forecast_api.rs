@@ -72,25 +72,35 @@ impl ForecastService for ForecastApi {
             let (fleet_id, vehicle_id, config) = (fleet_id.clone(), vehicle_id.clone(), config.clone());
             self.state.short_read(move |store| materialised_forecast(store, &fleet_id, &vehicle_id, &config, level, now)).await?
         };
+        // The vehicle's spec is read only when computed afresh, or for the error below: a
+        // stored forecast answers from one record of the vehicle's own (vehicles are never
+        // removed, so a stored forecast's vehicle exists).
         let (fleet, record, spec) = match materialised {
-            Some(fresh) => fresh,
+            Some((fleet, record)) => (fleet, record, None),
             None => {
                 self.state
                     .blocking(move |store| {
                         let (data, parts) = vehicle_forecast_now(store, &fleet_id, &vehicle_id, &config, level, now)?;
-                        Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), data.vehicle.spec))
+                        Ok((known_fleet(store, &fleet_id)?, materialise(&data, &parts, now), Some(data.vehicle.spec)))
                     })
                     .await?
             }
         };
         let computed_at_ms = record.computed_at_ms;
         if record.parts.iter().all(|p| p.outlook.due.is_none()) {
+            let spec = match spec {
+                Some(spec) => Some(spec),
+                None => {
+                    let (fleet_id, vehicle_id) = (r.fleet_id.clone(), r.vehicle_id.clone());
+                    self.state.short_read(move |store| Ok(store.get_vehicle(&fleet_id, &vehicle_id)?)).await?.map(|v| v.spec)
+                }
+            };
             // One clause per part, named as the trade names it: "axle 1 pad: ...".
             let reasons: Vec<String> = record
                 .parts
                 .iter()
                 .map(|p| {
-                    let brake = spec.axles.get(p.axle_index as usize - 1).map_or(BrakeType::Disc, |a| a.brake_type);
+                    let brake = spec.as_ref().and_then(|s| s.axles.get(p.axle_index as usize - 1)).map_or(BrakeType::Disc, |a| a.brake_type);
                     let notes = if p.outlook.notes.is_empty() { "no data".to_owned() } else { p.outlook.notes.join(", ") };
                     format!("axle {} {}: {notes}", p.axle_index, p.component.part_name(brake))
                 })
@@ -341,7 +351,7 @@ fn materialised_forecast(
     config: &crate::config::ForecastConfig,
     level: f64,
     now_ms: i64,
-) -> ServiceResult<Option<(FleetRecord, VehicleForecasts, VehicleSpec)>> {
+) -> ServiceResult<Option<(FleetRecord, VehicleForecasts)>> {
     let max_age_ms = i64::try_from(config.materialised_max_age_s.saturating_mul(1000)).unwrap_or(i64::MAX);
     if max_age_ms == 0 || (level - crate::store::BandLevel::P80.probability()).abs() > 1e-12 || store.is_stale(fleet_id, vehicle_id)? {
         return Ok(None);
@@ -350,6 +360,5 @@ fn materialised_forecast(
     if now_ms.saturating_sub(record.computed_at_ms) > max_age_ms || record.computed_at_ms > now_ms {
         return Ok(None);
     }
-    let Some(vehicle) = store.get_vehicle(fleet_id, vehicle_id)? else { return Ok(None) };
-    Ok(Some((known_fleet(store, fleet_id)?, record, vehicle.spec)))
+    Ok(Some((known_fleet(store, fleet_id)?, record)))
 }

@@ -110,6 +110,32 @@ async fn vehicle_forecast_has_every_part_with_ordered_bands() {
     server.stop().await;
 }
 
+/// A vehicle with nothing to forecast from is refused with FAILED_PRECONDITION naming each
+/// part as the trade does (a drum axle's lining and drum), both while its forecast is computed
+/// afresh and once it is answered from the stored one (which reads the vehicle's axles only
+/// for this message).
+#[tokio::test]
+async fn a_vehicle_with_no_data_is_refused_with_its_parts_named_fresh_or_stored() {
+    let server = TestServer::start().await;
+    let mut vehicle = brakeledger_tests::two_axle_vehicle("north", "idle-drum");
+    vehicle.axles[1].brake_type = pb::BrakeType::Drum as i32;
+    brakeledger_tests::register(&server, vehicle).await;
+    let refusal = || async {
+        let request = pb::GetVehicleForecastRequest { fleet_id: "north".into(), vehicle_id: "idle-drum".into(), band_level: 0.0 };
+        server.forecast().get_vehicle_forecast(request).await.expect_err("nothing to forecast from")
+    };
+    let fresh = refusal().await;
+    wait_for_forecasts(&server).await;
+    let stored = refusal().await;
+    for status in [fresh, stored] {
+        assert_eq!(status.code(), tonic::Code::FailedPrecondition, "{status:?}");
+        for part in ["axle 1 pad:", "axle 1 rotor:", "axle 2 lining:", "axle 2 drum:"] {
+            assert!(status.message().contains(part), "{part} in {:?}", status.message());
+        }
+    }
+    server.stop().await;
+}
+
 #[tokio::test]
 async fn list_due_pages_return_each_part_once_in_order() {
     let server = seeded_fleet().await;
