@@ -43,8 +43,8 @@ open. Without tokens the server serves only on a loopback address, unless --inse
   [ingest]    chunk_trips, max_listed_rejections, max_rejection_groups, ack_delay_ms
   [http2]     stream_window_bytes, connection_window_bytes, max_concurrent_streams
   [shutdown]  drain_deadline_ms
-  [storage]   cache_capacity_bytes, compress_new_directories, min_free_bytes, space_check_interval_ms,
-              change_feed_capacity, watch_queue_events
+  [storage]   cache_capacity_bytes, forecast_cache_bytes, compress_new_directories, min_free_bytes,
+              space_check_interval_ms, change_feed_capacity, watch_queue_events
   [integrity] on_mismatch
   [store]     url, pool_size (PostgreSQL instead of the embedded database)
   [web]       listen (the planners' web page on its own port, --web-listen; default off)

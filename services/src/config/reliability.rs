@@ -87,13 +87,19 @@ impl Default for ShutdownConfig {
 #[derive(Debug, Clone, Deserialize, PartialEq)]
 #[serde(default, deny_unknown_fields)]
 pub struct StorageConfig {
-    /// Page cache of the storage engine, bytes, as sled counts them: the serialized size of
-    /// each cached page, compressed on a compressed directory, so the heap the cache takes is
-    /// several times this (at 100,000 vehicles, about 660 MB resident with 64 MiB and 295 MB
-    /// with 16 MiB while trips streamed in; BENCHMARKS.md, "Fleet scale"). Default 64 MiB
-    /// (sled's own default is 1 GB, which made memory grow with every write until it was
-    /// reached); a smaller cache saves memory but slows reads once the forecasts outgrow it.
+    /// Page cache of the storage engine, bytes of decoded pages in memory (the patched sled
+    /// under `vendor/sled` charges each page the larger of its decoded size and its bytes in
+    /// the log; upstream sled charged compressed bytes, so the cache took 2.5-6.6 times the
+    /// setting). sled keeps up to about 2,000 recently used pages beyond it, and a page table
+    /// entry for every page, cached or not (BENCHMARKS.md, "Fleet scale": 469 MB resident
+    /// after a refresh at 100,000 vehicles and 10 million trips with the default). Default
+    /// 64 MiB (sled's own default is 1 GB); a smaller cache saves memory, a larger one keeps
+    /// more forecasts in memory for GetVehicleForecast and ListDue.
     pub cache_capacity_bytes: u64,
+    /// Stored forecasts kept in memory by vehicle, bytes (as stored, about 1.2 KB a vehicle
+    /// with four parts), in front of the page cache: the vehicles read most stay in memory
+    /// without the pages around them. 0 keeps none. Default 32 MiB (about 25,000 vehicles).
+    pub forecast_cache_bytes: u64,
     /// Whether a data directory created from now on compresses its pages (zstd level 1).
     /// Default true: about a third of the disk and of the bytes written, at the price of
     /// CPU on every page written and every page read back from disk (BENCHMARKS.md, "Fleet
@@ -117,6 +123,7 @@ impl Default for StorageConfig {
     fn default() -> Self {
         Self {
             cache_capacity_bytes: 64 * 1024 * 1024,
+            forecast_cache_bytes: 32 * 1024 * 1024,
             compress_new_directories: true,
             min_free_bytes: 64 * 1024 * 1024,
             space_check_interval_ms: 1000,

@@ -22,7 +22,6 @@ use crate::grpc::visit_plans::{plan_for_due_parts, JobHours};
 use crate::grpc::part_cycles::readings_by_cycle;
 use crate::state::AppState;
 use crate::store::{days_to_ms, DueCursor, FleetRecord, Store, VehicleForecasts, MS_PER_DAY};
-use brakeledger_models::domain::VehicleSpec;
 
 /// Implements `brakeledger.v1.ForecastService`.
 pub struct ForecastApi {

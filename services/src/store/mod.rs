@@ -23,6 +23,7 @@ pub mod records;
 pub mod sled_engine;
 pub mod sled_store;
 pub mod trip_blocks;
+pub mod value_cache;
 #[cfg(test)]
 mod zstd_reuse_check;
 

@@ -797,6 +797,12 @@ impl Engine {
         Self::get_value(&self.forecasts, &vehicle_key(fleet_id, vehicle_id))
     }
 
+    /// The stored bytes of a vehicle's forecasts under its key ([`vehicle_key`]), for
+    /// [`super::value_cache::ValueCache`]; [`decode`] reads them.
+    pub fn get_forecast_bytes(&self, key: &[u8]) -> StoreResult<Option<sled::IVec>> {
+        Ok(self.forecasts.get(key)?)
+    }
+
     /// See [`Store`].
     pub fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>> {
         Self::scan_values(&self.forecasts, &fleet_prefix(fleet_id))

@@ -2,9 +2,10 @@
 //! and its trees) behind a slot that can be reopened, with a disk-space gate in front of writes.
 //!
 //! - **Memory**: sled's page cache is `[storage] cache_capacity_bytes` (64 MiB by default;
-//!   sled's own default of 1 GB let memory grow with every write until it got there). sled
-//!   counts it in serialized (on a compressed directory, compressed) page bytes, so the heap
-//!   it takes is several times the setting (BENCHMARKS.md, "Fleet scale").
+//!   sled's own default of 1 GB let memory grow with every write until it got there),
+//!   counted in decoded page bytes by the patched sled under `vendor/sled` (upstream counts
+//!   compressed bytes, several times less than the heap the cache takes; BENCHMARKS.md,
+//!   "Fleet scale").
 //! - **Full disk**: every write first checks free space and is refused with
 //!   [`StoreError::StorageFull`] below `[storage] min_free_bytes`. If the engine hits a full
 //!   disk anyway, sled keeps failing every write with that error until the database is
@@ -26,7 +27,8 @@ pub use super::sled_engine::SCHEMA_VERSION;
 use super::disk_space;
 use super::integrity::{self, Findings, Mode};
 use super::ledger::{Ledger, RecordKind};
-use super::sled_engine::{Engine, PageSettings, PlannedKeys};
+use super::sled_engine::{decode, Engine, PageSettings, PlannedKeys};
+use super::value_cache::ValueCache;
 use super::*;
 use crate::config::OnMismatch;
 
@@ -39,6 +41,8 @@ pub struct StoreOptions {
     pub min_free_bytes: u64,
     /// What to do when start-up verification finds damage.
     pub on_mismatch: OnMismatch,
+    /// Stored forecasts kept in memory by vehicle, bytes (`[storage] forecast_cache_bytes`).
+    pub forecast_cache_bytes: u64,
 }
 
 impl Default for StoreOptions {
@@ -49,7 +53,12 @@ impl Default for StoreOptions {
 
 impl From<&crate::config::StorageConfig> for StoreOptions {
     fn from(config: &crate::config::StorageConfig) -> Self {
-        Self { pages: PageSettings::from(config), min_free_bytes: config.min_free_bytes, on_mismatch: OnMismatch::Refuse }
+        Self {
+            pages: PageSettings::from(config),
+            min_free_bytes: config.min_free_bytes,
+            on_mismatch: OnMismatch::Refuse,
+            forecast_cache_bytes: config.forecast_cache_bytes,
+        }
     }
 }
 
@@ -77,6 +86,9 @@ pub struct SledStore {
     ledger: Option<Mutex<LedgerSlot>>,
     /// Findings of the start-up verification when serving read-only.
     read_only: Option<Findings>,
+    /// Stored forecasts read recently, by vehicle key ([`ValueCache`]): invalidated by every
+    /// forecast write through this store, the only writer of them while it is open.
+    forecast_cache: ValueCache,
 }
 
 /// The ledger and what is not settled in it.
@@ -122,6 +134,7 @@ impl SledStore {
     fn around(dir: Option<PathBuf>, options: StoreOptions, engine: Engine) -> Self {
         Self {
             dir,
+            forecast_cache: ValueCache::new(options.forecast_cache_bytes),
             options,
             engine: RwLock::new(Some(Arc::new(engine))),
             poisoned: AtomicBool::new(false),
@@ -378,15 +391,27 @@ impl Store for SledStore {
     }
 
     fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()> {
-        self.write(|e| e.put_forecasts(record))
+        self.replace_forecasts(std::slice::from_ref(record)).map(drop)
     }
 
     fn replace_forecasts(&self, records: &[VehicleForecasts]) -> StoreResult<Vec<Option<VehicleForecasts>>> {
-        self.write(|e| e.replace_forecasts(records))
+        let result = self.write(|e| e.replace_forecasts(records));
+        let keys: Vec<Vec<u8>> = records.iter().map(|r| keys::vehicle_key(&r.fleet_id, &r.vehicle_id)).collect();
+        self.forecast_cache.invalidate(keys.iter().map(Vec::as_slice));
+        result
     }
 
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
-        self.read(|e| e.get_forecasts(fleet_id, vehicle_id))
+        let key = keys::vehicle_key(fleet_id, vehicle_id);
+        if let Some(bytes) = self.forecast_cache.get(&key) {
+            return decode(&bytes).map(Some);
+        }
+        let generation = self.forecast_cache.generation();
+        let bytes = self.read(|e| e.get_forecast_bytes(&key))?;
+        let Some(bytes) = bytes else { return Ok(None) };
+        let record = decode(&bytes)?;
+        self.forecast_cache.insert_if_unchanged(generation, key, bytes);
+        Ok(Some(record))
     }
 
     fn fleet_forecasts(&self, fleet_id: &str) -> StoreResult<Vec<VehicleForecasts>> {
