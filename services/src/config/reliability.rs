@@ -91,7 +91,7 @@ pub struct StorageConfig {
     /// under `vendor/sled` charges each page the larger of its decoded size and its bytes in
     /// the log; upstream sled charged compressed bytes, so the cache took 2.5-6.6 times the
     /// setting). sled keeps up to about 2,000 recently used pages beyond it, and a page table
-    /// entry for every page, cached or not (BENCHMARKS.md, "Fleet scale": 469-545 MB resident
+    /// entry for every page, cached or not (BENCHMARKS.md, "Fleet scale": 445-545 MB resident
     /// after a refresh at 100,000 vehicles and 10 million trips with the defaults). Default
     /// 64 MiB (sled's own default is 1 GB); a smaller cache saves memory, a larger one keeps
     /// more forecasts in memory for GetVehicleForecast and ListDue.
