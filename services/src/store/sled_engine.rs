@@ -751,11 +751,6 @@ impl Engine {
         })
     }
 
-    /// See [`Store`].
-    pub fn put_forecasts(&self, record: &VehicleForecasts) -> StoreResult<()> {
-        self.replace_forecasts(std::slice::from_ref(record)).map(drop)
-    }
-
     /// See [`Store`]: one transaction for all of them. sled logs every insert and removal, and
     /// a transaction costs about as much to log as a forecast (measured: BENCHMARKS.md, "Fleet
     /// scale"), so a pass's vehicles share one.
@@ -790,11 +785,6 @@ impl Engine {
                 Ok(before)
             })
             .map_err(|e: TransactionError<StoreError>| StoreError::from(e))
-    }
-
-    /// See [`Store`].
-    pub fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
-        Self::get_value(&self.forecasts, &vehicle_key(fleet_id, vehicle_id))
     }
 
     /// The stored bytes of a vehicle's forecasts under its key ([`vehicle_key`]), for

@@ -120,8 +120,9 @@ impl ValueCache {
         }
     }
 
-    /// Bytes held, as counted against the capacity.
-    pub fn held_bytes(&self) -> usize {
+    /// Bytes held, as counted against the capacity (for the tests' bound).
+    #[cfg(test)]
+    fn held_bytes(&self) -> usize {
         let state = self.state();
         state.newer_bytes + state.older.iter().map(|(k, v)| entry_bytes(k, v)).sum::<usize>()
     }
