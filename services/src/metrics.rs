@@ -13,6 +13,8 @@
 //! | `brakeledger_forecast_refresh_lag_seconds` | | age of the oldest write not yet reflected in forecasts |
 //! | `brakeledger_forecast_refresh_seconds` | | duration of forecast refresh passes |
 //! | `brakeledger_store_bytes` | | size of the store on disk |
+//! | `brakeledger_forecast_cache_lookups_total` | outcome | stored-forecast reads: `hit` in the by-vehicle cache, `miss_kept` (read from the store and kept), `miss_not_kept` (a write to its stripe overlapped the read) |
+//! | `brakeledger_heap_bytes` | kind | the allocator's counts at the scrape: `allocated`, `active`, `resident`, `metadata`, `retained` |
 //!
 //! The metrics are process-wide (one registry), as Prometheus scrapes a process.
 
@@ -74,6 +76,25 @@ struct Metrics {
     refresh_lag_seconds: Gauge<f64, std::sync::atomic::AtomicU64>,
     refresh_seconds: Histogram,
     store_bytes: Gauge,
+    forecast_cache: Family<OutcomeLabels, Counter>,
+    heap_bytes: Family<KindLabels, Gauge>,
+}
+
+#[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
+struct KindLabels {
+    kind: String,
+}
+
+/// How a read of a vehicle's stored forecasts went in the by-vehicle cache.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CacheLookup {
+    /// Served from the cache.
+    Hit,
+    /// Read from the store and kept.
+    MissKept,
+    /// Read from the store and not kept, because a write to its stripe overlapped the read
+    /// (or the value was too large to keep).
+    MissNotKept,
 }
 
 static METRICS: LazyLock<Metrics> = LazyLock::new(|| {
@@ -98,11 +119,21 @@ static METRICS: LazyLock<Metrics> = LazyLock::new(|| {
     registry.register("brakeledger_forecast_refresh_seconds", "Duration of forecast refresh passes, seconds", refresh_seconds.clone());
     let store_bytes = Gauge::default();
     registry.register("brakeledger_store_bytes", "Size of the store on disk, bytes", store_bytes.clone());
-    Metrics { registry, requests, latency, trips, trips_refused, workshop_records, auth_refusals, stale_vehicles, refresh_lag_seconds, refresh_seconds, store_bytes }
+    let forecast_cache = Family::<OutcomeLabels, Counter>::default();
+    registry.register("brakeledger_forecast_cache_lookups", "Stored-forecast reads by outcome in the by-vehicle cache: hit, miss_kept, miss_not_kept", forecast_cache.clone());
+    let heap_bytes = Family::<KindLabels, Gauge>::default();
+    registry.register("brakeledger_heap_bytes", "The allocator's counts of the heap at the scrape, bytes: allocated, active, resident, metadata, retained", heap_bytes.clone());
+    Metrics { registry, requests, latency, trips, trips_refused, workshop_records, auth_refusals, stale_vehicles, refresh_lag_seconds, refresh_seconds, store_bytes, forecast_cache, heap_bytes }
 });
 
 /// The metrics in the Prometheus text format.
 pub fn render() -> String {
+    if let Some(heap) = crate::process::heap_bytes() {
+        let kinds = [("allocated", heap.allocated_bytes), ("active", heap.active_bytes), ("resident", heap.resident_bytes), ("metadata", heap.metadata_bytes), ("retained", heap.retained_bytes)];
+        for (kind, bytes) in kinds {
+            METRICS.heap_bytes.get_or_create(&KindLabels { kind: kind.to_owned() }).set(bytes.min(i64::MAX as u64) as i64);
+        }
+    }
     let mut out = String::new();
     // Writing to a String cannot fail.
     let _ = prometheus_client::encoding::text::encode(&mut out, &METRICS.registry);
@@ -143,6 +174,16 @@ pub fn forecast_queue(stale_vehicles: u64, lag_seconds: f64) {
 /// Records one forecast refresh pass.
 pub fn forecast_refresh(seconds: f64) {
     METRICS.refresh_seconds.observe(seconds);
+}
+
+/// Counts one read of a vehicle's stored forecasts by how the by-vehicle cache served it.
+pub fn forecast_cache_lookup(lookup: CacheLookup) {
+    let outcome = match lookup {
+        CacheLookup::Hit => "hit",
+        CacheLookup::MissKept => "miss_kept",
+        CacheLookup::MissNotKept => "miss_not_kept",
+    };
+    METRICS.forecast_cache.get_or_create(&OutcomeLabels { outcome: outcome.to_owned() }).inc();
 }
 
 /// Records the store's size on disk.

@@ -23,6 +23,44 @@
 #[global_allocator]
 static ALLOCATOR: tikv_jemallocator::Jemalloc = tikv_jemallocator::Jemalloc;
 
+/// The allocator's own counts of the heap, bytes: what is allocated and in use, what the
+/// allocator holds in pages for it (active), and what of that is resident, with the
+/// allocator's metadata and what it keeps mapped but returned (retained). `None` when the
+/// allocator does not count (the `system-allocator` build) or a count cannot be read.
+pub fn heap_bytes() -> Option<HeapBytes> {
+    #[cfg(not(feature = "system-allocator"))]
+    {
+        use tikv_jemalloc_ctl::{epoch, stats};
+        // The counts are a snapshot taken at each advance of the epoch.
+        epoch::advance().ok()?;
+        Some(HeapBytes {
+            allocated_bytes: stats::allocated::read().ok()? as u64,
+            active_bytes: stats::active::read().ok()? as u64,
+            resident_bytes: stats::resident::read().ok()? as u64,
+            metadata_bytes: stats::metadata::read().ok()? as u64,
+            retained_bytes: stats::retained::read().ok()? as u64,
+        })
+    }
+    #[cfg(feature = "system-allocator")]
+    None
+}
+
+/// The allocator's counts of the heap ([`heap_bytes`]), bytes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct HeapBytes {
+    /// Bytes allocated by the process and not yet freed.
+    pub allocated_bytes: u64,
+    /// Bytes in the pages that hold allocations (allocated plus fragmentation in those pages).
+    pub active_bytes: u64,
+    /// Bytes of the allocator's mappings that are resident (active, metadata, and freed pages
+    /// not yet handed back).
+    pub resident_bytes: u64,
+    /// Bytes of the allocator's own bookkeeping.
+    pub metadata_bytes: u64,
+    /// Bytes mapped but handed back to the system (not resident).
+    pub retained_bytes: u64,
+}
+
 /// The whole of a `brakeledger` binary's `main`: starts the async runtime and runs the command
 /// line from the process's arguments.
 pub fn main() -> std::process::ExitCode {

@@ -28,6 +28,7 @@
 //! Run: `cargo bench -p brakeledger-tests --bench fleet_scale` (or, reusing the release
 //! build, `cargo test --release -p brakeledger-tests --bench fleet_scale`).
 
+use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
@@ -103,6 +104,40 @@ fn dir_bytes(dir: &Path) -> (u64, u64) {
         }
     }
     total
+}
+
+/// A free loopback port for the server's metrics listener (bound, read and let go).
+fn free_port() -> u16 {
+    std::net::TcpListener::bind("127.0.0.1:0").and_then(|l| l.local_addr()).map(|a| a.port()).expect("a free port")
+}
+
+/// The server's metrics as scraped (`GET /metrics`): each sample's name with labels, and value.
+fn scrape(port: u16) -> HashMap<String, f64> {
+    use std::io::{Read, Write};
+    let mut text = String::new();
+    if let Ok(mut stream) = std::net::TcpStream::connect(("127.0.0.1", port)) {
+        let _ = stream.write_all(b"GET /metrics HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n");
+        let _ = stream.read_to_string(&mut text);
+    }
+    text.lines().filter(|l| !l.starts_with('#')).filter_map(|l| l.rsplit_once(' ')).filter_map(|(name, value)| Some((name.to_owned(), value.parse().ok()?))).collect()
+}
+
+/// The heap and forecast-cache figures of a scrape, for the step's line.
+fn heap_and_cache(metrics: &HashMap<String, f64>) -> String {
+    let mb = |kind: &str| metrics.get(&format!("brakeledger_heap_bytes{{kind=\"{kind}\"}}")).copied().unwrap_or(f64::NAN) / 1e6;
+    let lookups = |outcome: &str| metrics.get(&format!("brakeledger_forecast_cache_lookups_total{{outcome=\"{outcome}\"}}")).copied().unwrap_or(0.0);
+    let passes = metrics.get("brakeledger_forecast_refresh_seconds_count").copied().unwrap_or(0.0);
+    format!(
+        "heap allocated {:.0} MB, active {:.0} MB, resident {:.0} MB, metadata {:.0} MB, retained {:.0} MB; forecast cache hit {:.0}, miss kept {:.0}, miss not kept {:.0}; refresh passes {passes:.0}",
+        mb("allocated"),
+        mb("active"),
+        mb("resident"),
+        mb("metadata"),
+        mb("retained"),
+        lookups("hit"),
+        lookups("miss_kept"),
+        lookups("miss_not_kept")
+    )
 }
 
 fn percentile(sorted: &[f64], p: f64) -> f64 {
@@ -346,6 +381,8 @@ fn main() {
     if let Ok(bytes) = std::env::var("SCALE_CACHE_BYTES") {
         storage.push_str(&format!("cache_capacity_bytes = {bytes}\n"));
     }
+    let metrics_port = free_port();
+    storage.push_str(&format!("[metrics]\nlisten = \"127.0.0.1:{metrics_port}\"\n"));
     let config = UnlimitedIngestConfig::write_with(&storage);
     let server = ServerProcess::spawn_with(&binary, data.path(), &["--config".as_ref(), config.path().as_os_str()]).unwrap_or_else(|output| panic!("server did not start: {output}"));
     let pid = server.child.id();
@@ -372,6 +409,7 @@ fn main() {
             let refresh_s = wait_for_refresh(&channel).await;
             written_until_refreshed += written_bytes(pid) - before;
             let rss = rss_mb(pid);
+            println!("step {target} vehicles after the refresh: {}", heap_and_cache(&scrape(metrics_port)));
             let list_due_ms = list_due_ms(&channel).await;
             let inspected: Arc<Vec<String>> = Arc::new((0..loaded).step_by(INSPECTED_EVERY).map(vehicle_id).collect());
             let forecast_channel = channel.clone();
@@ -401,6 +439,7 @@ fn main() {
                 "step {loaded} vehicles, {trips_sent} trips: RSS {rss:.0} MB ({rss_after_reads:.0} MB after the reads, {anonymous_mb:.0} MB of it anonymous, {threads} threads; peak {peak_rss:.0} MB), refresh {refresh_s:.1} s, ListDue {list_due_ms:.2} ms, GetVehicleForecast {:.0}/s p99 {:.2} ms, health Check {:.0}/s p99 {:.2} ms",
                 forecast.0, forecast.2, health.0, health.2
             );
+            println!("step {loaded} vehicles after the reads: {}", heap_and_cache(&scrape(metrics_port)));
             results.push(Step { vehicles: loaded, trips: trips_sent, rss_mb: rss, rss_after_reads_mb: rss_after_reads, peak_rss_mb: peak_rss, refresh_s, list_due_ms, forecast, health });
         }
     });

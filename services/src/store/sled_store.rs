@@ -31,6 +31,7 @@ use super::sled_engine::{decode, Engine, PageSettings, PlannedKeys};
 use super::value_cache::ValueCache;
 use super::*;
 use crate::config::OnMismatch;
+use crate::metrics::CacheLookup;
 
 /// How the database is opened.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -404,13 +405,15 @@ impl Store for SledStore {
     fn get_forecasts(&self, fleet_id: &str, vehicle_id: &str) -> StoreResult<Option<VehicleForecasts>> {
         let key = keys::vehicle_key(fleet_id, vehicle_id);
         if let Some(bytes) = self.forecast_cache.get(&key) {
+            crate::metrics::forecast_cache_lookup(CacheLookup::Hit);
             return decode(&bytes).map(Some);
         }
-        let generation = self.forecast_cache.generation();
+        let generation = self.forecast_cache.generation(&key);
         let bytes = self.read(|e| e.get_forecast_bytes(&key))?;
         let Some(bytes) = bytes else { return Ok(None) };
         let record = decode(&bytes)?;
-        self.forecast_cache.insert_if_unchanged(generation, key, bytes);
+        let kept = self.forecast_cache.insert_if_unchanged(generation, key, bytes);
+        crate::metrics::forecast_cache_lookup(if kept { CacheLookup::MissKept } else { CacheLookup::MissNotKept });
         Ok(Some(record))
     }
 

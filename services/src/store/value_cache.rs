@@ -18,10 +18,14 @@
 //!
 //! # Never older than the store
 //! A writer calls [`ValueCache::invalidate`] with the keys it wrote once its write has ended
-//! (committed or not), which removes them and advances a generation counter. A reader takes
-//! [`ValueCache::generation`] before it reads the store and offers what it read with
-//! [`ValueCache::insert_if_unchanged`], which keeps it only if no invalidation happened in
-//! between. So a value read before a write can never be kept after it.
+//! (committed or not), which removes them and advances the generation counter of each key's
+//! stripe (one of [`STRIPES`], by a hash of the key). A reader takes [`ValueCache::generation`]
+//! of its key before it reads the store and offers what it read with
+//! [`ValueCache::insert_if_unchanged`], which keeps it only if no invalidation touched the key's
+//! stripe in between. So a value read before a write can never be kept after it. The counters
+//! are per stripe, not one for the whole cache, because forecast passes write other vehicles
+//! all the time while dashboards read: with a single counter, any write anywhere during a read
+//! kept the value read out of the cache (BENCHMARKS.md, "Fleet scale").
 
 use std::collections::HashMap;
 use std::sync::Mutex;
@@ -32,19 +36,34 @@ use sled::IVec;
 /// value's shared allocation), an estimate for 64-bit targets.
 pub const ENTRY_OVERHEAD_BYTES: usize = 96;
 
+/// How many generation counters keys are spread over. Two keys in one stripe only cost a
+/// value not kept when the other is written during the read; 4,096 counters are 32 KiB.
+pub const STRIPES: usize = 4_096;
+
 /// Bounded cache of values by key; see the module docs.
 pub struct ValueCache {
     capacity_bytes: usize,
     state: Mutex<Generations>,
 }
 
-#[derive(Default)]
 struct Generations {
-    /// Advanced by every invalidation.
-    counter: u64,
+    /// Generation counter of each stripe, advanced by every invalidation of a key in it.
+    counters: Vec<u64>,
     newer: HashMap<Vec<u8>, IVec>,
     newer_bytes: usize,
     older: HashMap<Vec<u8>, IVec>,
+}
+
+impl Default for Generations {
+    fn default() -> Self {
+        Self { counters: vec![0; STRIPES], newer: HashMap::new(), newer_bytes: 0, older: HashMap::new() }
+    }
+}
+
+/// The stripe of a key: FNV-1a over its bytes.
+fn stripe(key: &[u8]) -> usize {
+    let hash = key.iter().fold(0xcbf2_9ce4_8422_2325_u64, |hash, &byte| (hash ^ u64::from(byte)).wrapping_mul(0x0100_0000_01b3));
+    (hash % STRIPES as u64) as usize
 }
 
 fn entry_bytes(key: &[u8], value: &IVec) -> usize {
@@ -90,29 +109,32 @@ impl ValueCache {
         Some(value)
     }
 
-    /// The invalidation counter, to be taken before reading the store for
-    /// [`ValueCache::insert_if_unchanged`].
-    pub fn generation(&self) -> u64 {
-        self.state().counter
+    /// The generation of `key`'s stripe, to take before reading the store for it.
+    pub fn generation(&self, key: &[u8]) -> u64 {
+        self.state().counters[stripe(key)]
     }
 
-    /// Keeps `value` for `key` if nothing was invalidated since `generation` was taken (and
-    /// the entry fits at all).
-    pub fn insert_if_unchanged(&self, generation: u64, key: Vec<u8>, value: IVec) {
+    /// Keeps `value`, read from the store for `key` after taking `generation` for it, unless
+    /// an invalidation touched the key's stripe since, or the value alone is over half the
+    /// capacity. Whether it was kept.
+    pub fn insert_if_unchanged(&self, generation: u64, key: Vec<u8>, value: IVec) -> bool {
         if entry_bytes(&key, &value) * 2 > self.capacity_bytes {
-            return;
+            return false;
         }
         let mut state = self.state();
-        if state.counter == generation {
-            state.put_newer(key, value, self.capacity_bytes);
+        if state.counters[stripe(&key)] != generation {
+            return false;
         }
+        state.put_newer(key, value, self.capacity_bytes);
+        true
     }
 
-    /// Forgets `keys` after a write to them (whether or not it committed).
+    /// Forgets `keys` and advances their stripes' generations; called by writers once their
+    /// write has ended, committed or not.
     pub fn invalidate<'k>(&self, keys: impl IntoIterator<Item = &'k [u8]>) {
         let mut state = self.state();
-        state.counter += 1;
         for key in keys {
+            state.counters[stripe(key)] += 1;
             if let Some(value) = state.newer.remove(key) {
                 state.newer_bytes -= entry_bytes(key, &value);
             }
@@ -120,7 +142,6 @@ impl ValueCache {
         }
     }
 
-    /// Bytes held, as counted against the capacity (for the tests' bound).
     #[cfg(test)]
     fn held_bytes(&self) -> usize {
         let state = self.state();
@@ -140,15 +161,32 @@ mod tests {
     #[test]
     fn a_read_that_began_before_a_write_is_not_kept() {
         let cache = ValueCache::new(1 << 20);
-        let before = cache.generation();
+        let before = cache.generation(b"a");
         cache.invalidate([b"a".as_slice()]);
-        cache.insert_if_unchanged(before, b"a".to_vec(), value(1, 10));
+        assert!(!cache.insert_if_unchanged(before, b"a".to_vec(), value(1, 10)));
         assert_eq!(cache.get(b"a"), None, "read before the write, offered after it");
-        let after = cache.generation();
-        cache.insert_if_unchanged(after, b"a".to_vec(), value(2, 10));
+        let after = cache.generation(b"a");
+        assert!(cache.insert_if_unchanged(after, b"a".to_vec(), value(2, 10)));
         assert_eq!(cache.get(b"a"), Some(value(2, 10)));
         cache.invalidate([b"a".as_slice()]);
         assert_eq!(cache.get(b"a"), None, "a write forgets the key");
+    }
+
+    #[test]
+    fn a_write_to_another_stripe_during_a_read_does_not_stop_it_being_kept() {
+        let cache = ValueCache::new(1 << 20);
+        let other = (0..u16::MAX).map(|n| n.to_be_bytes().to_vec()).find(|key| stripe(key) != stripe(b"a")).expect("a key in another stripe");
+        let before = cache.generation(b"a");
+        cache.invalidate([other.as_slice()]);
+        assert!(cache.insert_if_unchanged(before, b"a".to_vec(), value(1, 10)), "the write was to another vehicle");
+        assert_eq!(cache.get(b"a"), Some(value(1, 10)));
+        // The same read spanning a write of a key that shares the stripe is not kept.
+        let same = (0..u16::MAX).map(|n| n.to_be_bytes().to_vec()).find(|key| key.as_slice() != b"a" && stripe(key) == stripe(b"a")).expect("a key in the same stripe");
+        cache.invalidate([b"a".as_slice()]);
+        let before = cache.generation(b"a");
+        cache.invalidate([same.as_slice()]);
+        assert!(!cache.insert_if_unchanged(before, b"a".to_vec(), value(2, 10)));
+        assert_eq!(cache.get(b"a"), None);
     }
 
     #[test]
@@ -156,7 +194,7 @@ mod tests {
         // Room for about eight 1,000-byte entries: four a generation.
         let cache = ValueCache::new(8 * (1_000 + ENTRY_OVERHEAD_BYTES as u64 + 1));
         for key in 0..40u8 {
-            cache.insert_if_unchanged(cache.generation(), vec![key], value(key, 1_000));
+            cache.insert_if_unchanged(cache.generation(&[key]), vec![key], value(key, 1_000));
             // Key 0 is read after every insert, so it keeps moving to the newer generation.
             assert_eq!(cache.get(&[0]), Some(value(0, 1_000)), "after inserting {key}");
         }
@@ -165,30 +203,38 @@ mod tests {
     }
 
     proptest! {
-        /// Whatever the order of reads, inserts and invalidations: the cache never holds more
-        /// than its capacity, and a value it returns is the last one offered for that key since
-        /// the key was last invalidated (a write).
+        /// Whatever the interleaving of writes, reads of the store that span them, and cache
+        /// lookups: the cache never holds more than its capacity, and a value it returns is the
+        /// store's current value for that key (a write is a new value, then an invalidation).
         #[test]
-        fn bounded_and_never_older_than_the_last_write(ops in proptest::collection::vec((0u8..4, 0u8..12, 1usize..600), 1..300)) {
+        fn bounded_and_never_older_than_the_store(ops in proptest::collection::vec((0u8..5, 0u8..12, 1usize..600), 1..300)) {
             let capacity = 4_000;
             let cache = ValueCache::new(capacity as u64);
-            let mut current: HashMap<u8, Option<IVec>> = HashMap::new();
+            // The store: each key's current value.
+            let mut store: HashMap<u8, IVec> = HashMap::new();
+            // Reads of the store begun and not yet offered: key, generation taken, value read.
+            let mut reading: Vec<(u8, u64, IVec)> = Vec::new();
             for (step, (op, key, len)) in ops.into_iter().enumerate() {
                 match op {
                     0 => {
-                        let v = value(step as u8, len);
-                        cache.insert_if_unchanged(cache.generation(), vec![key], v.clone());
-                        if entry_bytes(&[key], &v) * 2 <= capacity {
-                            current.insert(key, Some(v));
-                        }
+                        store.insert(key, value(step as u8, len));
+                        cache.invalidate([[key].as_slice()]);
                     }
                     1 => {
-                        cache.invalidate([[key].as_slice()]);
-                        current.insert(key, None);
+                        let generation = cache.generation(&[key]);
+                        if let Some(read) = store.get(&key) {
+                            reading.push((key, generation, read.clone()));
+                        }
+                    }
+                    2 => {
+                        if !reading.is_empty() {
+                            let (key, generation, read) = reading.remove(len % reading.len());
+                            cache.insert_if_unchanged(generation, vec![key], read);
+                        }
                     }
                     _ => {
                         if let Some(found) = cache.get(&[key]) {
-                            prop_assert_eq!(Some(&Some(found)), current.get(&key), "key {}", key);
+                            prop_assert_eq!(Some(&found), store.get(&key), "key {}", key);
                         }
                     }
                 }

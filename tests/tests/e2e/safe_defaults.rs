@@ -117,6 +117,20 @@ async fn metrics_count_calls_records_and_refusals() {
     let trips = pb::PushTripsRequest { trips: (0..3).map(|i| trip("metrics-fleet", "van-1", i, now - 3600)).chain([trip("metrics-fleet", "no-such-van", 9, now)]).collect() };
     let report = server.telemetry().push_trips(trips).await.expect("push").into_inner();
     assert_eq!((report.accepted, report.rejected_count), (3, 1));
+    // The vehicle's forecasts stored, then read twice: the second read is served from the
+    // by-vehicle forecast cache (without inspections the answer is a refusal naming the parts,
+    // made from the stored forecasts all the same).
+    for _ in 0..600 {
+        let fleet = server.fleet().get_fleet(pb::GetFleetRequest { fleet_id: "metrics-fleet".into() }).await.expect("get fleet").into_inner();
+        if fleet.forecasts_pending == 0 {
+            break;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+    }
+    for _ in 0..2 {
+        let request = pb::GetVehicleForecastRequest { fleet_id: "metrics-fleet".into(), vehicle_id: "van-1".into(), ..Default::default() };
+        let _ = server.forecast().get_vehicle_forecast(request).await;
+    }
     // The metrics listener, as Prometheus would scrape it.
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.expect("bind");
     let addr = listener.local_addr().expect("addr");
@@ -145,5 +159,11 @@ async fn metrics_count_calls_records_and_refusals() {
     assert!(value("brakeledger_trips_refused_total{field=\"vehicle_id\"}") >= 1.0);
     assert!(text.contains("brakeledger_request_duration_seconds_bucket"), "{text}");
     assert!(text.contains("brakeledger_forecast_stale_vehicles") && text.contains("brakeledger_store_bytes"), "{text}");
+    assert!(value("brakeledger_forecast_cache_lookups_total{outcome=\"hit\"}") >= 1.0);
+    // jemalloc's counts, read at the scrape: the process holds more than a megabyte, and by
+    // jemalloc's definitions allocated <= active <= resident (jemalloc's `stats.*` docs).
+    let heap = |kind: &str| value(&format!("brakeledger_heap_bytes{{kind=\"{kind}\"}}"));
+    assert!(heap("allocated") > 1e6, "{text}");
+    assert!(heap("allocated") <= heap("active") && heap("active") <= heap("resident"), "{text}");
     server.stop().await;
 }
