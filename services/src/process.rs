@@ -7,14 +7,21 @@
 //! allocate, so freed memory piled up in many arenas: in the fleet-scale benchmark a server
 //! that had taken in 9 million trips of 100,000 vehicles held 5 GB resident, nearly all of it
 //! in 64 MiB arena heaps (BENCHMARKS.md, "Fleet scale"). jemalloc hands freed pages back to
-//! the system, so the resident set follows what is in use. Two settings are compiled in: the
-//! `background_threads` feature (services/Cargo.toml) starts jemalloc's purging threads, so
-//! pages go back while the server is idle too, not only when a thread next allocates; and
-//! `.cargo/config.toml` sets `dirty_decay_ms:1000,muzzy_decay_ms:0`, so they go back within
-//! about a second instead of ten. Without them the resident set read just after a forecast
-//! refresh held that refresh's freed pages (743 MB instead of 645 MB at 100,000 vehicles; at
-//! 10,000, 481 MB against 316-411 MB, which is within the spread between runs; BENCHMARKS.md,
-//! "Fleet scale"). `_RJEM_MALLOC_CONF` overrides them at start.
+//! the system, so the resident set follows what is in use. Settings compiled in:
+//! - the `background_threads` feature (services/Cargo.toml) starts jemalloc's purging threads,
+//!   so pages go back while the server is idle too, not only when a thread next allocates;
+//! - `.cargo/config.toml` sets `dirty_decay_ms:1000,muzzy_decay_ms:0`, so they go back within
+//!   about a second instead of ten. Without them the resident set read just after a forecast
+//!   refresh held that refresh's freed pages (743 MB instead of 645 MB at 100,000 vehicles;
+//!   BENCHMARKS.md, "Fleet scale");
+//! - and `narenas:1,tcache_max:1024`: one arena instead of four per core, and per-thread caches
+//!   of freed blocks up to 1 KiB instead of 32 KiB. The server runs some 80 threads (the
+//!   blocking pool that store calls run on grows with concurrent callers); jemalloc's own
+//!   counts ([`heap_bytes`], served as metrics) showed their caches and the arenas' part-used
+//!   pages holding about half the resident set (BENCHMARKS.md, "jemalloc: one arena, small
+//!   thread caches").
+//!
+//! `_RJEM_MALLOC_CONF` overrides any of them at start.
 
 /// The process allocator of every binary that links this crate (the server and command line,
 /// and the tests' copy of it). The `system-allocator` feature leaves it out, for heap profilers

@@ -91,10 +91,11 @@ pub struct StorageConfig {
     /// under `vendor/sled` charges each page the larger of its decoded size and its bytes in
     /// the log; upstream sled charged compressed bytes, so the cache took 2.5-6.6 times the
     /// setting). sled keeps up to about 2,000 recently used pages beyond it, and a page table
-    /// entry for every page, cached or not (BENCHMARKS.md, "Fleet scale": 445-545 MB resident
-    /// after a refresh at 100,000 vehicles and 10 million trips with the defaults). Default
-    /// 64 MiB (sled's own default is 1 GB); a smaller cache saves memory, a larger one keeps
-    /// more forecasts in memory for GetVehicleForecast and ListDue.
+    /// entry for every page, cached or not (BENCHMARKS.md, "Fleet scale": 263 MB resident
+    /// after a refresh at 100,000 vehicles and 10 million trips with the defaults, 299-300 MB
+    /// with 64 MiB). Default 32 MiB (sled's own default is 1 GB): GetVehicleForecast reads
+    /// through the forecast cache below, so a larger page cache mostly keeps more trip pages
+    /// for ingest and ListDue; a smaller one saves memory.
     pub cache_capacity_bytes: u64,
     /// Stored forecasts kept in memory by vehicle, bytes (as stored, about 1.2 KB a vehicle
     /// with four parts), in front of the page cache: the vehicles read most stay in memory
@@ -122,7 +123,7 @@ pub struct StorageConfig {
 impl Default for StorageConfig {
     fn default() -> Self {
         Self {
-            cache_capacity_bytes: 64 * 1024 * 1024,
+            cache_capacity_bytes: 32 * 1024 * 1024,
             forecast_cache_bytes: 32 * 1024 * 1024,
             compress_new_directories: true,
             min_free_bytes: 64 * 1024 * 1024,

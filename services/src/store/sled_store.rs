@@ -1,7 +1,7 @@
 //! The embedded default engine, sled 0.34, as a [`Store`]: an [`Engine`] (the open database
 //! and its trees) behind a slot that can be reopened, with a disk-space gate in front of writes.
 //!
-//! - **Memory**: sled's page cache is `[storage] cache_capacity_bytes` (64 MiB by default;
+//! - **Memory**: sled's page cache is `[storage] cache_capacity_bytes` (32 MiB by default;
 //!   sled's own default of 1 GB let memory grow with every write until it got there),
 //!   counted in decoded page bytes by the patched sled under `vendor/sled` (upstream counts
 //!   compressed bytes, several times less than the heap the cache takes; BENCHMARKS.md,

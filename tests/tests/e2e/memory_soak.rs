@@ -1,7 +1,7 @@
 //! Memory under sustained writes: a real server process takes a long trip stream (many
 //! vehicles, in shuffled order), then half of it again (all duplicates), then an online backup,
 //! while its resident set (VmRSS in /proc/<pid>/status) is sampled. The sled page cache is
-//! `[storage] cache_capacity_bytes` (64 MiB by default) and every queue the server keeps is
+//! `[storage] cache_capacity_bytes` (32 MiB by default) and every queue the server keeps is
 //! bounded by its configuration (see `config::reliability`).
 //!
 //! What used to grow with the data: each ingest chunk loaded the whole trip-id index of every
