@@ -26,6 +26,9 @@ pub(crate) const BATCH_MANIFEST_PID: PageId = PageId::max_value() - 666;
 
 pub(crate) const PAGE_CONSOLIDATION_THRESHOLD: usize = 10;
 pub(crate) const SEGMENT_CLEANUP_THRESHOLD: usize = 50;
+// brakeledger patch: an inactive segment is drained (its live pages rewritten elsewhere) only
+// once at most this percentage of it is live; upstream used SEGMENT_CLEANUP_THRESHOLD (50).
+pub(crate) const SEGMENT_DRAIN_LIVE_PERCENT: usize = 25;
 
 // Allows for around 1 trillion items to be stored
 // 2^37 * (assuming 50% node fill, 8 items per leaf)

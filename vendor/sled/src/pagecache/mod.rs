@@ -39,6 +39,7 @@ use self::{
     constants::{
         BATCH_MANIFEST_PID, COUNTER_PID, META_PID,
         PAGE_CONSOLIDATION_THRESHOLD, SEGMENT_CLEANUP_THRESHOLD,
+        SEGMENT_DRAIN_LIVE_PERCENT,
     },
     header::Header,
     iobuf::{roll_iobuf, IoBuf, IoBufs},

@@ -834,7 +834,8 @@ impl SegmentAccountant {
         idx: usize,
         lsn: Lsn,
     ) -> Result<()> {
-        let cleanup_threshold = SEGMENT_CLEANUP_THRESHOLD;
+        // brakeledger patch: SEGMENT_DRAIN_LIVE_PERCENT instead of SEGMENT_CLEANUP_THRESHOLD.
+        let cleanup_threshold = SEGMENT_DRAIN_LIVE_PERCENT;
 
         let segment_start = (idx * self.config.segment_size) as LogOffset;
 
