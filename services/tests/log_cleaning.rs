@@ -14,17 +14,12 @@ const ROUNDS: u32 = 12;
 /// Bytes a value: incompressible, so that what is live on disk is known.
 const VALUE_BYTES: usize = 1_000;
 
-/// A value that zstd cannot shrink (a xorshift stream seeded by key and round).
+/// A value that zstd cannot shrink: random bytes, seeded by key and round.
 fn value(key: u32, round: u32) -> Vec<u8> {
-    let mut state = (u64::from(key) << 32 | u64::from(round)) ^ 0x9e37_79b9_7f4a_7c15;
-    (0..VALUE_BYTES)
-        .map(|_| {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            state as u8
-        })
-        .collect()
+    use rand::{RngCore, SeedableRng};
+    let mut bytes = vec![0u8; VALUE_BYTES];
+    rand::rngs::StdRng::seed_from_u64(u64::from(key) << 32 | u64::from(round)).fill_bytes(&mut bytes);
+    bytes
 }
 
 /// Bytes of the files under `dir`.
