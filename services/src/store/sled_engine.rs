@@ -561,6 +561,36 @@ pub fn correction_key(fleet_id: &str, vehicle_id: &str, kind: ServiceKind, recor
     key
 }
 
+/// A batch of trips sorted and encoded by [`Engine::sort_trips`], for
+/// [`Engine::write_sorted_trips`].
+pub struct SortedTrips {
+    /// What becomes of each trip of the batch, in order.
+    outcomes: Vec<IngestOutcome>,
+    /// Each vehicle of the batch (its totals key) and its trip count when the batch was sorted.
+    stored_before: Vec<(Vec<u8>, u64)>,
+    /// Day blocks to put, encoded.
+    blocks: Vec<(Vec<u8>, Vec<u8>)>,
+    /// Trip-id index segments to put, encoded.
+    index: Vec<(Vec<u8>, Vec<u8>)>,
+    /// Roll-up additions by day key.
+    daily: BTreeMap<Vec<u8>, DailyEnergy>,
+    /// Totals additions by vehicle key.
+    totals: BTreeMap<Vec<u8>, TotalsDelta>,
+}
+
+impl SortedTrips {
+    /// The new keys of the batch, for the ledger: trips whose id is not stored yet, once each.
+    pub fn planned_keys(&self, trips: &[TripRecord]) -> PlannedKeys {
+        let mut planned = PlannedKeys::default();
+        for (trip, outcome) in trips.iter().zip(&self.outcomes) {
+            if *outcome == IngestOutcome::Stored {
+                planned.add(&trip.fleet_id, RecordKind::Trip, trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id));
+            }
+        }
+        planned
+    }
+}
+
 /// Per-vehicle total changes gathered while ingesting a batch.
 #[derive(Default)]
 struct TotalsDelta {
@@ -653,43 +683,79 @@ impl Engine {
         Ok(Self::get_value(&self.totals, &vehicle_key(fleet_id, vehicle_id))?.unwrap_or_default())
     }
 
-    /// See [`Store`]: one transaction over the day blocks, the trip-id index, the roll-up, the
-    /// totals and the stale marks, then one flush.
+    /// See [`Store`]: [`Engine::sort_trips`], then [`Engine::write_sorted_trips`], sorted again
+    /// if another write added trips to one of the vehicles in between.
     pub fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
+        loop {
+            let sorted = self.sort_trips(trips)?;
+            match self.write_sorted_trips(trips, sorted) {
+                Err(StoreError::Conflict) => continue,
+                written => return written,
+            }
+        }
+    }
+
+    /// Sorts a batch of trips into stored and duplicate (against the store and earlier in the
+    /// batch) and encodes every value the write will put, outside sled's transaction: the
+    /// transaction then only checks that no vehicle gained trips since and puts the values.
+    pub fn sort_trips(&self, trips: &[TripRecord]) -> StoreResult<SortedTrips> {
+        let (outcomes, vehicles) = sort_out_trips(trips, &self.trip_blocks, &self.trip_id_index, &self.totals).map_err(|e| match e {
+            ConflictableTransactionError::Abort(error) => error,
+            ConflictableTransactionError::Storage(error) => error.into(),
+            ConflictableTransactionError::Conflict => StoreError::Conflict,
+        })?;
+        let mut daily: BTreeMap<Vec<u8>, DailyEnergy> = BTreeMap::new();
+        let mut totals: BTreeMap<Vec<u8>, TotalsDelta> = BTreeMap::new();
+        for (trip, outcome) in trips.iter().zip(&outcomes) {
+            if *outcome != IngestOutcome::Stored {
+                continue;
+            }
+            let day = utc_day(trip.end_ms);
+            let entry = daily.entry(day_key(&trip.fleet_id, &trip.vehicle_id, day)).or_insert_with(|| DailyEnergy { day, ..DailyEnergy::default() });
+            add_trip_to_day(entry, trip);
+            let total = totals.entry(vehicle_key(&trip.fleet_id, &trip.vehicle_id)).or_default();
+            total.trips += 1;
+            total.energy_j += trip.friction_energy_j;
+            total.distance_m += trip.distance_m;
+            total.last_end_ms = Some(total.last_end_ms.map_or(trip.end_ms, |t| t.max(trip.end_ms)));
+        }
+        let mut stored_before = Vec::with_capacity(vehicles.len());
+        let (mut blocks, mut index) = (Vec::new(), Vec::new());
+        for vehicle in vehicles.into_values() {
+            stored_before.push((vehicle.prefix[..vehicle.prefix.len() - 1].to_vec(), vehicle.stored));
+            vehicle.encode_into(&mut blocks, &mut index)?;
+        }
+        Ok(SortedTrips { outcomes, stored_before, blocks, index, daily, totals })
+    }
+
+    /// Writes a batch [`Engine::sort_trips`] sorted: one transaction over the day blocks, the
+    /// trip-id index, the roll-up, the totals and the stale marks, then one flush.
+    /// [`StoreError::Conflict`] (nothing written) if a vehicle's trip count moved since the sort.
+    pub fn write_sorted_trips(&self, trips: &[TripRecord], sorted: SortedTrips) -> StoreResult<Vec<IngestOutcome>> {
         if trips.is_empty() {
             return Ok(Vec::new());
         }
-        let (outcomes, new_marks) = (&self.trip_blocks, &self.trip_id_index, &self.daily, &self.totals, &self.stale)
+        let new_marks = (&self.trip_blocks, &self.trip_id_index, &self.daily, &self.totals, &self.stale)
             .transaction(|(block_tree, index_tree, daily_tree, totals_tree, stale_tree)| {
-                let (outcomes, vehicles) = sort_out_trips(trips, block_tree, index_tree, totals_tree)?;
-                let mut daily: BTreeMap<Vec<u8>, DailyEnergy> = BTreeMap::new();
-                let mut totals: BTreeMap<Vec<u8>, TotalsDelta> = BTreeMap::new();
-                for (trip, outcome) in trips.iter().zip(&outcomes) {
-                    if *outcome != IngestOutcome::Stored {
-                        continue;
+                for (key, stored) in &sorted.stored_before {
+                    let now: Option<VehicleTotals> = tx_get(totals_tree, key)?;
+                    if now.map_or(0, |t| t.trips_recorded) != *stored {
+                        return Err(abort(StoreError::Conflict));
                     }
-                    let day = utc_day(trip.end_ms);
-                    let entry = daily.entry(day_key(&trip.fleet_id, &trip.vehicle_id, day)).or_insert_with(|| DailyEnergy {
-                        day,
-                        ..DailyEnergy::default()
-                    });
-                    add_trip_to_day(entry, trip);
-                    let total = totals.entry(vehicle_key(&trip.fleet_id, &trip.vehicle_id)).or_default();
-                    total.trips += 1;
-                    total.energy_j += trip.friction_energy_j;
-                    total.distance_m += trip.distance_m;
-                    total.last_end_ms = Some(total.last_end_ms.map_or(trip.end_ms, |t| t.max(trip.end_ms)));
                 }
-                for vehicle in vehicles.into_values() {
-                    vehicle.write(block_tree, index_tree)?;
+                for (key, value) in &sorted.blocks {
+                    block_tree.insert(key.as_slice(), value.as_slice())?;
                 }
-                for (key, delta) in &daily {
+                for (key, value) in &sorted.index {
+                    index_tree.insert(key.as_slice(), value.as_slice())?;
+                }
+                for (key, delta) in &sorted.daily {
                     let mut day: DailyEnergy = tx_get(daily_tree, key)?.unwrap_or_else(|| DailyEnergy { day: delta.day, ..DailyEnergy::default() });
                     merge_days(&mut day, delta);
                     tx_put(daily_tree, key, &day)?;
                 }
                 let mut new_marks = 0u64;
-                for (key, delta) in &totals {
+                for (key, delta) in &sorted.totals {
                     let mut total: VehicleTotals = tx_get(totals_tree, key)?.unwrap_or_default();
                     total.trips_recorded += delta.trips;
                     total.friction_energy_j += delta.energy_j;
@@ -703,14 +769,14 @@ impl Engine {
                         new_marks += 1;
                     }
                 }
-                Ok((outcomes, new_marks))
+                Ok(new_marks)
             })
             .map_err(|e: TransactionError<StoreError>| StoreError::from(e))?;
         self.count_new_marks(new_marks);
-        if outcomes.contains(&IngestOutcome::Stored) {
+        if sorted.outcomes.contains(&IngestOutcome::Stored) {
             self.db.flush()?;
         }
-        Ok(outcomes)
+        Ok(sorted.outcomes)
     }
 
     /// Every stored trip of one vehicle, oldest first (by end, then trip id).
@@ -1063,22 +1129,6 @@ impl Engine {
         Ok(planned)
     }
 
-    /// The new keys of a trip batch: trips whose id is not stored yet, once each.
-    pub fn plan_trips(&self, trips: &[TripRecord]) -> StoreResult<PlannedKeys> {
-        let mut planned = PlannedKeys::default();
-        let (outcomes, _) = sort_out_trips(trips, &self.trip_blocks, &self.trip_id_index, &self.totals).map_err(|e| match e {
-            ConflictableTransactionError::Abort(error) => error,
-            ConflictableTransactionError::Storage(error) => error.into(),
-            ConflictableTransactionError::Conflict => StoreError::Conflict,
-        })?;
-        for (trip, outcome) in trips.iter().zip(outcomes) {
-            if outcome == IngestOutcome::Stored {
-                planned.add(&trip.fleet_id, RecordKind::Trip, trip_key(&trip.fleet_id, &trip.vehicle_id, trip.end_ms, &trip.trip_id));
-            }
-        }
-        Ok(planned)
-    }
-
     /// How many of `keys` the store holds.
     pub fn count_present(&self, keys: &[(RecordKind, Vec<u8>)]) -> StoreResult<usize> {
         let mut present = 0;
@@ -1301,11 +1351,12 @@ impl VehicleTrips {
         Ok(IngestOutcome::Stored)
     }
 
-    /// Writes the changed blocks and the index segments the new entries went to.
-    fn write(mut self, blocks: &TransactionalTree, index: &TransactionalTree) -> TxResult<()> {
+    /// Encodes the changed blocks and the index segments the new entries go to, as (key,
+    /// value) pairs to put.
+    fn encode_into(mut self, blocks: &mut Vec<(Vec<u8>, Vec<u8>)>, index: &mut Vec<(Vec<u8>, Vec<u8>)>) -> StoreResult<()> {
         for (day, (mut trips, changed)) in std::mem::take(&mut self.blocks) {
             if changed {
-                blocks.insert(self.block_key(day), trip_blocks::encode_block(day, &mut trips).map_err(abort)?)?;
+                blocks.push((self.block_key(day), trip_blocks::encode_block(day, &mut trips)?));
             }
         }
         if self.new_entries.is_empty() {
@@ -1314,7 +1365,7 @@ impl VehicleTrips {
         let first = self.stored / SEGMENT_ENTRIES as u64;
         let entries: Vec<IdEntry> = self.open_segment.iter().chain(&self.new_entries).copied().collect();
         for (n, chunk) in entries.chunks(SEGMENT_ENTRIES).enumerate() {
-            index.insert(trip_blocks::segment_key(&self.prefix, (first + n as u64) as u32), trip_blocks::encode_segment(chunk))?;
+            index.push((trip_blocks::segment_key(&self.prefix, (first + n as u64) as u32), trip_blocks::encode_segment(chunk)));
         }
         Ok(())
     }
@@ -1645,6 +1696,30 @@ mod tests {
         let other = TripRecord { vehicle_id: "van-3".into(), ..trips[0].clone() };
         assert_eq!(store.ingest_trips(&[other.clone(), other]).unwrap(), vec![IngestOutcome::Stored, IngestOutcome::Duplicate]);
         assert_eq!(store.vehicle_totals("north", "van-2").unwrap().trips_recorded, (SEGMENT_ENTRIES + 300) as u64);
+    }
+
+    #[test]
+    fn a_sorted_batch_is_refused_once_its_vehicles_gained_trips_and_written_as_sorted_otherwise() {
+        let engine = Engine::from_db(temporary_db().unwrap()).unwrap();
+        let trips = fixture_trips();
+        let (first, second) = trips.split_at(40);
+        // Sorted before `first` reached the store; `first` shares trip ids with `second`'s
+        // vehicle van-1 (ids repeat within a vehicle's fixture) and adds trips to it.
+        let stale = engine.sort_trips(second).unwrap();
+        engine.ingest_trips(first).unwrap();
+        let totals_before = engine.vehicle_totals("north", "van-1").unwrap();
+        assert!(matches!(engine.write_sorted_trips(second, stale), Err(StoreError::Conflict)));
+        assert_eq!(engine.vehicle_totals("north", "van-1").unwrap(), totals_before, "a refused write writes nothing");
+        // Sorted again, it goes in; the whole fixture then reads back as one ingest of it does.
+        let outcomes = engine.write_sorted_trips(second, engine.sort_trips(second).unwrap()).unwrap();
+        let reference = Engine::from_db(temporary_db().unwrap()).unwrap();
+        let expected = reference.ingest_trips(&trips).unwrap();
+        assert_eq!(outcomes, expected[40..].to_vec());
+        for vehicle in ["van-1", "van-2"] {
+            assert_eq!(engine.vehicle_totals("north", vehicle).unwrap(), reference.vehicle_totals("north", vehicle).unwrap());
+            assert_eq!(engine.vehicle_trips("north", vehicle).unwrap(), reference.vehicle_trips("north", vehicle).unwrap());
+            assert_eq!(engine.daily_energy("north", vehicle).unwrap(), reference.daily_energy("north", vehicle).unwrap());
+        }
     }
 
     #[test]

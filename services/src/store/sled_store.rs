@@ -154,14 +154,31 @@ impl SledStore {
     /// writes and flushes. The ledger records the delta as pending before `op` and as committed
     /// after it, all under the ledger lock (see [`super::ledger`]).
     fn acknowledged<T>(&self, plan: impl FnOnce(&Engine) -> StoreResult<PlannedKeys>, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
-        let Some(slot) = &self.ledger else { return self.write(op) };
+        if self.ledger.is_none() {
+            return self.write(op);
+        }
+        self.acknowledged_with(|e| Ok((plan(e)?, ())), |e, ()| op(e))
+    }
+
+    /// [`SledStore::acknowledged`] with a plan that also hands `op` what it worked out (`P`).
+    fn acknowledged_with<P, T>(
+        &self,
+        plan: impl FnOnce(&Engine) -> StoreResult<(PlannedKeys, P)>,
+        op: impl FnOnce(&Engine, P) -> StoreResult<T>,
+    ) -> StoreResult<T> {
+        let Some(slot) = &self.ledger else {
+            return self.write(|e| {
+                let (_, worked_out) = plan(e)?;
+                op(e, worked_out)
+            });
+        };
         self.writable()?;
         let mut slot = slot.lock().map_err(lock_error)?;
         let engine = self.engine()?;
         Self::settle_unsettled(&mut slot, &engine)?;
-        let planned = plan(&engine)?;
+        let (planned, worked_out) = plan(&engine)?;
         if planned.keys.is_empty() {
-            let result = op(&engine);
+            let result = op(&engine, worked_out);
             self.note_full_disk(&result);
             return result;
         }
@@ -170,7 +187,7 @@ impl SledStore {
         // write health reports NOT_SERVING until space is back.
         self.note_full_disk(&begun);
         begun?;
-        let result = op(&engine);
+        let result = op(&engine, worked_out);
         self.note_full_disk(&result);
         let result = result.and_then(|value| slot.ledger.commit().map(|()| value).map_err(StoreError::from));
         self.note_full_disk(&result);
@@ -354,7 +371,18 @@ impl Store for SledStore {
     }
 
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
-        self.acknowledged(|e| e.plan_trips(trips), |e| e.ingest_trips(trips))
+        if self.ledger.is_none() {
+            return self.write(|e| e.ingest_trips(trips));
+        }
+        // Sorted once, under the ledger lock that every trip write takes: the sort's new keys
+        // are the ledger's pending delta and the write puts exactly those.
+        self.acknowledged_with(
+            |e| {
+                let sorted = e.sort_trips(trips)?;
+                Ok((sorted.planned_keys(trips), sorted))
+            },
+            |e, sorted| e.write_sorted_trips(trips, sorted),
+        )
     }
 
     fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>> {
