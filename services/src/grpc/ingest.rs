@@ -1,8 +1,12 @@
 //! The ingest pipeline shared by the three TelemetryService RPCs.
 //!
 //! An [`Ingestor`] validates each trip of a call, gathers valid ones into chunks of
-//! `[ingest] chunk_trips` and writes a chunk while the next one is being read (at most one write
-//! in flight, so a call holds at most two chunks). It counts what became of every trip, knows
+//! `[ingest] chunk_trips` and writes chunks while the next one is being read: at most
+//! [`WRITES_IN_FLIGHT`] at a time, so a call holds at most three chunks. A chunk's store work
+//! that only reads ([`crate::store::Store::prepare_trips`]) runs as soon as the chunk is full;
+//! its write waits until the call's previous chunk is written, so chunks are stored in the
+//! order received (a trip id sent twice is stored from its first copy). It counts what became
+//! of every trip, knows
 //! which prefix of the call is *settled* (durable, duplicate or refused) for IngestTrips acks,
 //! and builds the final report with the refusal listing capped ([`super::refusals`]).
 //!
@@ -10,7 +14,8 @@
 //! stream fails, or the server's drain deadline passes at shutdown; it writes everything valid
 //! it has read before it returns.
 
-use std::collections::HashMap;
+use std::collections::{HashMap, VecDeque};
+use std::sync::mpsc;
 use std::time::Duration;
 
 use brakeledger_models::domain::FieldViolation;
@@ -30,6 +35,10 @@ use crate::store::{IngestOutcome, StoreResult, TripRecord, VehicleRecord};
 /// Vehicles remembered per call; the cache is emptied when a call names more (bounded memory
 /// for calls that name very many vehicles, for example unknown ones).
 const VEHICLE_CACHE_MAX: usize = 10_000;
+
+/// Chunks of one call being written at once: the next chunk's reads (the sort against what is
+/// stored) overlap the previous chunk's write, on the other core.
+pub const WRITES_IN_FLIGHT: usize = 2;
 
 /// A chunk being written, and the number of the call's trips it settles.
 struct InFlight {
@@ -55,7 +64,10 @@ pub struct Ingestor {
     earliest_ms: i64,
     vehicles: HashMap<(String, String), Option<VehicleRecord>>,
     chunk: Vec<TripRecord>,
-    in_flight: Option<InFlight>,
+    /// Oldest first.
+    in_flight: VecDeque<InFlight>,
+    /// Signalled when the last chunk started has been written (or has failed).
+    last_written: Option<mpsc::Receiver<()>>,
     received: u64,
     settled: u64,
     acked_settled: u64,
@@ -63,6 +75,9 @@ pub struct Ingestor {
     duplicates: u64,
     refusals: Refusals,
     delta: AckDelta,
+    /// Make an ack each time a chunk settles (IngestTrips), kept in `ready` until sent.
+    ack_each_chunk: bool,
+    ready: Vec<pb::IngestAck>,
     now_ms: i64,
 }
 
@@ -80,7 +95,8 @@ impl Ingestor {
             earliest_ms,
             vehicles: HashMap::new(),
             chunk,
-            in_flight: None,
+            in_flight: VecDeque::new(),
+            last_written: None,
             received: 0,
             settled: 0,
             acked_settled: 0,
@@ -88,6 +104,8 @@ impl Ingestor {
             duplicates: 0,
             refusals,
             delta: AckDelta::default(),
+            ack_each_chunk: false,
+            ready: Vec::new(),
             now_ms: now_ms(),
         }
     }
@@ -162,13 +180,13 @@ impl Ingestor {
         Ok(())
     }
 
-    /// Waits for the chunk being written, if any, and counts its outcomes. Cancel-safe: if the
-    /// wait is abandoned, the write stays in flight and a later call settles it.
+    /// Waits for the oldest chunk being written, if any, and counts its outcomes. Cancel-safe:
+    /// if the wait is abandoned, the write stays in flight and a later call settles it.
     pub async fn settle_in_flight(&mut self) -> ServiceResult<()> {
-        let Some(in_flight) = self.in_flight.as_mut() else { return Ok(()) };
+        let Some(in_flight) = self.in_flight.front_mut() else { return Ok(()) };
         let joined = (&mut in_flight.handle).await;
         let settles_through = in_flight.settles_through;
-        self.in_flight = None;
+        self.in_flight.pop_front();
         let outcomes = joined.map_err(|e| ServiceError::Internal(format!("ingest task failed: {e}")))??;
         let stored = outcomes.iter().filter(|o| **o == IngestOutcome::Stored).count() as u64;
         crate::metrics::trips(stored, outcomes.len() as u64 - stored);
@@ -186,27 +204,58 @@ impl Ingestor {
         }
         self.settled = self.settled.max(settles_through);
         self.state.wake_forecaster.notify_one();
+        if self.ack_each_chunk {
+            if let Some(ack) = self.take_ack() {
+                self.ready.push(ack);
+            }
+        }
         Ok(())
+    }
+
+    /// The acks of chunks settled since the last call, oldest first, then one of what happened
+    /// since if `everything` (refusals after the last chunk, the close of the call).
+    fn acks_ready(&mut self, everything: bool) -> Vec<pb::IngestAck> {
+        let mut acks = std::mem::take(&mut self.ready);
+        if everything {
+            acks.extend(self.take_ack());
+        }
+        acks
     }
 
     /// True while a chunk is being written.
     pub fn writing(&self) -> bool {
-        self.in_flight.is_some()
+        !self.in_flight.is_empty()
     }
 
-    /// Starts writing the chunk gathered so far (after the previous write settled).
+    /// Starts writing the chunk gathered so far (once fewer than [`WRITES_IN_FLIGHT`] are).
     async fn write_chunk(&mut self) -> ServiceResult<()> {
-        self.settle_in_flight().await?;
+        while self.in_flight.len() >= WRITES_IN_FLIGHT {
+            self.settle_in_flight().await?;
+        }
         if self.chunk.is_empty() {
-            // Everything received is refused or already settled.
-            self.settled = self.received;
+            if self.in_flight.is_empty() {
+                // Everything received is refused or already settled.
+                self.settled = self.received;
+            }
             return Ok(());
         }
         let capacity = self.state.serving.ingest.chunk_trips.max(1);
         let chunk = std::mem::replace(&mut self.chunk, Vec::with_capacity(capacity));
         let store = std::sync::Arc::clone(&self.state.store);
-        let handle = tokio::task::spawn_blocking(move || store.ingest_trips(&chunk));
-        self.in_flight = Some(InFlight { handle, settles_through: self.received });
+        let after = self.last_written.take();
+        let (written, last_written) = mpsc::sync_channel(1);
+        self.last_written = Some(last_written);
+        let handle = tokio::task::spawn_blocking(move || {
+            let prepared = store.prepare_trips(chunk);
+            // The previous chunk first, whatever became of it (a closed channel: it ended too).
+            if let Some(after) = after {
+                let _ = after.recv();
+            }
+            let outcomes = prepared.and_then(|prepared| store.ingest_prepared(prepared));
+            let _ = written.send(());
+            outcomes
+        });
+        self.in_flight.push_back(InFlight { handle, settles_through: self.received });
         Ok(())
     }
 
@@ -214,7 +263,13 @@ impl Ingestor {
     /// is settled.
     pub async fn write_all(&mut self) -> ServiceResult<()> {
         self.write_chunk().await?;
-        self.settle_in_flight().await
+        while self.writing() {
+            self.settle_in_flight().await?;
+        }
+        if self.chunk.is_empty() {
+            self.settled = self.received;
+        }
+        Ok(())
     }
 
     /// True when something happened that the client has not been told in an ack.
@@ -291,7 +346,15 @@ where
     let state = ingestor.state.clone();
     let mut cutoff = state.ingest_cutoff.subscribe();
     let ack_delay = Duration::from_millis(state.serving.ingest.ack_delay_ms);
+    ingestor.ack_each_chunk = acks;
     let mut ack_due: Option<Instant> = None;
+    // Sends the acks ready; true when there were any.
+    let mut send = |ingestor: &mut Ingestor, everything: bool| {
+        let ready = ingestor.acks_ready(everything);
+        let sent = !ready.is_empty();
+        ready.into_iter().for_each(&mut on_ack);
+        sent
+    };
     let outcome = loop {
         if acks && ack_due.is_none() && ingestor.unacknowledged() {
             ack_due = Some(Instant::now() + ack_delay);
@@ -304,8 +367,7 @@ where
                 if let Err(error) = settled {
                     break Err(error.into_status());
                 }
-                if let Some(ack) = ingestor.take_ack() {
-                    on_ack(ack);
+                if send(ingestor, false) {
                     ack_due = None;
                 }
             }
@@ -313,9 +375,7 @@ where
                 if let Err(error) = ingestor.write_all().await {
                     break Err(error.into_status());
                 }
-                if let Some(ack) = ingestor.take_ack() {
-                    on_ack(ack);
-                }
+                send(ingestor, true);
                 ack_due = None;
             }
             message = trips.next() => match message {
@@ -333,23 +393,19 @@ where
                     if let Some(error) = refused {
                         break Err(error.into_status());
                     }
-                    // A full chunk settles the previous write while the batch is read.
-                    if acks && ingestor.settled > ingestor.acked_settled {
-                        if let Some(ack) = ingestor.take_ack() {
-                            on_ack(ack);
-                            ack_due = None;
-                        }
+                    // Chunks settled while the batch was read (to make room for the next one).
+                    if acks && send(ingestor, false) {
+                        ack_due = None;
                     }
                 }
             },
         }
     };
     // Whatever ended the stream, what was read and is valid is written (and acknowledged).
-    ingestor.write_all().await.map_err(ServiceError::into_status)?;
+    let written = ingestor.write_all().await.map_err(ServiceError::into_status);
     if acks {
-        if let Some(ack) = ingestor.take_ack() {
-            on_ack(ack);
-        }
+        send(ingestor, true);
     }
+    written?;
     outcome
 }

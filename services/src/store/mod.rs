@@ -68,6 +68,32 @@ pub enum StoreError {
 /// Result of storage calls.
 pub type StoreResult<T> = Result<T, StoreError>;
 
+/// A batch of validated trips and the work an engine did on it ahead of writing it
+/// ([`Store::prepare_trips`]).
+pub struct PreparedTrips {
+    /// The trips, in the order received.
+    pub trips: Vec<TripRecord>,
+    /// The engine's own work, if any (only the engine that made it reads it).
+    work: Option<Box<dyn std::any::Any + Send>>,
+}
+
+impl PreparedTrips {
+    /// A batch with no work done ahead.
+    pub fn new(trips: Vec<TripRecord>) -> Self {
+        Self { trips, work: None }
+    }
+
+    /// A batch with an engine's work done ahead.
+    pub fn with_work<W: std::any::Any + Send>(trips: Vec<TripRecord>, work: W) -> Self {
+        Self { trips, work: Some(Box::new(work)) }
+    }
+
+    /// The trips, and the work done ahead if it is a `W`.
+    pub fn into_parts<W: std::any::Any>(self) -> (Vec<TripRecord>, Option<W>) {
+        (self.trips, self.work.and_then(|work| work.downcast::<W>().ok()).map(|work| *work))
+    }
+}
+
 /// What happened to one trip handed to [`Store::ingest_trips`].
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum IngestOutcome {
@@ -117,6 +143,17 @@ pub trait Store: Send + Sync + 'static {
     /// be validated. Updates per-vehicle totals and the daily per-axle roll-up, and marks the
     /// vehicles' forecasts stale.
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>>;
+    /// The part of [`Store::ingest_trips`] that only reads, done ahead: it may run while an
+    /// earlier batch is still being written, and stores nothing. The default does nothing
+    /// ahead.
+    fn prepare_trips(&self, trips: Vec<TripRecord>) -> StoreResult<PreparedTrips> {
+        Ok(PreparedTrips::new(trips))
+    }
+    /// [`Store::ingest_trips`] of a batch [`Store::prepare_trips`] prepared, with the same
+    /// outcomes and guarantees whatever was written in between.
+    fn ingest_prepared(&self, prepared: PreparedTrips) -> StoreResult<Vec<IngestOutcome>> {
+        self.ingest_trips(&prepared.trips)
+    }
     /// Stores an inspection durably and marks the vehicle stale, unless its id is already
     /// stored (with the same values: `Duplicate`; with others: `Differs`, nothing changed).
     fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>>;

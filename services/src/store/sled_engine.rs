@@ -728,6 +728,18 @@ impl Engine {
         Ok(SortedTrips { outcomes, stored_before, blocks, index, daily, totals })
     }
 
+    /// Whether a sorted batch still holds: none of its vehicles gained trips since it was
+    /// sorted (every write that stores trips raises its vehicles' counts).
+    pub fn sorted_is_current(&self, sorted: &SortedTrips) -> StoreResult<bool> {
+        for (key, stored) in &sorted.stored_before {
+            let now: Option<VehicleTotals> = Self::get_value(&self.totals, key)?;
+            if now.map_or(0, |t| t.trips_recorded) != *stored {
+                return Ok(false);
+            }
+        }
+        Ok(true)
+    }
+
     /// Writes a batch [`Engine::sort_trips`] sorted: one transaction over the day blocks, the
     /// trip-id index, the roll-up, the totals and the stale marks, then one flush.
     /// [`StoreError::Conflict`] (nothing written) if a vehicle's trip count moved since the sort.

@@ -27,11 +27,18 @@ pub use super::sled_engine::SCHEMA_VERSION;
 use super::disk_space;
 use super::integrity::{self, Findings, Mode};
 use super::ledger::{Ledger, RecordKind};
-use super::sled_engine::{decode, Engine, PageSettings, PlannedKeys};
+use super::sled_engine::{decode, Engine, PageSettings, PlannedKeys, SortedTrips};
 use super::value_cache::ValueCache;
 use super::*;
 use crate::config::OnMismatch;
 use crate::metrics::CacheLookup;
+
+/// A trip batch sorted ahead of its write, and the engine it was sorted on (held, so that a
+/// reopened database is told apart from it).
+struct SortedOn {
+    engine: Arc<Engine>,
+    sorted: SortedTrips,
+}
 
 /// How the database is opened.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -195,6 +202,39 @@ impl SledStore {
             slot.unsettled = Some(planned.keys);
         }
         result
+    }
+
+    /// Stores a batch of trips, sorted ahead (`presorted`) or not. A batch sorted on another
+    /// engine (the database was reopened since) or before one of its vehicles gained trips is
+    /// sorted again: every trip write takes the ledger lock, so under it the sort stays true
+    /// until the write, and the sort's new keys are exactly the ledger's pending delta.
+    fn write_trips(&self, trips: &[TripRecord], presorted: Option<SortedOn>) -> StoreResult<Vec<IngestOutcome>> {
+        let still_true = |engine: &Engine, presorted: Option<SortedOn>| -> StoreResult<Option<SortedTrips>> {
+            match presorted {
+                Some(SortedOn { engine: on, sorted }) if std::ptr::eq(engine, &*on) && engine.sorted_is_current(&sorted)? => Ok(Some(sorted)),
+                _ => Ok(None),
+            }
+        };
+        if self.ledger.is_none() {
+            // No ledger lock: a write in between is caught by the transaction's own check.
+            return self.write(|e| match still_true(e, presorted)? {
+                Some(sorted) => match e.write_sorted_trips(trips, sorted) {
+                    Err(StoreError::Conflict) => e.ingest_trips(trips),
+                    written => written,
+                },
+                None => e.ingest_trips(trips),
+            });
+        }
+        self.acknowledged_with(
+            |e| {
+                let sorted = match still_true(e, presorted)? {
+                    Some(sorted) => sorted,
+                    None => e.sort_trips(trips)?,
+                };
+                Ok((sorted.planned_keys(trips), sorted))
+            },
+            |e, sorted| e.write_sorted_trips(trips, sorted),
+        )
     }
 
     /// Settles a write whose outcome is not known yet, if any.
@@ -371,18 +411,18 @@ impl Store for SledStore {
     }
 
     fn ingest_trips(&self, trips: &[TripRecord]) -> StoreResult<Vec<IngestOutcome>> {
-        if self.ledger.is_none() {
-            return self.write(|e| e.ingest_trips(trips));
-        }
-        // Sorted once, under the ledger lock that every trip write takes: the sort's new keys
-        // are the ledger's pending delta and the write puts exactly those.
-        self.acknowledged_with(
-            |e| {
-                let sorted = e.sort_trips(trips)?;
-                Ok((sorted.planned_keys(trips), sorted))
-            },
-            |e, sorted| e.write_sorted_trips(trips, sorted),
-        )
+        self.write_trips(trips, None)
+    }
+
+    fn prepare_trips(&self, trips: Vec<TripRecord>) -> StoreResult<PreparedTrips> {
+        let engine = self.engine()?;
+        let sorted = engine.sort_trips(&trips)?;
+        Ok(PreparedTrips::with_work(trips, SortedOn { engine, sorted }))
+    }
+
+    fn ingest_prepared(&self, prepared: PreparedTrips) -> StoreResult<Vec<IngestOutcome>> {
+        let (trips, sorted) = prepared.into_parts::<SortedOn>();
+        self.write_trips(&trips, sorted)
     }
 
     fn record_inspection(&self, inspection: &InspectionRecord) -> StoreResult<InsertOutcome<InspectionRecord>> {

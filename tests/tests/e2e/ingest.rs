@@ -36,6 +36,33 @@ async fn stream_ten_thousand_trips_then_again_as_duplicates() {
     server.stop().await;
 }
 
+/// Chunks of one call are written two at a time (the next one sorted while the previous one is
+/// written): a trip id sent again in a later chunk, with other values, must still find the
+/// first copy stored, and every chunk must see the trips of the chunks before it.
+#[tokio::test]
+async fn a_trip_sent_again_chunks_later_keeps_its_first_copy() {
+    let server = TestServer::start().await;
+    register(&server, two_axle_vehicle("north", "bus-1")).await;
+    register(&server, two_axle_vehicle("north", "bus-2")).await;
+    let end = now_s() - 60;
+    // 4,000 trips of both vehicles interleaved (two chunks of the default 2,000, each touching
+    // both vehicles), then the first 1,500 of each vehicle again with twice the energy, then
+    // 500 new ones.
+    let mut trips: Vec<pb::TripSummary> = (0..2000).flat_map(|n| [trip("north", "bus-1", n, end), trip("north", "bus-2", n, end)]).collect();
+    let resent = (0..1500).flat_map(|n| [trip("north", "bus-1", n, end), trip("north", "bus-2", n, end)]).map(|t| pb::TripSummary { friction_energy_j: 60.0e6, ..t });
+    trips.extend(resent);
+    trips.extend((2000..2250).flat_map(|n| [trip("north", "bus-1", n, end), trip("north", "bus-2", n, end)]));
+
+    let report = server.telemetry().stream_trips(tokio_stream::iter(trips)).await.expect("stream").into_inner();
+    assert_eq!((report.accepted, report.duplicates, report.rejected.len()), (4500, 3000, 0));
+    for vehicle in ["bus-1", "bus-2"] {
+        let stored = totals(&server, vehicle).await;
+        assert_eq!(stored.trips_recorded, 2250);
+        assert!((stored.friction_energy_j - 2250.0 * 30.0e6).abs() < 1.0, "{vehicle}: the first copies' energy, {}", stored.friction_energy_j);
+    }
+    server.stop().await;
+}
+
 #[tokio::test]
 async fn mixed_batch_rejects_bad_records_and_keeps_good_ones() {
     let server = TestServer::start().await;
