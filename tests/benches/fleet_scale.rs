@@ -23,7 +23,11 @@
 //! `SCALE_BASELINE_TRIPS` trips written by the engine-alone baseline [400000];
 //! `SCALE_COMPRESS` 0 to serve from a directory created uncompressed
 //! (`[storage] compress_new_directories = false`) [1]; `SCALE_CACHE_BYTES` the server's
-//! `[storage] cache_capacity_bytes` [the default].
+//! `[storage] cache_capacity_bytes` [the default]; `SCALE_STORE_ONLY=1` to stop after the
+//! engine-alone baselines and the trip store alone (about 20 s; for profiling the store).
+//!
+//! Beside the table it prints, per step, the server's CPU seconds during the stream (and the
+//! bench's own, which sends it), and the trip store alone's CPU seconds.
 //!
 //! Run: `cargo bench -p brakeledger-tests --bench fleet_scale` (or, reusing the release
 //! build, `cargo test --release -p brakeledger-tests --bench fleet_scale`).
@@ -84,6 +88,14 @@ fn proc_field(pid: u32, file: &str, field: &str) -> u64 {
 
 fn rss_mb(pid: u32) -> f64 {
     proc_field(pid, "status", "VmRSS:") as f64 / 1024.0
+}
+
+/// CPU seconds (user and system) the process has used, from `/proc/PID/stat`.
+fn cpu_seconds(pid: u32) -> f64 {
+    let stat = std::fs::read_to_string(format!("/proc/{pid}/stat")).expect("stat");
+    let after = &stat[stat.rfind(')').expect("comm") + 2..];
+    let fields: Vec<&str> = after.split_whitespace().collect();
+    (fields[11].parse::<f64>().expect("utime") + fields[12].parse::<f64>().expect("stime")) / 100.0
 }
 
 fn written_bytes(pid: u32) -> u64 {
@@ -152,11 +164,14 @@ fn store_alone(trips: &[pb::TripSummary]) -> (f64, f64, f64) {
     let records: Vec<_> = trips.iter().map(trip_record).collect();
     let store = brakeledger::store::sled_store::SledStore::open(dir.path()).expect("store");
     let before = written_bytes(std::process::id());
+    let cpu = cpu_seconds(std::process::id());
     let started = Instant::now();
     for chunk in records.chunks(2000) {
         brakeledger::store::Store::ingest_trips(&store, chunk).expect("ingest");
     }
-    let rate = trips.len() as f64 / started.elapsed().as_secs_f64();
+    let seconds = started.elapsed().as_secs_f64();
+    println!("trip store alone: {} trips in {seconds:.2} s, {:.2} CPU seconds", trips.len(), cpu_seconds(std::process::id()) - cpu);
+    let rate = trips.len() as f64 / seconds;
     let written = written_bytes(std::process::id()) - before;
     drop(store);
     let (apparent, _) = dir_bytes(dir.path());
@@ -373,6 +388,13 @@ fn main() {
     );
     let baseline_pb = baseline_set.iter().map(|t| t.encoded_len() as f64).sum::<f64>() / baseline_set.len() as f64;
     let (store_rate, store_written, store_disk) = store_alone(&baseline_set);
+    if std::env::var("SCALE_STORE_ONLY").is_ok_and(|v| v == "1") {
+        println!(
+            "trip store alone: {store_rate:.0} trips/s ({:.2}x the engine alone), {store_written:.1} bytes written and {store_disk:.1} on disk per trip",
+            store_rate / baseline
+        );
+        return;
+    }
     drop(baseline_set);
 
     let data = tempfile::tempdir().expect("data dir");
@@ -398,11 +420,18 @@ fn main() {
             protobuf_bytes += trips.iter().map(|t| t.encoded_len() as u64).sum::<u64>();
             trips_sent += trips.len() as u64;
             let before = written_bytes(pid);
+            let (server_cpu, client_cpu) = (cpu_seconds(pid), cpu_seconds(std::process::id()));
             let started = Instant::now();
             let mut telemetry = pb::telemetry_service_client::TelemetryServiceClient::new(channel.clone());
             let count = trips.len();
             let report = telemetry.stream_trips(tokio_stream::iter(trips)).await.expect("stream").into_inner();
             ingest_s += started.elapsed().as_secs_f64();
+            println!(
+                "step {target} vehicles: StreamTrips of {count} trips in {:.2} s, server {:.2} CPU seconds, bench {:.2}",
+                started.elapsed().as_secs_f64(),
+                cpu_seconds(pid) - server_cpu,
+                cpu_seconds(std::process::id()) - client_cpu
+            );
             written += written_bytes(pid) - before;
             assert_eq!(report.accepted as usize, count, "{:?}", report.rejected.first());
             loaded = target;

@@ -133,8 +133,15 @@ impl Log {
 
                 let _measure = Measure::new(&M.compress);
 
-                let compressed_buf =
-                    compress(&buf, self.config.compression_factor).unwrap();
+                // brakeledger patch: small messages skip the costly part of zstd (see
+                // `RAW_BELOW_BYTES`).
+                let compressed_buf = if buf.len() < RAW_BELOW_BYTES {
+                    raw_zstd_frame(&buf)
+                } else if buf.len() < FAST_BELOW_BYTES {
+                    compress(&buf, FAST_LEVEL).unwrap()
+                } else {
+                    compress(&buf, self.config.compression_factor).unwrap()
+                };
 
                 return self.reserve_inner(
                     log_kind,
@@ -848,4 +855,47 @@ pub(crate) fn read_message<R: ReadAt>(
              before reading message length above"
         ),
     }
+}
+
+// brakeledger patch. Most log messages are small (a key and a value added to a page, a few
+// hundred bytes), and for those zstd spends most of its time building entropy tables
+// (Huffman for the literals, FSE for the sequences) that gain little: messages under 128 bytes
+// came out no smaller, and level 1 took about a quarter of the CPU of writing trips in the
+// fleet-scale benchmark (BENCHMARKS.md, "Ingest"). So:
+// - below `RAW_BELOW_BYTES` a message is written as a zstd frame holding one raw block (no
+//   compression at all);
+// - below `FAST_BELOW_BYTES` it is compressed at `FAST_LEVEL`, a negative ("fast") level, at
+//   which zstd leaves the literals without Huffman coding (zstd's own rule for negative
+//   levels; recalled from its source, `ZSTD_disableLiteralsCompression`) and only matches;
+// - larger messages (whole pages) at the configured level, as upstream.
+// Every message stays one standard zstd frame, which the same decoder reads as before: the file
+// format is unchanged, and a directory written either way opens with either build.
+
+/// Messages shorter than this are stored as a raw zstd frame, bytes.
+const RAW_BELOW_BYTES: usize = 128;
+/// Messages shorter than this (and not raw) are compressed at [`FAST_LEVEL`], bytes.
+const FAST_BELOW_BYTES: usize = 4096;
+/// zstd level for mid-sized messages.
+const FAST_LEVEL: i32 = -1;
+
+/// A zstd frame (RFC 8878, section 3.1.1) holding `data` as one raw block: the magic number;
+/// a frame header descriptor with Single_Segment_flag set and the content size in one byte
+/// (under 256) or two (256 plus the field); a block header marking the last block, of type Raw,
+/// with its size; then the bytes. Only for `data` shorter than 65,792 bytes (two-byte size
+/// field) and 128 KiB (largest block); callers pass under `FAST_BELOW_BYTES`.
+fn raw_zstd_frame(data: &[u8]) -> Vec<u8> {
+    debug_assert!(data.len() < 65_792);
+    let mut out = Vec::with_capacity(data.len() + 10);
+    out.extend_from_slice(&0xFD2F_B528_u32.to_le_bytes());
+    if data.len() < 256 {
+        out.push(0x20);
+        out.push(data.len() as u8);
+    } else {
+        out.push(0x60);
+        out.extend_from_slice(&((data.len() - 256) as u16).to_le_bytes());
+    }
+    let block_header = 1u32 | ((data.len() as u32) << 3);
+    out.extend_from_slice(&block_header.to_le_bytes()[..3]);
+    out.extend_from_slice(data);
+    out
 }
