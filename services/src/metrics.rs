@@ -76,7 +76,9 @@ struct Metrics {
     refresh_lag_seconds: Gauge<f64, std::sync::atomic::AtomicU64>,
     refresh_seconds: Histogram,
     store_bytes: Gauge,
-    forecast_cache: Family<OutcomeLabels, Counter>,
+    /// `brakeledger_forecast_cache_lookups_total` by [`CacheLookup`], in its order: made once
+    /// at registration, since every GetVehicleForecast counts one.
+    forecast_cache: [Counter; 3],
     heap_bytes: Family<KindLabels, Gauge>,
 }
 
@@ -95,6 +97,20 @@ pub enum CacheLookup {
     /// Read from the store and not kept, because a write to its stripe overlapped the read
     /// (or the value was too large to keep).
     MissNotKept,
+}
+
+impl CacheLookup {
+    /// Every outcome, in declaration order (= `as usize`).
+    const ALL: [CacheLookup; 3] = [CacheLookup::Hit, CacheLookup::MissKept, CacheLookup::MissNotKept];
+
+    /// The metric's label.
+    fn label(self) -> &'static str {
+        match self {
+            CacheLookup::Hit => "hit",
+            CacheLookup::MissKept => "miss_kept",
+            CacheLookup::MissNotKept => "miss_not_kept",
+        }
+    }
 }
 
 static METRICS: LazyLock<Metrics> = LazyLock::new(|| {
@@ -121,6 +137,7 @@ static METRICS: LazyLock<Metrics> = LazyLock::new(|| {
     registry.register("brakeledger_store_bytes", "Size of the store on disk, bytes", store_bytes.clone());
     let forecast_cache = Family::<OutcomeLabels, Counter>::default();
     registry.register("brakeledger_forecast_cache_lookups", "Stored-forecast reads by outcome in the by-vehicle cache: hit, miss_kept, miss_not_kept", forecast_cache.clone());
+    let forecast_cache = CacheLookup::ALL.map(|lookup| forecast_cache.get_or_create(&OutcomeLabels { outcome: lookup.label().to_owned() }).clone());
     let heap_bytes = Family::<KindLabels, Gauge>::default();
     registry.register("brakeledger_heap_bytes", "The allocator's counts of the heap at the scrape, bytes: allocated, active, resident, metadata, retained", heap_bytes.clone());
     Metrics { registry, requests, latency, trips, trips_refused, workshop_records, auth_refusals, stale_vehicles, refresh_lag_seconds, refresh_seconds, store_bytes, forecast_cache, heap_bytes }
@@ -178,12 +195,7 @@ pub fn forecast_refresh(seconds: f64) {
 
 /// Counts one read of a vehicle's stored forecasts by how the by-vehicle cache served it.
 pub fn forecast_cache_lookup(lookup: CacheLookup) {
-    let outcome = match lookup {
-        CacheLookup::Hit => "hit",
-        CacheLookup::MissKept => "miss_kept",
-        CacheLookup::MissNotKept => "miss_not_kept",
-    };
-    METRICS.forecast_cache.get_or_create(&OutcomeLabels { outcome: outcome.to_owned() }).inc();
+    METRICS.forecast_cache[lookup as usize].inc();
 }
 
 /// Records the store's size on disk.

@@ -40,7 +40,7 @@ use std::time::{Duration, Instant};
 
 use brakeledger_proto::v1 as pb;
 use brakeledger_tests::bench::{env_or, vehicle_id, UnlimitedIngestConfig};
-use brakeledger_tests::{connect, now_s, trip, trip_record, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
+use brakeledger_tests::{connect, now_s, scrape_metrics, trip, trip_record, ts, two_axle_vehicle, ServerProcess, DAY_S, TEST_WEAR_MM_PER_MJ};
 use prost::Message;
 use tonic::transport::Channel;
 
@@ -125,12 +125,7 @@ fn free_port() -> u16 {
 
 /// The server's metrics as scraped (`GET /metrics`): each sample's name with labels, and value.
 fn scrape(port: u16) -> HashMap<String, f64> {
-    use std::io::{Read, Write};
-    let mut text = String::new();
-    if let Ok(mut stream) = std::net::TcpStream::connect(("127.0.0.1", port)) {
-        let _ = stream.write_all(b"GET /metrics HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n");
-        let _ = stream.read_to_string(&mut text);
-    }
+    let text = scrape_metrics(([127, 0, 0, 1], port).into()).unwrap_or_default();
     text.lines().filter(|l| !l.starts_with('#')).filter_map(|l| l.rsplit_once(' ')).filter_map(|(name, value)| Some((name.to_owned(), value.parse().ok()?))).collect()
 }
 

@@ -146,6 +146,17 @@ pub fn fast_forecasts() -> ForecastConfig {
     ForecastConfig { coalesce_ms: 20, monte_carlo_draws: 1000, ..ForecastConfig::default() }
 }
 
+/// The whole HTTP response (status line, headers, body) to `GET /metrics` from the metrics
+/// listener at `addr`, as Prometheus would scrape it. Blocking.
+pub fn scrape_metrics(addr: SocketAddr) -> std::io::Result<String> {
+    use std::io::{Read, Write};
+    let mut stream = std::net::TcpStream::connect(addr)?;
+    stream.write_all(b"GET /metrics HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n")?;
+    let mut text = String::new();
+    stream.read_to_string(&mut text)?;
+    Ok(text)
+}
+
 /// Connects to a server, retrying while it starts.
 pub async fn connect(addr: SocketAddr) -> Channel {
     let endpoint = tonic::transport::Endpoint::from_shared(format!("http://{addr}")).expect("endpoint");

@@ -3,12 +3,12 @@
 //! explicit option and is logged. Also: the metrics listener after some traffic.
 
 use std::ffi::OsStr;
-use std::io::{Read, Write};
+use std::io::Read;
 use std::process::{Command, Stdio};
 use std::time::Duration;
 
 use brakeledger_proto::v1 as pb;
-use brakeledger_tests::{register, trip, two_axle_vehicle, now_s, ServerProcess, TestServer};
+use brakeledger_tests::{register, scrape_metrics, trip, two_axle_vehicle, now_s, ServerProcess, TestServer};
 
 fn binary() -> std::path::PathBuf {
     std::path::PathBuf::from(env!("CARGO_BIN_EXE_brakeledger-test-server"))
@@ -138,15 +138,7 @@ async fn metrics_count_calls_records_and_refusals() {
     let task = tokio::spawn(brakeledger::metrics::serve(listener, async {
         let _ = stopped.await;
     }));
-    let text = tokio::task::spawn_blocking(move || {
-        let mut stream = std::net::TcpStream::connect(addr).expect("connect");
-        stream.write_all(b"GET /metrics HTTP/1.1\r\nHost: localhost\r\nConnection: close\r\n\r\n").expect("write");
-        let mut text = String::new();
-        stream.read_to_string(&mut text).expect("read");
-        text
-    })
-    .await
-    .expect("scrape");
+    let text = tokio::task::spawn_blocking(move || scrape_metrics(addr)).await.expect("scrape task").expect("scrape");
     let _ = stop.send(());
     let _ = task.await;
     assert!(text.starts_with("HTTP/1.1 200"), "{text}");
