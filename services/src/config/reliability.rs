@@ -49,7 +49,8 @@ impl Default for Http2Config {
 #[serde(default, deny_unknown_fields)]
 pub struct IngestConfig {
     /// Valid trips per storage transaction (one flush to disk each). Default 2,000. Each call
-    /// holds at most two chunks in memory: the one being filled and the one being written.
+    /// holds at most three chunks in memory: the one being filled and two being written (the
+    /// later one sorted against the store while the earlier one is written).
     pub chunk_trips: usize,
     /// Refused trips listed one by one in a report; the rest are only counted by field and
     /// reason. Default 1,000 (about 100 KB), far below a client's 4 MB default message limit.

@@ -1,7 +1,7 @@
 //! `TelemetryService`: trip summaries from telematics integrations.
 //!
 //! All three RPCs feed an [`Ingestor`](super::ingest::Ingestor) (validation, chunked writes, at
-//! most one write in flight). PushTrips and StreamTrips answer with one report after the last
+//! most two in flight, written in the order received). PushTrips and StreamTrips answer with one report after the last
 //! chunk is flushed to disk; IngestTrips acknowledges each chunk as it reaches disk. At
 //! shutdown, streams still open at the drain deadline end with UNAVAILABLE after writing what
 //! they had read.
