@@ -247,6 +247,38 @@ fn duplicates_from_two_concurrent_writers(engine: &Engine) {
     assert_eq!(outcomes, [InsertOutcome::Stored, InsertOutcome::Duplicate]);
 }
 
+fn a_batch_prepared_before_another_write_is_stored_as_if_prepared_after(engine: &Engine) {
+    let store = &engine.store;
+    store.upsert_vehicle(&vehicle("north", "bus-1")).unwrap();
+    store.upsert_vehicle(&vehicle("north", "bus-2")).unwrap();
+    let at = |i: i64| T0 + i * 3_600_000;
+    // Prepared first, written last: "b" and "c" of bus-1 reach the store in between (as the
+    // previous chunk of a call does while the next one is prepared); bus-2 is untouched.
+    let later = vec![
+        trip("north", "bus-1", "a", at(1), 1e6),
+        trip("north", "bus-1", "b", at(2), 1e6),
+        trip("north", "bus-2", "x", at(3), 1e6),
+        trip("north", "bus-1", "a", at(1), 1e6),
+    ];
+    let prepared = store.prepare_trips(later.clone()).unwrap();
+    let between = vec![trip("north", "bus-1", "b", at(2), 1e6), trip("north", "bus-1", "c", at(30), 1e6)];
+    assert_eq!(store.ingest_trips(&between).unwrap(), [IngestOutcome::Stored, IngestOutcome::Stored]);
+    assert_eq!(
+        store.ingest_prepared(prepared).unwrap(),
+        [IngestOutcome::Stored, IngestOutcome::Duplicate, IngestOutcome::Stored, IngestOutcome::Duplicate],
+        "'b' arrived in between: a duplicate, as if the batch had been prepared after it"
+    );
+    assert_eq!(store.vehicle_totals("north", "bus-1").unwrap().trips_recorded, 3);
+    assert_eq!(store.vehicle_totals("north", "bus-1").unwrap().friction_energy_j, 3e6);
+    assert_eq!(store.vehicle_totals("north", "bus-2").unwrap().trips_recorded, 1);
+    let rolled: u32 = store.daily_energy("north", "bus-1").unwrap().iter().map(|d| d.trips).sum();
+    assert_eq!(rolled, 3, "the roll-up counts each trip once");
+    // Prepared with nothing in between: as ingest_trips.
+    let prepared = store.prepare_trips(vec![trip("north", "bus-2", "y", at(4), 1e6), trip("north", "bus-2", "x", at(3), 1e6)]).unwrap();
+    assert_eq!(store.ingest_prepared(prepared).unwrap(), [IngestOutcome::Stored, IngestOutcome::Duplicate]);
+    assert_eq!(store.vehicle_totals("north", "bus-2").unwrap().trips_recorded, 2);
+}
+
 fn inspections_and_replacements_once(engine: &Engine) {
     let store = &engine.store;
     store.upsert_vehicle(&vehicle("north", "bus-1")).unwrap();
@@ -582,6 +614,7 @@ conformance!(
     fleets_and_vehicles,
     ingest_totals_and_daily_rollup,
     duplicates_from_two_concurrent_writers,
+    a_batch_prepared_before_another_write_is_stored_as_if_prepared_after,
     inspections_and_replacements_once,
     history_and_corrections,
     due_index_ranges_and_cursors,

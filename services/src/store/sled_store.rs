@@ -414,10 +414,15 @@ impl Store for SledStore {
         self.write_trips(trips, None)
     }
 
+    /// Sorts the batch against the store. A sort that fails (the database being reopened, a
+    /// read error) leaves the batch unprepared: its write sorts it again under the ledger lock
+    /// and reports what goes wrong there.
     fn prepare_trips(&self, trips: Vec<TripRecord>) -> StoreResult<PreparedTrips> {
-        let engine = self.engine()?;
-        let sorted = engine.sort_trips(&trips)?;
-        Ok(PreparedTrips::with_work(trips, SortedOn { engine, sorted }))
+        let sorted = self.engine().and_then(|engine| engine.sort_trips(&trips).map(|sorted| SortedOn { engine, sorted }));
+        Ok(match sorted {
+            Ok(sorted) => PreparedTrips::with_work(trips, sorted),
+            Err(_) => PreparedTrips::new(trips),
+        })
     }
 
     fn ingest_prepared(&self, prepared: PreparedTrips) -> StoreResult<Vec<IngestOutcome>> {
