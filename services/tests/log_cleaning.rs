@@ -4,7 +4,7 @@
 //! and again bring the directory to a steady size, where a log that reclaimed nothing would
 //! grow by every byte written. (Its size there, about five times the live values at this small
 //! scale, is sled's log segments and buffers more than the values; at 100,000 vehicles the
-//! directory measured 1.1 times the trips' protobuf size, BENCHMARKS.md "Fleet scale".)
+//! directory measured 1.42-1.43 times the trips' protobuf size, BENCHMARKS.md "Fleet scale".)
 
 use brakeledger::store::sled_engine::{sled_config, PageSettings};
 
@@ -38,7 +38,7 @@ fn dir_bytes(dir: &std::path::Path) -> u64 {
         .sum()
 }
 
-/// Writes every key once more per round, flushing after each round, from `first` to `last`.
+/// Writes every key once more per round, flushing after each round, for each of `rounds`.
 fn write_rounds(db: &sled::Db, tree: &sled::Tree, rounds: std::ops::Range<u32>) {
     for round in rounds {
         for key in 0..KEYS {

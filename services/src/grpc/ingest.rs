@@ -233,10 +233,6 @@ impl Ingestor {
             self.settle_in_flight().await?;
         }
         if self.chunk.is_empty() {
-            if self.in_flight.is_empty() {
-                // Everything received is refused or already settled.
-                self.settled = self.received;
-            }
             return Ok(());
         }
         let capacity = self.state.serving.ingest.chunk_trips.max(1);
@@ -266,9 +262,8 @@ impl Ingestor {
         while self.writing() {
             self.settle_in_flight().await?;
         }
-        if self.chunk.is_empty() {
-            self.settled = self.received;
-        }
+        // Every trip received is now written, a duplicate or refused.
+        self.settled = self.received;
         Ok(())
     }
 

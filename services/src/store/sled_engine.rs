@@ -589,6 +589,17 @@ impl SortedTrips {
         }
         planned
     }
+
+    /// Whether none of the batch's vehicles gained trips since it was sorted, as `totals`
+    /// reads now (every write that stores trips raises its vehicles' counts).
+    fn still_holds(&self, totals: &impl ReadKey) -> TxResult<bool> {
+        for (key, stored) in &self.stored_before {
+            if stored_trip_count(totals, key)? != *stored {
+                return Ok(false);
+            }
+        }
+        Ok(true)
+    }
 }
 
 /// Per-vehicle total changes gathered while ingesting a batch.
@@ -699,11 +710,7 @@ impl Engine {
     /// batch) and encodes every value the write will put, outside sled's transaction: the
     /// transaction then only checks that no vehicle gained trips since and puts the values.
     pub fn sort_trips(&self, trips: &[TripRecord]) -> StoreResult<SortedTrips> {
-        let (outcomes, vehicles) = sort_out_trips(trips, &self.trip_blocks, &self.trip_id_index, &self.totals).map_err(|e| match e {
-            ConflictableTransactionError::Abort(error) => error,
-            ConflictableTransactionError::Storage(error) => error.into(),
-            ConflictableTransactionError::Conflict => StoreError::Conflict,
-        })?;
+        let (outcomes, vehicles) = sort_out_trips(trips, &self.trip_blocks, &self.trip_id_index, &self.totals).map_err(outside_transaction)?;
         let mut daily: BTreeMap<Vec<u8>, DailyEnergy> = BTreeMap::new();
         let mut totals: BTreeMap<Vec<u8>, TotalsDelta> = BTreeMap::new();
         for (trip, outcome) in trips.iter().zip(&outcomes) {
@@ -731,13 +738,7 @@ impl Engine {
     /// Whether a sorted batch still holds: none of its vehicles gained trips since it was
     /// sorted (every write that stores trips raises its vehicles' counts).
     pub fn sorted_is_current(&self, sorted: &SortedTrips) -> StoreResult<bool> {
-        for (key, stored) in &sorted.stored_before {
-            let now: Option<VehicleTotals> = Self::get_value(&self.totals, key)?;
-            if now.map_or(0, |t| t.trips_recorded) != *stored {
-                return Ok(false);
-            }
-        }
-        Ok(true)
+        sorted.still_holds(&self.totals).map_err(outside_transaction)
     }
 
     /// Writes a batch [`Engine::sort_trips`] sorted: one transaction over the day blocks, the
@@ -749,11 +750,8 @@ impl Engine {
         }
         let new_marks = (&self.trip_blocks, &self.trip_id_index, &self.daily, &self.totals, &self.stale)
             .transaction(|(block_tree, index_tree, daily_tree, totals_tree, stale_tree)| {
-                for (key, stored) in &sorted.stored_before {
-                    let now: Option<VehicleTotals> = tx_get(totals_tree, key)?;
-                    if now.map_or(0, |t| t.trips_recorded) != *stored {
-                        return Err(abort(StoreError::Conflict));
-                    }
+                if !sorted.still_holds(totals_tree)? {
+                    return Err(abort(StoreError::Conflict));
                 }
                 for (key, value) in &sorted.blocks {
                     block_tree.insert(key.as_slice(), value.as_slice())?;
@@ -1253,8 +1251,8 @@ impl Engine {
 
 type TxResult<T> = Result<T, ConflictableTransactionError<StoreError>>;
 
-/// Reads one key, inside a transaction or outside one, so that planning a write (for the
-/// ledger) and the write itself sort trips out by the same code.
+/// Reads one key, inside a transaction or outside one, so that a trip batch's sort (outside)
+/// and the write's check that the sort still holds (inside) read totals by the same code.
 trait ReadKey {
     fn read_key(&self, key: &[u8]) -> TxResult<Option<sled::IVec>>;
 }
@@ -1268,6 +1266,23 @@ impl ReadKey for sled::Tree {
 impl ReadKey for TransactionalTree {
     fn read_key(&self, key: &[u8]) -> TxResult<Option<sled::IVec>> {
         Ok(self.get(key)?)
+    }
+}
+
+/// Trips stored for a vehicle (its totals key), 0 when it has none.
+fn stored_trip_count(totals: &impl ReadKey, key: &[u8]) -> TxResult<u64> {
+    match totals.read_key(key)? {
+        Some(bytes) => Ok(decode::<VehicleTotals>(&bytes).map_err(abort)?.trips_recorded),
+        None => Ok(0),
+    }
+}
+
+/// A transaction-style error from code run outside any transaction, as a store error.
+fn outside_transaction(error: ConflictableTransactionError<StoreError>) -> StoreError {
+    match error {
+        ConflictableTransactionError::Abort(error) => error,
+        ConflictableTransactionError::Storage(error) => error.into(),
+        ConflictableTransactionError::Conflict => StoreError::Conflict,
     }
 }
 
@@ -1293,11 +1308,7 @@ struct VehicleTrips {
 impl VehicleTrips {
     /// The vehicle's index as a write of trips with these id hashes (`wanted`) needs it.
     fn load(prefix: Vec<u8>, wanted: &HashSet<u32>, index: &impl ReadKey, totals: &impl ReadKey) -> TxResult<Self> {
-        let total_key = &prefix[..prefix.len() - 1];
-        let stored = match totals.read_key(total_key)? {
-            Some(bytes) => decode::<VehicleTotals>(&bytes).map_err(abort)?.trips_recorded,
-            None => 0,
-        };
+        let stored = stored_trip_count(totals, &prefix[..prefix.len() - 1])?;
         let segments = stored.div_ceil(SEGMENT_ENTRIES as u64);
         let mut days_by_hash: HashMap<u32, Vec<i64>> = HashMap::with_capacity(wanted.len());
         let mut open_segment = Vec::new();

@@ -161,24 +161,18 @@ impl SledStore {
     /// writes and flushes. The ledger records the delta as pending before `op` and as committed
     /// after it, all under the ledger lock (see [`super::ledger`]).
     fn acknowledged<T>(&self, plan: impl FnOnce(&Engine) -> StoreResult<PlannedKeys>, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
-        if self.ledger.is_none() {
-            return self.write(op);
-        }
-        self.acknowledged_with(|e| Ok((plan(e)?, ())), |e, ()| op(e))
+        let Some(slot) = &self.ledger else { return self.write(op) };
+        self.under_ledger(slot, |e| Ok((plan(e)?, ())), |e, ()| op(e))
     }
 
-    /// [`SledStore::acknowledged`] with a plan that also hands `op` what it worked out (`P`).
-    fn acknowledged_with<P, T>(
+    /// [`SledStore::acknowledged`] under the ledger `slot`, with a plan that also hands `op`
+    /// what it worked out (`P`).
+    fn under_ledger<P, T>(
         &self,
+        slot: &Mutex<LedgerSlot>,
         plan: impl FnOnce(&Engine) -> StoreResult<(PlannedKeys, P)>,
         op: impl FnOnce(&Engine, P) -> StoreResult<T>,
     ) -> StoreResult<T> {
-        let Some(slot) = &self.ledger else {
-            return self.write(|e| {
-                let (_, worked_out) = plan(e)?;
-                op(e, worked_out)
-            });
-        };
         self.writable()?;
         let mut slot = slot.lock().map_err(lock_error)?;
         let engine = self.engine()?;
@@ -209,27 +203,23 @@ impl SledStore {
     /// sorted again: every trip write takes the ledger lock, so under it the sort stays true
     /// until the write, and the sort's new keys are exactly the ledger's pending delta.
     fn write_trips(&self, trips: &[TripRecord], presorted: Option<SortedOn>) -> StoreResult<Vec<IngestOutcome>> {
-        let still_true = |engine: &Engine, presorted: Option<SortedOn>| -> StoreResult<Option<SortedTrips>> {
-            match presorted {
-                Some(SortedOn { engine: on, sorted }) if std::ptr::eq(engine, &*on) && engine.sorted_is_current(&sorted)? => Ok(Some(sorted)),
-                _ => Ok(None),
-            }
-        };
-        if self.ledger.is_none() {
+        let sorted_here = |engine: &Engine, presorted: Option<SortedOn>| presorted.filter(|on| std::ptr::eq(engine, &*on.engine)).map(|on| on.sorted);
+        let Some(slot) = &self.ledger else {
             // No ledger lock: a write in between is caught by the transaction's own check.
-            return self.write(|e| match still_true(e, presorted)? {
+            return self.write(|e| match sorted_here(e, presorted) {
                 Some(sorted) => match e.write_sorted_trips(trips, sorted) {
                     Err(StoreError::Conflict) => e.ingest_trips(trips),
                     written => written,
                 },
                 None => e.ingest_trips(trips),
             });
-        }
-        self.acknowledged_with(
+        };
+        self.under_ledger(
+            slot,
             |e| {
-                let sorted = match still_true(e, presorted)? {
-                    Some(sorted) => sorted,
-                    None => e.sort_trips(trips)?,
+                let sorted = match sorted_here(e, presorted) {
+                    Some(sorted) if e.sorted_is_current(&sorted)? => sorted,
+                    _ => e.sort_trips(trips)?,
                 };
                 Ok((sorted.planned_keys(trips), sorted))
             },
