@@ -146,7 +146,12 @@ pub async fn demo(args: &DemoArgs, out: &mut impl Write) -> anyhow::Result<()> {
     let store: Arc<dyn crate::store::Store> = Arc::new(store);
     let auth = crate::config::AuthConfig { operator_token_file: Some(token_file), insecure_no_auth: false };
     let access = crate::auth::bootstrap::set_up(&auth, address, Arc::clone(&store), None, crate::convert::now_ms())?;
-    let state = AppState::new(store, forecast_config).with_access(access.policy);
+    // The demo loads two years of a fleet's history in one stream, as an import does; a
+    // production server's per-token ingest limit (`[limits] ingest_trips_per_second`, sized for
+    // live feeds) would refuse it part-way once the stream outruns its burst, so it is off here.
+    let mut serving = crate::config::ServingConfig::default();
+    serving.limits.ingest_trips_per_second = 0.0;
+    let state = AppState::new(store, forecast_config).with_serving(serving).with_access(access.policy);
     let web_listener = TcpListener::bind(args.web_listen).await.with_context(|| format!("web page listener on {}", args.web_listen))?;
     let web_address = web_listener.local_addr()?;
     crate::cli::serve::spawn_web_page(web_listener, state.clone());
