@@ -51,6 +51,9 @@ const TRIPS_PER_DAY: usize = 6;
 /// part), so that its parts have due dates; the others borrow from the fleet or have none.
 const INSPECTED_EVERY: usize = 10;
 const CONCURRENT_CALLERS: usize = 64;
+/// Replacements and inspections recorded for each vehicle of every [`INSPECTED_EVERY`]th: a
+/// replacement and two inspections of each of its four parts.
+const RECORDS_PER_INSPECTED_VEHICLE: usize = 4 * 3;
 const READ_SECONDS: f64 = 3.0;
 /// Trip `n` of a vehicle: six a day, ending `n / 6` days and `(n % 6) * 4` hours before `end_s`.
 fn scale_trip(v: usize, n: usize, end_s: i64) -> pb::TripSummary {
@@ -410,7 +413,16 @@ fn main() {
     runtime.block_on(async {
         let channel = connect(server.addr).await;
         for &target in &steps {
+            let (server_cpu, started) = (cpu_seconds(pid), Instant::now());
             register_vehicles(&channel, loaded, target, per_vehicle, end_s).await;
+            let vehicles = target - loaded;
+            let records = (loaded..target).step_by(INSPECTED_EVERY).count() * RECORDS_PER_INSPECTED_VEHICLE;
+            println!(
+                "step {target} vehicles: registered {vehicles} vehicles and {records} replacements and inspections ({} acknowledged writes, {CONCURRENT_CALLERS} callers) in {:.2} s, server {:.2} CPU seconds",
+                vehicles + records,
+                started.elapsed().as_secs_f64(),
+                cpu_seconds(pid) - server_cpu
+            );
             let trips = trips_for(loaded, target, per_vehicle, end_s, by_time);
             protobuf_bytes += trips.iter().map(|t| t.encoded_len() as u64).sum::<u64>();
             trips_sent += trips.len() as u64;

@@ -144,10 +144,16 @@ fn sled_main_file_len(dir: &Path) -> u64 {
     std::fs::metadata(dir.join(SLED_MAIN_FILE)).map(|m| m.len()).unwrap_or(0)
 }
 
-/// Per fleet: "fleet 'north': acknowledged 1 fleet settings, 6 vehicles, 4200 trips, …".
+/// Per fleet: "fleet 'north': acknowledged 1 fleet settings, 6 vehicles, 4200 trips, …",
+/// pending delta included: the file keeps the last write's delta as pending after the store
+/// flushed it (see [`super::ledger`]), so it was acknowledged unless a crash cut that write.
 fn acknowledged_counts(ledger: &LedgerState) -> Vec<String> {
+    let mut all = ledger.committed.clone();
+    if let Some(pending) = &ledger.pending {
+        all.add(pending);
+    }
     let mut lines = Vec::new();
-    for (fleet, tally) in &ledger.committed.0 {
+    for (fleet, tally) in &all.0 {
         let counts: Vec<String> = super::ledger::RecordKind::ALL
             .iter()
             .filter(|k| tally.get(**k).count > 0)
@@ -421,6 +427,24 @@ mod tests {
         let message = refusal(other.path());
         assert!(message.contains("missing or empty") && message.contains("fleet 'north': acknowledged 1 fleet settings, all of them missing"), "{message}");
         assert!(!other.path().join(SLED_MAIN_FILE).exists(), "no empty database created over the ledger");
+    }
+
+    /// The file keeps the last write's delta pending after the store flushed it (one rewrite
+    /// per write): each write folds the one before, and start-up folds the last.
+    #[test]
+    fn the_last_write_left_pending_in_the_file_is_folded_at_start_up() {
+        let dir = tempfile::tempdir().unwrap();
+        {
+            let store = SledStore::open(dir.path()).unwrap();
+            store.upsert_fleet(&FleetRecord::default_for("north")).unwrap();
+            store.upsert_fleet(&FleetRecord::default_for("south")).unwrap();
+        }
+        let state = Ledger::load(dir.path()).unwrap().state().clone();
+        assert_eq!(state.committed.totals().fleet.count, 1, "north folded by the write of south");
+        assert_eq!(state.pending.as_ref().map(|p| p.totals().fleet.count), Some(1), "south still pending");
+        drop(SledStore::open(dir.path()).expect("committed + pending is what the store holds"));
+        let state = Ledger::load(dir.path()).unwrap().state().clone();
+        assert_eq!((state.committed.totals().fleet.count, state.pending), (2, None));
     }
 
     #[test]

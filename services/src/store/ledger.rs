@@ -22,11 +22,14 @@
 //!
 //! # Writing
 //! An acknowledged write that adds records runs under one lock: the ledger is first rewritten
-//! with the write's delta as *pending* (and the committed state to follow is prepared in
-//! `acknowledged.ledger.next`), then the store writes and flushes, then the prepared file is
-//! renamed over the ledger, and only then is the write acknowledged. A
-//! crash leaves the store equal to `committed` or to `committed + pending`; start-up accepts both
-//! (and folds a pending delta that reached the store). Anything else is damage.
+//! with the write's delta as *pending*, then the store writes and flushes, and only then is the
+//! write acknowledged. The file is not rewritten again to fold the delta into *committed*: the
+//! next write's rewrite does that (its committed state includes every delta that reached the
+//! store before it), and start-up folds a pending delta the store holds. So a crash leaves the
+//! store equal to `committed` or to `committed + pending`; start-up accepts both. Anything else
+//! is damage. One atomic rewrite (two fsyncs: the file and its directory) per write instead of a
+//! rewrite before and a rename after, and the step after the store's write needs no free space
+//! because there is none.
 
 use std::collections::BTreeMap;
 use std::fmt;
@@ -39,6 +42,8 @@ use serde::{Deserialize, Serialize};
 /// File name of the ledger inside the data directory.
 pub const LEDGER_FILE: &str = "acknowledged.ledger";
 const LEDGER_TMP: &str = "acknowledged.ledger.tmp";
+/// Written by builds before 2026-12-05 beside the ledger (the committed state prepared ahead);
+/// no longer written, and removed when found.
 const LEDGER_NEXT: &str = "acknowledged.ledger.next";
 const FORMAT_LINE: &str = "brakeledger-ledger 1";
 
@@ -259,7 +264,11 @@ pub enum LedgerError {
 #[derive(Debug)]
 pub struct Ledger {
     dir: PathBuf,
+    /// What the file holds.
     state: LedgerState,
+    /// Whether the file's pending delta is known to be in the store, flushed
+    /// ([`Ledger::reached_store`]): it then counts as committed, and the next rewrite says so.
+    pending_in_store: bool,
 }
 
 impl Ledger {
@@ -278,62 +287,66 @@ impl Ledger {
         let path = Self::path_in(dir);
         let text = fs::read_to_string(&path).map_err(|source| LedgerError::Io { path: path.clone(), source })?;
         let state = parse(&text).map_err(|reason| LedgerError::Damaged { path, reason })?;
-        Ok(Self { dir: dir.to_owned(), state })
+        // The committed state an earlier build prepared ahead: never read now.
+        let _ = fs::remove_file(dir.join(LEDGER_NEXT));
+        Ok(Self { dir: dir.to_owned(), state, pending_in_store: false })
     }
 
     /// A ledger for `dir` holding `state`, written now.
     pub fn create(dir: &Path, state: LedgerState) -> Result<Self, LedgerError> {
         save(dir, &state)?;
-        Ok(Self { dir: dir.to_owned(), state })
+        Ok(Self { dir: dir.to_owned(), state, pending_in_store: false })
     }
 
-    /// The recorded state.
+    /// The state the file holds (its pending delta may have reached the store already, see
+    /// [`Ledger::acknowledged`]).
     pub fn state(&self) -> &LedgerState {
         &self.state
     }
 
-    /// Records `delta` as pending (before the store writes it). The committed state that
-    /// follows is written now too, to `acknowledged.ledger.next`, so that [`Ledger::commit`] is
-    /// a rename that needs no free space: a store write that fills the disk cannot leave an
-    /// acknowledged-to-be write unrecorded.
-    pub fn begin(&mut self, delta: Tallies) -> Result<(), LedgerError> {
-        let mut next = self.state.committed.clone();
-        next.add(&delta);
-        write_synced(&self.dir.join(LEDGER_NEXT), &render(&LedgerState { committed: next, pending: None }), &Self::path_in(&self.dir))?;
-        self.replace(LedgerState { committed: self.state.committed.clone(), pending: Some(delta) })
+    /// Every record acknowledged: the committed state, with the pending delta when it is known
+    /// to have reached the store.
+    pub fn acknowledged(&self) -> Tallies {
+        let mut committed = self.state.committed.clone();
+        if let (true, Some(delta)) = (self.pending_in_store, &self.state.pending) {
+            committed.add(delta);
+        }
+        committed
     }
 
-    /// Folds the pending delta into committed (after the store flushed it): renames the file
-    /// [`Ledger::begin`] prepared, or writes it afresh when there is none.
+    /// Records `delta` as pending (before the store writes it), with every earlier delta that
+    /// reached the store folded into committed.
+    pub fn begin(&mut self, delta: Tallies) -> Result<(), LedgerError> {
+        self.replace(LedgerState { committed: self.acknowledged(), pending: Some(delta) })
+    }
+
+    /// Notes that the pending delta reached the store and was flushed: it counts as committed
+    /// from now on. Nothing is written; the next [`Ledger::begin`] (or [`Ledger::commit`])
+    /// writes it folded, and start-up folds it if none comes.
+    pub fn reached_store(&mut self) {
+        self.pending_in_store = self.state.pending.is_some();
+    }
+
+    /// Folds the pending delta into committed and writes that (after the store flushed it).
     pub fn commit(&mut self) -> Result<(), LedgerError> {
         let mut committed = self.state.committed.clone();
         if let Some(delta) = &self.state.pending {
             committed.add(delta);
         }
-        let state = LedgerState { committed, pending: None };
-        let path = Self::path_in(&self.dir);
-        let next = self.dir.join(LEDGER_NEXT);
-        let prepared = fs::read_to_string(&next).map(|text| text == render(&state)).unwrap_or(false);
-        if prepared {
-            let io_error = |source| LedgerError::Io { path: path.clone(), source };
-            fs::rename(&next, &path).map_err(io_error)?;
-            File::open(&self.dir).and_then(|d| d.sync_all()).map_err(io_error)?;
-            self.state = state;
-            Ok(())
-        } else {
-            self.replace(state)
-        }
+        self.replace(LedgerState { committed, pending: None })
     }
 
-    /// Drops the pending delta (the store does not hold it).
+    /// Drops the pending delta (the store does not hold it); one that reached the store is
+    /// kept, as committed.
     pub fn abandon(&mut self) -> Result<(), LedgerError> {
-        self.replace(LedgerState { committed: self.state.committed.clone(), pending: None })
+        self.replace(LedgerState { committed: self.acknowledged(), pending: None })
     }
 
     /// Writes `state`; the ledger changes in memory only once it is on disk.
     fn replace(&mut self, state: LedgerState) -> Result<(), LedgerError> {
         save(&self.dir, &state)?;
         self.state = state;
+        self.pending_in_store = false;
         Ok(())
     }
 }
@@ -421,6 +434,51 @@ mod tests {
         assert!(matches!(Ledger::load(dir.path()), Err(LedgerError::Damaged { .. })));
         fs::write(&path, &text[..text.len() - 3]).unwrap();
         assert!(matches!(Ledger::load(dir.path()), Err(LedgerError::Damaged { .. })));
+    }
+
+    /// A write's delta stays pending in the file once it reached the store (nothing is
+    /// rewritten after the store's flush); the next write's rewrite folds it into committed,
+    /// and so does an abandon of a later delta that did not reach the store.
+    #[test]
+    fn a_delta_that_reached_the_store_is_folded_by_the_next_rewrite() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut first = Tallies::default();
+        first.add_key("north", RecordKind::Vehicle, b"v1");
+        let mut second = Tallies::default();
+        second.add_key("north", RecordKind::Vehicle, b"v2");
+        let mut ledger = Ledger::create(dir.path(), LedgerState::default()).unwrap();
+        ledger.begin(first.clone()).unwrap();
+        ledger.reached_store();
+        let on_disk = LedgerState { committed: Tallies::default(), pending: Some(first.clone()) };
+        assert_eq!(Ledger::load(dir.path()).unwrap().state(), &on_disk, "no rewrite after the store's flush");
+        assert_eq!(ledger.acknowledged(), first);
+
+        ledger.begin(second.clone()).unwrap();
+        let on_disk = LedgerState { committed: first.clone(), pending: Some(second.clone()) };
+        assert_eq!(Ledger::load(dir.path()).unwrap().state(), &on_disk, "the first delta folded by the second write");
+        assert_eq!(ledger.acknowledged(), first, "the second is not acknowledged before it reaches the store");
+
+        // The second write failed and its delta is absent from the store: dropped.
+        ledger.abandon().unwrap();
+        assert_eq!(Ledger::load(dir.path()).unwrap().state(), &LedgerState { committed: first.clone(), pending: None });
+
+        // A delta that reached the store survives an abandon (nothing pending is lost).
+        ledger.begin(second.clone()).unwrap();
+        ledger.reached_store();
+        ledger.abandon().unwrap();
+        let mut both = first.clone();
+        both.add(&second);
+        assert_eq!(Ledger::load(dir.path()).unwrap().state(), &LedgerState { committed: both, pending: None });
+    }
+
+    /// The committed state an earlier build prepared beside the ledger is removed on load.
+    #[test]
+    fn an_earlier_builds_prepared_file_is_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        Ledger::create(dir.path(), LedgerState::default()).unwrap();
+        fs::write(dir.path().join(LEDGER_NEXT), "left by an earlier build").unwrap();
+        Ledger::load(dir.path()).unwrap();
+        assert!(!dir.path().join(LEDGER_NEXT).exists());
     }
 
     #[test]

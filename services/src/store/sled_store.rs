@@ -158,8 +158,8 @@ impl SledStore {
     }
 
     /// An acknowledged write that may add records: `plan` lists the keys it will add, `op`
-    /// writes and flushes. The ledger records the delta as pending before `op` and as committed
-    /// after it, all under the ledger lock (see [`super::ledger`]).
+    /// writes and flushes. The ledger records the delta as pending before `op`, and counts it
+    /// as committed once `op` has flushed it, all under the ledger lock (see [`super::ledger`]).
     fn acknowledged<T>(&self, plan: impl FnOnce(&Engine) -> StoreResult<PlannedKeys>, op: impl FnOnce(&Engine) -> StoreResult<T>) -> StoreResult<T> {
         let Some(slot) = &self.ledger else { return self.write(op) };
         self.under_ledger(slot, |e| Ok((plan(e)?, ())), |e, ()| op(e))
@@ -190,10 +190,10 @@ impl SledStore {
         begun?;
         let result = op(&engine, worked_out);
         self.note_full_disk(&result);
-        let result = result.and_then(|value| slot.ledger.commit().map(|()| value).map_err(StoreError::from));
-        self.note_full_disk(&result);
-        if result.is_err() {
-            slot.unsettled = Some(planned.keys);
+        match &result {
+            // Flushed: the delta counts as committed, and the next write's ledger says so.
+            Ok(_) => slot.ledger.reached_store(),
+            Err(_) => slot.unsettled = Some(planned.keys),
         }
         result
     }
@@ -564,7 +564,7 @@ impl Store for SledStore {
                 let mut slot = slot.lock().map_err(lock_error)?;
                 let engine = self.engine()?;
                 Self::settle_unsettled(&mut slot, &engine)?;
-                super::backup_file::write(&engine, Some(&slot.ledger.state().committed), taken_at_ms, &mut file)?
+                super::backup_file::write(&engine, Some(&slot.ledger.acknowledged()), taken_at_ms, &mut file)?
             }
             // A temporary database has no ledger; a read-only one was found damaged, and its
             // backup holds what is left (writes are refused anyway).
