@@ -1,13 +1,16 @@
-//! `brakeledger push-trips`: reads a trip file, streams it to the server with StreamTrips
-//! (a progress bar for large files) and prints the ingest report, naming each refused trip by
-//! its line in the file.
+//! `brakeledger push-trips`: reads a trip file, sends it to the server with IngestTrips (a
+//! progress bar for large files; waiting and resuming when the server's ingest limit is
+//! reached) and prints the ingest report, naming each refused trip by its line in the file.
 
+use std::collections::HashMap;
 use std::io::Write;
 use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Duration;
 
 use anyhow::Context;
 use brakeledger_proto::v1 as pb;
-use futures::StreamExt;
+use tonic_types::StatusExt;
 use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
 
@@ -16,10 +19,12 @@ use crate::cli::trip_file::{read_trips, TripFormat, TripLine};
 
 /// Longer description of `push-trips`, with the file columns.
 pub const PUSH_LONG_ABOUT: &str = "\
-Send trip summaries from a CSV or JSON Lines file to the server over one stream, then print
-how many were stored, how many were already there, and each refused trip with its line, field
-and reason. Trips already stored are counted as duplicates, so a file can be sent again safely.
-The whole file is checked first: if any line cannot be read, nothing is sent.";
+Send trip summaries from a CSV or JSON Lines file to the server (IngestTrips, acknowledged as
+they reach disk), then print how many were stored, how many were already there, and each
+refused trip with its line, field and reason. Trips already stored are counted as duplicates,
+so a file can be sent again safely. The whole file is checked first: if any line cannot be
+read, nothing is sent. When the server's ingest limit for the token is reached, the command
+waits as the server advises and resumes after the last acknowledged trip.";
 
 /// Examples of `push-trips`, with the columns.
 pub const PUSH_EXAMPLES: &str = concat!(
@@ -126,12 +131,32 @@ pub async fn push_trips(server: &ServerTarget, args: &PushTripsArgs, out: &mut i
     Ok(())
 }
 
-/// Streams trips with StreamTrips and ties the report's rejections back to file lines. With
-/// `progress`, large files show a progress bar on stderr.
+/// Trips per IngestTrips message.
+const TRIPS_PER_MESSAGE: usize = 500;
+/// Shortest wait before resuming after the server's ingest limit refused a trip. The server's
+/// hint is the time until one more trip fits, often a millisecond; waiting a second lets a
+/// second's worth of trips through per call instead of a handful.
+const MIN_LIMIT_WAIT: Duration = Duration::from_secs(1);
+/// Calls in a row that settle nothing before a push gives up waiting for the limit.
+const MAX_IDLE_CALLS: u32 = 5;
+/// Refused trips listed in a report (each call lists at most the server's `[ingest]
+/// max_listed_rejections`; a push resumed after the ingest limit makes several calls).
+const MAX_LISTED_REFUSALS: usize = 1000;
+
+/// Sends trips with IngestTrips and ties the acknowledgements' rejections back to file lines.
+/// With `progress`, large files show a progress bar on stderr.
+///
+/// When the server's per-token ingest limit refuses a trip (`RESOURCE_EXHAUSTED` with
+/// `google.rpc.RetryInfo`), the call ends after storing what it read; the push waits (the
+/// server's hint, at least [`MIN_LIMIT_WAIT`]) and resumes from the last acknowledged trip, so a
+/// file larger than the limit's burst goes in whole at the limit's rate. Any other error ends
+/// the push, saying how far the file was settled (resending it is safe: stored trips count as
+/// duplicates).
 pub async fn send_trips(connection: &mut Connection, trips: Vec<TripLine>, progress: bool) -> anyhow::Result<PushReport> {
     let lines: Vec<u64> = trips.iter().map(|t| t.line).collect();
-    let bar = if progress && trips.len() >= PROGRESS_THRESHOLD {
-        let bar = ProgressBar::new(trips.len() as u64);
+    let summaries: Arc<Vec<pb::TripSummary>> = Arc::new(trips.into_iter().map(|t| t.trip).collect());
+    let bar = if progress && summaries.len() >= PROGRESS_THRESHOLD {
+        let bar = ProgressBar::new(summaries.len() as u64);
         if let Ok(style) = ProgressStyle::with_template("{msg} [{bar:40}] {pos}/{len} trips, {per_sec}, {eta} left") {
             bar.set_style(style.progress_chars("=> "));
         }
@@ -140,40 +165,105 @@ pub async fn send_trips(connection: &mut Connection, trips: Vec<TripLine>, progr
     } else {
         ProgressBar::hidden()
     };
-    let counter = bar.clone();
-    let stream = futures::stream::iter(trips).map(move |t| {
-        counter.inc(1);
-        t.trip
-    });
-    let result = connection.telemetry.stream_trips(stream).await;
+    let mut tally = AckTally::default();
+    // The first trip of the current call, as an index into the file's trips.
+    let mut base = 0usize;
+    let mut idle_calls = 0;
+    loop {
+        let shared = Arc::clone(&summaries);
+        let messages = futures::stream::iter((base..shared.len()).step_by(TRIPS_PER_MESSAGE).map(move |from| pb::IngestTripsRequest {
+            trips: shared[from..(from + TRIPS_PER_MESSAGE).min(shared.len())].to_vec(),
+        }));
+        let mut settled = 0usize;
+        let ended = match connection.telemetry.ingest_trips(messages).await {
+            Ok(response) => {
+                let mut acks = response.into_inner();
+                loop {
+                    match acks.message().await {
+                        Ok(Some(ack)) => {
+                            tally.add(&ack, base, &lines);
+                            settled = usize::try_from(ack.settled_trips).unwrap_or(usize::MAX);
+                            bar.set_position((base + settled).min(summaries.len()) as u64);
+                        }
+                        Ok(None) => break Ok(()),
+                        Err(status) => break Err(status),
+                    }
+                }
+            }
+            Err(status) => Err(status),
+        };
+        let status = match ended {
+            Ok(()) => break,
+            Err(status) => status,
+        };
+        base = (base + settled).min(summaries.len());
+        let retry = (status.code() == tonic::Code::ResourceExhausted).then(|| status.get_details_retry_info()).flatten();
+        let Some(retry) = retry else {
+            bar.finish_and_clear();
+            let settled_note = format!(
+                "sending trips ({} of {} settled: stored, already stored or refused; sending the file again is safe)",
+                base,
+                summaries.len()
+            );
+            return Err(explain(status, &settled_note));
+        };
+        idle_calls = if settled == 0 { idle_calls + 1 } else { 0 };
+        if idle_calls > MAX_IDLE_CALLS {
+            bar.finish_and_clear();
+            return Err(explain(status, &format!("sending trips ({base} of {} settled; the server's ingest limit let none through in {MAX_IDLE_CALLS} tries)", summaries.len())));
+        }
+        let wait = retry.retry_delay.unwrap_or_default().max(MIN_LIMIT_WAIT);
+        bar.suspend(|| eprintln!("the server's ingest limit for this token was reached at trip {base} of {}: waiting {:.1} s, then resuming", summaries.len(), wait.as_secs_f64()));
+        tokio::time::sleep(wait).await;
+    }
     bar.finish_and_clear();
-    let report = result.map_err(|s| explain(s, "streaming trips"))?.into_inner();
-    Ok(tie_to_lines(report, &lines))
+    Ok(tally.into_report(summaries.len() as u64))
 }
 
-/// The report with each rejection's stream position replaced by its file line.
-pub fn tie_to_lines(report: pb::IngestReport, lines: &[u64]) -> PushReport {
-    PushReport {
-        sent: lines.len() as u64,
-        accepted: report.accepted,
-        duplicates: report.duplicates,
-        // A server from before the counts were added lists every refusal and counts none.
-        refused: report.rejected_count.max(report.rejected.len() as u64),
-        refused_by_reason: report
-            .rejection_counts
-            .into_iter()
-            .map(|c| RefusalCount { field: c.field, reason: c.reason, count: c.count })
-            .collect(),
-        rejected: report
-            .rejected
-            .into_iter()
-            .map(|r| RejectedTrip {
-                line: usize::try_from(r.index).ok().and_then(|i| lines.get(i)).copied().unwrap_or(0),
-                trip_id: r.trip_id,
-                field: r.field,
-                reason: r.reason,
-            })
-            .collect(),
+/// What the acknowledgements of one push said, over every call it took.
+#[derive(Debug, Default)]
+struct AckTally {
+    accepted: u64,
+    duplicates: u64,
+    refused: u64,
+    rejected: Vec<RejectedTrip>,
+    groups: HashMap<(String, String), u64>,
+}
+
+impl AckTally {
+    /// Adds one acknowledgement of a call whose first trip is the file's trip `base`.
+    fn add(&mut self, ack: &pb::IngestAck, base: usize, lines: &[u64]) {
+        self.accepted += ack.accepted;
+        self.duplicates += ack.duplicates;
+        self.refused += ack.rejected_count;
+        let room = MAX_LISTED_REFUSALS.saturating_sub(self.rejected.len());
+        self.rejected.extend(ack.rejected.iter().take(room).map(|r| RejectedTrip {
+            line: usize::try_from(r.index).ok().and_then(|i| i.checked_add(base)).and_then(|i| lines.get(i)).copied().unwrap_or(0),
+            trip_id: r.trip_id.clone(),
+            field: r.field.clone(),
+            reason: r.reason.clone(),
+        }));
+        if ack.rejection_counts.is_empty() {
+            // A server from before the acks counted refusals by reason: the listed ones, and
+            // the rest under one line.
+            for r in &ack.rejected {
+                *self.groups.entry((r.field.clone(), r.reason.clone())).or_insert(0) += 1;
+            }
+            let unlisted = ack.rejected_count.saturating_sub(ack.rejected.len() as u64);
+            if unlisted > 0 {
+                *self.groups.entry((String::new(), "not listed by the server".into())).or_insert(0) += unlisted;
+            }
+        }
+        for c in &ack.rejection_counts {
+            *self.groups.entry((c.field.clone(), c.reason.clone())).or_insert(0) += c.count;
+        }
+    }
+
+    fn into_report(self, sent: u64) -> PushReport {
+        let mut refused_by_reason: Vec<RefusalCount> =
+            self.groups.into_iter().map(|((field, reason), count)| RefusalCount { field, reason, count }).collect();
+        refused_by_reason.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| (&a.field, &a.reason).cmp(&(&b.field, &b.reason))));
+        PushReport { sent, accepted: self.accepted, duplicates: self.duplicates, rejected: self.rejected, refused: self.refused, refused_by_reason }
     }
 }
 
@@ -219,20 +309,42 @@ pub fn render_report(report: &PushReport) -> String {
 mod tests {
     use super::*;
 
+    fn rejection(index: u64, trip_id: &str, field: &str, reason: &str) -> pb::Rejection {
+        pb::Rejection { index, trip_id: trip_id.into(), field: field.into(), reason: reason.into() }
+    }
+
+    fn count(field: &str, reason: &str, count: u64) -> pb::RejectionCount {
+        pb::RejectionCount { field: field.into(), reason: reason.into(), count }
+    }
+
+    /// Two calls (the second resumed at the file's third trip after the ingest limit): each
+    /// call's indices count from its own first trip.
     #[test]
-    fn rejections_point_at_file_lines_and_print_as_a_table() {
-        let server_report = pb::IngestReport {
-            accepted: 2,
-            duplicates: 1,
-            rejected: vec![
-                pb::Rejection { index: 1, trip_id: "t2".into(), field: "end_time".into(), reason: "must be after start_time".into() },
-                pb::Rejection { index: 9, trip_id: "zz".into(), field: "trip_id".into(), reason: "odd".into() },
-            ],
+    fn rejections_of_resumed_calls_point_at_file_lines_and_print_as_a_table() {
+        // Trips 0..4 came from lines 2, 3, 5, 6 (line 4 was blank).
+        let lines = [2, 3, 5, 6];
+        let mut tally = AckTally::default();
+        let first_call = pb::IngestAck {
+            settled_trips: 2,
+            accepted: 1,
+            rejected_count: 1,
+            rejected: vec![rejection(1, "t2", "end_time", "must be after start_time")],
+            rejection_counts: vec![count("end_time", "must be after start_time", 1)],
             ..Default::default()
         };
-        // Trips 0..4 came from lines 2, 3, 5, 6 (line 4 was blank).
-        let report = tie_to_lines(server_report, &[2, 3, 5, 6]);
-        assert_eq!((report.sent, report.accepted, report.duplicates), (4, 2, 1));
+        tally.add(&first_call, 0, &lines);
+        let resumed_call = pb::IngestAck {
+            settled_trips: 2,
+            accepted: 1,
+            duplicates: 1,
+            rejected_count: 1,
+            rejected: vec![rejection(9, "zz", "trip_id", "odd")],
+            rejection_counts: vec![count("trip_id", "odd", 1)],
+            ..Default::default()
+        };
+        tally.add(&resumed_call, 2, &lines);
+        let report = tally.into_report(4);
+        assert_eq!((report.sent, report.accepted, report.duplicates, report.refused), (4, 2, 1, 2));
         assert_eq!(report.rejected[0].line, 3);
         assert_eq!(report.rejected[1].line, 0, "an index the file did not send has no line");
         let text = render_report(&report);
@@ -245,20 +357,30 @@ mod tests {
 
     #[test]
     fn a_capped_report_says_so_and_prints_the_counts() {
-        let server_report = pb::IngestReport {
-            rejected: vec![pb::Rejection { index: 0, trip_id: "t1".into(), field: "distance_m".into(), reason: "must not be negative".into() }],
+        let ack = pb::IngestAck {
+            settled_trips: 5000,
+            rejected: vec![rejection(0, "t1", "distance_m", "must not be negative")],
             rejected_count: 5000,
-            rejection_counts: vec![pb::RejectionCount { field: "distance_m".into(), reason: "must not be negative".into(), count: 5000 }],
+            rejection_counts: vec![count("distance_m", "must not be negative", 5000)],
             ..Default::default()
         };
-        let text = render_report(&tie_to_lines(server_report, &[2]));
-        assert!(text.starts_with("sent 1 trips: 0 stored, 0 already stored, 5000 refused\nthe first 1 refused trips are listed below"), "{text}");
+        let mut tally = AckTally::default();
+        tally.add(&ack, 0, &[2]);
+        let text = render_report(&tally.into_report(5000));
+        assert!(text.starts_with("sent 5000 trips: 0 stored, 0 already stored, 5000 refused\nthe first 1 refused trips are listed below"), "{text}");
         assert!(text.contains(" 5000  distance_m  must not be negative"), "{text}");
+
+        // A server whose acks carry no counts by reason: the listed ones, and the rest as such.
+        let mut tally = AckTally::default();
+        tally.add(&pb::IngestAck { rejection_counts: Vec::new(), ..ack }, 0, &[2]);
+        let report = tally.into_report(5000);
+        assert_eq!(report.refused_by_reason.iter().map(|c| (c.field.as_str(), c.count)).collect::<Vec<_>>(), vec![("", 4999), ("distance_m", 1)]);
     }
 
     #[test]
     fn a_clean_report_is_one_line() {
-        let report = tie_to_lines(pb::IngestReport { accepted: 3, ..Default::default() }, &[2, 3, 4]);
-        assert_eq!(render_report(&report), "sent 3 trips: 3 stored, 0 already stored, 0 refused\n");
+        let mut tally = AckTally::default();
+        tally.add(&pb::IngestAck { settled_trips: 3, accepted: 3, ..Default::default() }, 0, &[2, 3, 4]);
+        assert_eq!(render_report(&tally.into_report(3)), "sent 3 trips: 3 stored, 0 already stored, 0 refused\n");
     }
 }

@@ -53,6 +53,8 @@ struct AckDelta {
     duplicates: u64,
     rejected_count: u64,
     rejected: Vec<pb::Rejection>,
+    /// Refusals by (field, reason) group.
+    groups: HashMap<(String, String), u64>,
 }
 
 /// Validates and stores trips of one call, and counts what became of them.
@@ -119,8 +121,10 @@ impl Ingestor {
     fn refuse(&mut self, index: u64, trip_id: String, violations: Vec<FieldViolation>) {
         crate::metrics::trip_refused(violations.first().map_or("", |v| v.field.as_str()));
         self.delta.rejected_count += 1;
-        if let Some(listed) = self.refusals.refuse(index, trip_id, violations) {
-            self.delta.rejected.push(listed.clone());
+        let (listed, group) = self.refusals.refuse(index, trip_id, violations);
+        self.delta.rejected.extend(listed);
+        if let Some(group) = group {
+            *self.delta.groups.entry(group).or_insert(0) += 1;
         }
     }
 
@@ -151,11 +155,26 @@ impl Ingestor {
             return Ok(());
         }
         // Before any lookup: a refusal never says whether another fleet's vehicle exists.
-        self.caller.require(&trip.fleet_id, Permission::WriteTrips)?;
-        if !self.rate_taken {
-            self.state.limiter.take(&self.caller.token_id, 1)?;
-        }
-        let Some(vehicle) = self.vehicle(&trip.fleet_id, &trip.vehicle_id).await? else {
+        let allowed = self.caller.require(&trip.fleet_id, Permission::WriteTrips);
+        let allowed = match allowed {
+            Ok(()) if !self.rate_taken => self.state.limiter.take(&self.caller.token_id, 1),
+            other => other,
+        };
+        let found = match allowed {
+            Ok(()) => self.vehicle(&trip.fleet_id, &trip.vehicle_id).await,
+            Err(error) => Err(error),
+        };
+        let found = match found {
+            Ok(found) => found,
+            Err(error) => {
+                // The call ends here and this trip is neither stored nor reported: it is not
+                // settled, so that an acknowledgement's `settled_trips` stops before it and a
+                // client resuming there (after the rate limit, say) sends it again.
+                self.received = index;
+                return Err(error);
+            }
+        };
+        let Some(vehicle) = found else {
             let reason = format!("vehicle '{}' is not registered in fleet '{}'", trip.vehicle_id, trip.fleet_id);
             self.refuse(index, trip.trip_id, vec![FieldViolation::new("vehicle_id", reason)]);
             return Ok(());
@@ -288,6 +307,7 @@ impl Ingestor {
             accepted_total: self.accepted,
             duplicates_total: self.duplicates,
             rejected_total: self.refusals.total(),
+            rejection_counts: super::refusals::sorted_counts(delta.groups),
         })
     }
 

@@ -31,26 +31,29 @@ impl Refusals {
         Self { max_listed, max_groups, listed: Vec::new(), total: 0, groups: HashMap::new() }
     }
 
-    /// Records the refusal of the trip at `index`; returns it when it is listed.
-    pub fn refuse(&mut self, index: u64, trip_id: String, violations: Vec<FieldViolation>) -> Option<&pb::Rejection> {
+    /// Records the refusal of the trip at `index`; returns it when it is listed, and the
+    /// (field, reason) group it is counted under.
+    pub fn refuse(&mut self, index: u64, trip_id: String, violations: Vec<FieldViolation>) -> (Option<pb::Rejection>, Option<(String, String)>) {
         let mut iter = violations.into_iter();
-        let first = iter.next()?;
+        let Some(first) = iter.next() else { return (None, None) };
         let others: Vec<String> = iter.map(|v| format!("{}: {}", v.field, v.reason)).collect();
         let reason = if others.is_empty() { first.reason } else { format!("{} (also {})", first.reason, others.join("; ")) };
         self.total += 1;
-        let key = (first.field.clone(), reason.clone());
+        let mut key = (first.field.clone(), reason.clone());
         if let Some(count) = self.groups.get_mut(&key) {
             *count += 1;
         } else if self.groups.len() < self.max_groups {
-            self.groups.insert(key, 1);
+            self.groups.insert(key.clone(), 1);
         } else {
-            *self.groups.entry((first.field.clone(), OTHER_REASONS.to_owned())).or_insert(0) += 1;
+            key = (first.field.clone(), OTHER_REASONS.to_owned());
+            *self.groups.entry(key.clone()).or_insert(0) += 1;
         }
         if self.listed.len() >= self.max_listed {
-            return None;
+            return (None, Some(key));
         }
-        self.listed.push(pb::Rejection { index, trip_id, field: first.field, reason });
-        self.listed.last()
+        let listed = pb::Rejection { index, trip_id, field: first.field, reason };
+        self.listed.push(listed.clone());
+        (Some(listed), Some(key))
     }
 
     /// Refusals so far, listed or not.
@@ -61,12 +64,16 @@ impl Refusals {
     /// Fills the refusal fields of a report.
     pub fn into_report(self, report: &mut pb::IngestReport) {
         report.rejected_count = self.total;
-        let mut counts: Vec<pb::RejectionCount> =
-            self.groups.into_iter().map(|((field, reason), count)| pb::RejectionCount { field, reason, count }).collect();
-        counts.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| (&a.field, &a.reason).cmp(&(&b.field, &b.reason))));
-        report.rejection_counts = counts;
+        report.rejection_counts = sorted_counts(self.groups);
         report.rejected = self.listed;
     }
+}
+
+/// Counts by (field, reason), most frequent first (ties by field, then reason).
+pub fn sorted_counts(groups: impl IntoIterator<Item = ((String, String), u64)>) -> Vec<pb::RejectionCount> {
+    let mut counts: Vec<pb::RejectionCount> = groups.into_iter().map(|((field, reason), count)| pb::RejectionCount { field, reason, count }).collect();
+    counts.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| (&a.field, &a.reason).cmp(&(&b.field, &b.reason))));
+    counts
 }
 
 #[cfg(test)]
@@ -107,11 +114,15 @@ mod tests {
             max_listed in 0usize..50, max_groups in 0usize..20,
         ) {
             let mut refusals = Refusals::new(max_listed, max_groups);
+            // The group each refusal is said to be counted under, tallied as IngestTrips acks do.
+            let mut said = std::collections::HashMap::new();
             for (i, (field, reason)) in reasons.iter().enumerate() {
-                refusals.refuse(i as u64, String::new(), violation(&format!("f{field}"), &format!("r{reason}")));
+                let (_, group) = refusals.refuse(i as u64, String::new(), violation(&format!("f{field}"), &format!("r{reason}")));
+                *said.entry(group.expect("one violation")).or_insert(0u64) += 1;
             }
             let mut report = pb::IngestReport::default();
             refusals.into_report(&mut report);
+            prop_assert_eq!(&sorted_counts(said), &report.rejection_counts);
             prop_assert_eq!(report.rejected_count, reasons.len() as u64);
             prop_assert_eq!(report.rejected.len(), reasons.len().min(max_listed));
             prop_assert_eq!(report.rejection_counts.iter().map(|c| c.count).sum::<u64>(), reasons.len() as u64);

@@ -50,6 +50,39 @@ async fn every_chunk_is_acknowledged_and_the_last_ack_settles_the_whole_call() {
     server.stop().await;
 }
 
+/// A call the ingest limit ends (RESOURCE_EXHAUSTED) settles exactly the trips it stored or
+/// refused: the trip the limit turned away is not settled, so a client resuming at the last
+/// `settled_trips` sends it again and nothing is skipped. The per-ack counts by reason add up
+/// to the refusals.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_call_ended_by_the_ingest_limit_settles_only_what_it_stored_or_refused() {
+    use brakeledger::config::{LimitsConfig, ServingConfig};
+    let dir = tempfile::tempdir().expect("temp dir");
+    let limits = LimitsConfig { ingest_trips_per_second: 0.5, ingest_burst_trips: 100.0, ..LimitsConfig::default() };
+    let server = TestServer::start_with(dir.path(), brakeledger_tests::fast_forecasts(), None, ServingConfig { limits, ..ServingConfig::default() }).await;
+    register(&server, two_axle_vehicle("north", "bus-4")).await;
+    let end = now_s() - 60;
+    let mut trips: Vec<pb::TripSummary> = (0..150).map(|n| trip("north", "bus-4", n, end)).collect();
+    trips[3].distance_m = -1.0;
+    let mut acks = server.telemetry().ingest_trips(tokio_stream::iter(messages(trips.clone(), 25))).await.expect("call").into_inner();
+    let mut received = Vec::new();
+    let ended = loop {
+        match acks.next().await {
+            Some(Ok(ack)) => received.push(ack),
+            Some(Err(status)) => break status,
+            None => panic!("the limit ends the call: {received:?}"),
+        }
+    };
+    assert_eq!(ended.code(), tonic::Code::ResourceExhausted, "{ended:?}");
+    let last = received.last().expect("what was read is acknowledged");
+    // The burst holds 100 trips (the refused one among them); the 101st is turned away.
+    assert_eq!((last.settled_trips, last.accepted_total, last.rejected_total), (100, 99, 1));
+    let counted: u64 = received.iter().flat_map(|a| &a.rejection_counts).map(|c| c.count).sum();
+    assert_eq!(counted, 1, "every refusal counted by reason");
+    assert_eq!(trips_recorded(&server, "bus-4").await, 99);
+    server.stop().await;
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_client_cut_off_resends_only_from_the_last_settled_index() {
     let server = TestServer::start().await;

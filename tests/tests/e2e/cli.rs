@@ -86,6 +86,36 @@ async fn push_trips_from_csv_reports_each_refusal_by_line_and_is_safe_to_repeat(
     server.stop().await;
 }
 
+/// A file larger than the token's ingest burst goes in whole: `push-trips` waits out each
+/// refusal by the limit (RESOURCE_EXHAUSTED with a retry hint) and resumes from the last
+/// acknowledged trip, so every trip is stored once.
+#[tokio::test]
+async fn push_trips_waits_out_the_ingest_limit_and_stores_the_whole_file() {
+    use brakeledger::config::{LimitsConfig, ServingConfig};
+    let dir = tempfile::tempdir().expect("temp dir");
+    let limits = LimitsConfig { ingest_trips_per_second: 1500.0, ingest_burst_trips: 1000.0, ..LimitsConfig::default() };
+    let server = TestServer::start_with(dir.path(), brakeledger_tests::fast_forecasts(), None, ServingConfig { limits, ..ServingConfig::default() }).await;
+    register(&server, two_axle_vehicle("north", "bus-1")).await;
+    let first_start = chrono::Utc::now() - chrono::Duration::days(30);
+    let mut csv = String::from("fleet_id,vehicle_id,trip_id,start_time,end_time,distance_m,friction_energy_j,axle_energy_j,brake_applications\n");
+    let trips = 3000;
+    for i in 0..trips {
+        let start = first_start + chrono::Duration::minutes(10 * i);
+        let end = start + chrono::Duration::minutes(5);
+        csv.push_str(&format!("north,bus-1,t{i},{},{},3000,1.0e6,,10\n", start.format("%Y-%m-%dT%H:%M:%SZ"), end.format("%Y-%m-%dT%H:%M:%SZ")));
+    }
+    let path = dir.path().join("history.csv");
+    std::fs::write(&path, csv).expect("write csv");
+    let started = std::time::Instant::now();
+    let out = brakeledger(&server, &["push-trips", &path.to_string_lossy()]).await.expect("the whole file goes in");
+    assert_eq!(out.lines().next(), Some(format!("sent {trips} trips: {trips} stored, 0 already stored, 0 refused").as_str()), "{out}");
+    // 2,000 trips beyond the burst at 1,500 a second: the push waited at least that long.
+    assert!(started.elapsed() >= std::time::Duration::from_millis(1300), "{:?}", started.elapsed());
+    let vehicle = server.fleet().get_vehicle(pb::GetVehicleRequest { fleet_id: "north".into(), vehicle_id: "bus-1".into() }).await.expect("vehicle").into_inner();
+    assert_eq!(vehicle.trips_recorded, trips as u64, "each trip stored once");
+    server.stop().await;
+}
+
 #[tokio::test]
 async fn vehicles_and_workshop_records_go_in_through_the_cli() {
     let server = TestServer::start().await;
