@@ -425,6 +425,22 @@ pub fn truncated_at_zero((mean, variance): (f64, f64)) -> (f64, f64) {
     (mean + sd * lambda, variance * (1.0 + alpha * lambda - lambda * lambda).max(0.0))
 }
 
+/// `normal_quantile(0.5 + level / 2)`, the half-width of a central band at `level` in SDs,
+/// kept per thread for the last level asked (a refresh asks for one level, once per part).
+fn band_z(level: f64) -> f64 {
+    thread_local! {
+        static LAST: std::cell::Cell<Option<(u64, f64)>> = const { std::cell::Cell::new(None) };
+    }
+    LAST.with(|last| match last.get() {
+        Some((bits, z)) if bits == level.to_bits() => z,
+        _ => {
+            let z = normal_quantile(0.5 + level / 2.0);
+            last.set(Some((level.to_bits(), z)));
+            z
+        }
+    })
+}
+
 /// Standard normal quantile.
 fn normal_quantile(p: f64) -> f64 {
     match Normal::new(0.0, 1.0) {
@@ -471,30 +487,30 @@ pub fn forecast_part_with_energy(
 ) -> PartOutlook {
     let mut notes = Vec::new();
     let level = if settings.band_level.is_finite() { settings.band_level.clamp(0.01, 0.98) } else { 0.8 };
-    let z = normal_quantile(0.5 + level / 2.0);
+    let z = band_z(level);
     let sigma0 = prior.map_or(settings.gauge_sd_mm, |p| p.residual_sd_mm).max(f64::MIN_POSITIVE);
     let (rate, sigma) = choose_rate(history, own_fit, prior, settings, sigma0, &mut notes);
 
-    let current_cycle = history.current_cycle();
-    let current = Some(&current_cycle);
-    let fitted_day = current.and_then(|c| c.start.map(|s| s.day));
+    let current = history.current_cycle_view();
+    let last_point = current.points().next_back();
+    let fitted_day = current.start.map(|s| s.day);
     // Anchor A (mm), its variance, and the energy origin of d.
-    let anchor: Option<(f64, f64, f64)> = current.and_then(|c| match (&c.start, c.points.is_empty()) {
+    let anchor: Option<(f64, f64, f64)> = match (&current.start, last_point.is_none()) {
         (Some(s), _) => Some((s.new_thickness_mm, 0.0, s.energy_mj)),
         (None, false) => {
-            let n = c.points.len() as f64;
-            let t = c.points.iter().map(|p| p.thickness_mm).sum::<f64>() / n;
-            let e = c.points.iter().map(|p| p.energy_mj).sum::<f64>() / n;
+            let n = current.points().count() as f64;
+            let t = current.points().map(|p| p.thickness_mm).sum::<f64>() / n;
+            let e = current.points().map(|p| p.energy_mj).sum::<f64>() / n;
             Some((t, sigma * sigma / n, e))
         }
         (None, true) => None,
-    });
+    };
     // Nothing on record (a vehicle taken over part-worn, not yet inspected): today's thickness
     // is taken as anywhere between new and the minimum, evenly (module docs), so that the part
     // has a date with a wide band rather than none at all.
     let thickness_assumed = anchor.is_none();
     let anchor = anchor.or_else(|| unknown_thickness_anchor(history, current_cumulative_energy_mj));
-    let origin_energy = current.and_then(|c| c.origin_energy_mj()).map_or(0.0, |o| o.0);
+    let origin_energy = current.origin_energy_mj().map_or(0.0, |o| o.0);
     let energy_since_fitted_mj = (current_cumulative_energy_mj - origin_energy).max(0.0);
 
     let mut outlook = PartOutlook {
@@ -522,10 +538,7 @@ pub fn forecast_part_with_energy(
     };
     let d = current_cumulative_energy_mj - anchor_energy;
     // Measured at or below the minimum since the last fitting: due now, whatever the model says.
-    let measured_below = current
-        .and_then(|c| c.points.last())
-        .filter(|p| p.thickness_mm <= history.min_thickness_mm)
-        .map(|p| p.thickness_mm);
+    let measured_below = last_point.filter(|p| p.thickness_mm <= history.min_thickness_mm).map(|p| p.thickness_mm);
 
     let Some(rate) = rate else {
         if let Some(t) = measured_below {
@@ -553,7 +566,7 @@ pub fn forecast_part_with_energy(
     // gauge) means the line no longer describes this part (changed duty, a sticking caliper, an
     // unrecorded part swap). Today's thickness is then projected from that inspection rather
     // than from the line: a fresh measurement outranks an extrapolation.
-    let (anchor_mm, anchor_var, d) = match current.and_then(|c| c.points.last()) {
+    let (anchor_mm, anchor_var, d) = match last_point {
         Some(last) => {
             let on_line = anchor_mm - rate.mean * (last.energy_mj - anchor_energy);
             let deviation = last.thickness_mm - on_line;

@@ -107,6 +107,34 @@ impl WearCycle {
     }
 }
 
+/// The cycle of the part fitted now, as a view of its history ([`PartHistory::current_cycle_view`]).
+#[derive(Debug, Clone, Copy)]
+pub struct CurrentCycle<'a> {
+    /// The replacement that began the cycle; `None` when the part predates the records.
+    pub start: Option<CycleStart>,
+    /// The events after that replacement (all of them without one).
+    after: &'a [PartEvent],
+}
+
+impl<'a> CurrentCycle<'a> {
+    /// The cycle's inspections in day order, as [`WearCycle::points`].
+    pub fn points(&self) -> impl DoubleEndedIterator<Item = CyclePoint> + 'a {
+        self.after.iter().filter(|e| usable_event(e)).filter_map(|e| match e.kind {
+            PartEventKind::Inspection { thickness_mm } => cycle_point(e, thickness_mm),
+            PartEventKind::Replacement { .. } => None,
+        })
+    }
+
+    /// [`WearCycle::origin_energy_mj`] of this cycle.
+    pub fn origin_energy_mj(&self) -> Option<(f64, f64)> {
+        match (&self.start, self.points().next()) {
+            (Some(s), _) => Some((s.energy_mj, s.hot_energy_mj)),
+            (None, Some(p)) => Some((p.energy_mj, p.hot_energy_mj)),
+            (None, None) => None,
+        }
+    }
+}
+
 impl PartHistory {
     /// Splits the events into wear cycles, oldest first. The last cycle is the part fitted
     /// now. Events with non-finite values are skipped.
@@ -138,6 +166,13 @@ impl PartHistory {
 
     /// The last of [`Self::cycles`] (the part fitted now) without building the others.
     pub fn current_cycle(&self) -> WearCycle {
+        let view = self.current_cycle_view();
+        WearCycle { start: view.start, points: view.points().collect() }
+    }
+
+    /// [`Self::current_cycle`] as a view of the events, its points read as they are walked
+    /// (no list of them is built: a refresh forecasts every part).
+    pub fn current_cycle_view(&self) -> CurrentCycle<'_> {
         let last_replacement = self
             .events
             .iter()
@@ -149,12 +184,7 @@ impl PartHistory {
             },
             None => (None, &self.events[..]),
         };
-        let mut points = Vec::with_capacity(after.len());
-        points.extend(after.iter().filter(|e| usable_event(e)).filter_map(|e| match e.kind {
-            PartEventKind::Inspection { thickness_mm } => cycle_point(e, thickness_mm),
-            PartEventKind::Replacement { .. } => None,
-        }));
-        WearCycle { start, points }
+        CurrentCycle { start, after }
     }
 
     /// The start of the cycle a replacement begins: the thickness fitted, or the nominal new
