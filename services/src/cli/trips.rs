@@ -10,9 +10,9 @@ use std::time::Duration;
 
 use anyhow::Context;
 use brakeledger_proto::v1 as pb;
-use tonic_types::StatusExt;
 use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
+use tonic_types::StatusExt;
 
 use crate::cli::client::{explain, Connection, ServerTarget};
 use crate::cli::trip_file::{read_trips, TripFormat, TripLine};
@@ -183,7 +183,7 @@ pub async fn send_trips(connection: &mut Connection, trips: Vec<TripLine>, progr
                         Ok(Some(ack)) => {
                             tally.add(&ack, base, &lines);
                             settled = usize::try_from(ack.settled_trips).unwrap_or(usize::MAX);
-                            bar.set_position((base + settled).min(summaries.len()) as u64);
+                            bar.set_position(base.saturating_add(settled).min(summaries.len()) as u64);
                         }
                         Ok(None) => break Ok(()),
                         Err(status) => break Err(status),
@@ -196,7 +196,7 @@ pub async fn send_trips(connection: &mut Connection, trips: Vec<TripLine>, progr
             Ok(()) => break,
             Err(status) => status,
         };
-        base = (base + settled).min(summaries.len());
+        base = base.saturating_add(settled).min(summaries.len());
         let retry = (status.code() == tonic::Code::ResourceExhausted).then(|| status.get_details_retry_info()).flatten();
         let Some(retry) = retry else {
             bar.finish_and_clear();

@@ -142,6 +142,17 @@ impl Ingestor {
         Ok(found)
     }
 
+    /// The checks whose failure ends the call (permission, the rate limit, a store error), then
+    /// the trip's vehicle, if registered. The permission comes before any lookup: a refusal
+    /// never says whether another fleet's vehicle exists.
+    async fn admit(&mut self, trip: &pb::TripSummary) -> ServiceResult<Option<VehicleRecord>> {
+        self.caller.require(&trip.fleet_id, Permission::WriteTrips)?;
+        if !self.rate_taken {
+            self.state.limiter.take(&self.caller.token_id, 1)?;
+        }
+        self.vehicle(&trip.fleet_id, &trip.vehicle_id).await
+    }
+
     /// Takes the next trip of the call.
     pub async fn add(&mut self, trip: pb::TripSummary) -> ServiceResult<()> {
         let index = self.received;
@@ -154,17 +165,7 @@ impl Ingestor {
             self.refuse(index, trip.trip_id, ids);
             return Ok(());
         }
-        // Before any lookup: a refusal never says whether another fleet's vehicle exists.
-        let allowed = self.caller.require(&trip.fleet_id, Permission::WriteTrips);
-        let allowed = match allowed {
-            Ok(()) if !self.rate_taken => self.state.limiter.take(&self.caller.token_id, 1),
-            other => other,
-        };
-        let found = match allowed {
-            Ok(()) => self.vehicle(&trip.fleet_id, &trip.vehicle_id).await,
-            Err(error) => Err(error),
-        };
-        let found = match found {
+        let found = match self.admit(&trip).await {
             Ok(found) => found,
             Err(error) => {
                 // The call ends here and this trip is neither stored nor reported: it is not
