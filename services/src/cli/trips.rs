@@ -175,27 +175,17 @@ pub async fn send_trips(connection: &mut Connection, trips: Vec<TripLine>, progr
             trips: shared[from..(from + TRIPS_PER_MESSAGE).min(shared.len())].to_vec(),
         }));
         let mut settled = 0usize;
-        let ended = match connection.telemetry.ingest_trips(messages).await {
-            Ok(response) => {
-                let mut acks = response.into_inner();
-                loop {
-                    match acks.message().await {
-                        Ok(Some(ack)) => {
-                            tally.add(&ack, base, &lines);
-                            settled = usize::try_from(ack.settled_trips).unwrap_or(usize::MAX);
-                            bar.set_position(base.saturating_add(settled).min(summaries.len()) as u64);
-                        }
-                        Ok(None) => break Ok(()),
-                        Err(status) => break Err(status),
-                    }
-                }
+        let ended: Result<(), tonic::Status> = async {
+            let mut acks = connection.telemetry.ingest_trips(messages).await?.into_inner();
+            while let Some(ack) = acks.message().await? {
+                tally.add(&ack, base, &lines);
+                settled = usize::try_from(ack.settled_trips).unwrap_or(usize::MAX);
+                bar.set_position(base.saturating_add(settled).min(summaries.len()) as u64);
             }
-            Err(status) => Err(status),
-        };
-        let status = match ended {
-            Ok(()) => break,
-            Err(status) => status,
-        };
+            Ok(())
+        }
+        .await;
+        let Err(status) = ended else { break };
         base = base.saturating_add(settled).min(summaries.len());
         let retry = (status.code() == tonic::Code::ResourceExhausted).then(|| status.get_details_retry_info()).flatten();
         let Some(retry) = retry else {
@@ -260,9 +250,11 @@ impl AckTally {
     }
 
     fn into_report(self, sent: u64) -> PushReport {
-        let mut refused_by_reason: Vec<RefusalCount> =
-            self.groups.into_iter().map(|((field, reason), count)| RefusalCount { field, reason, count }).collect();
-        refused_by_reason.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| (&a.field, &a.reason).cmp(&(&b.field, &b.reason))));
+        // In the order of the server's own report: most frequent first.
+        let refused_by_reason: Vec<RefusalCount> = crate::grpc::refusals::sorted_counts(self.groups)
+            .into_iter()
+            .map(|c| RefusalCount { field: c.field, reason: c.reason, count: c.count })
+            .collect();
         PushReport { sent, accepted: self.accepted, duplicates: self.duplicates, rejected: self.rejected, refused: self.refused, refused_by_reason }
     }
 }

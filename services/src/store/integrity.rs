@@ -148,12 +148,8 @@ fn sled_main_file_len(dir: &Path) -> u64 {
 /// pending delta included: the file keeps the last write's delta as pending after the store
 /// flushed it (see [`super::ledger`]), so it was acknowledged unless a crash cut that write.
 fn acknowledged_counts(ledger: &LedgerState) -> Vec<String> {
-    let mut all = ledger.committed.clone();
-    if let Some(pending) = &ledger.pending {
-        all.add(pending);
-    }
     let mut lines = Vec::new();
-    for (fleet, tally) in &all.0 {
+    for (fleet, tally) in &ledger.committed_with_pending().0 {
         let counts: Vec<String> = super::ledger::RecordKind::ALL
             .iter()
             .filter(|k| tally.get(**k).count > 0)
@@ -324,11 +320,7 @@ pub fn open(dir: &Path, pages: PageSettings, mode: Mode) -> StoreResult<(Option<
         return finish_with(engine, None, findings, mode);
     };
     let state = ledger.state().clone();
-    let with_pending = state.pending.as_ref().map(|pending| {
-        let mut all = state.committed.clone();
-        all.add(pending);
-        all
-    });
+    let with_pending = state.pending.as_ref().map(|_| state.committed_with_pending());
     if state.committed.same_as(&audit.tallies) {
         if state.pending.is_some() && mode != Mode::Check {
             ledger.abandon()?;

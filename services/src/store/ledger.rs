@@ -239,6 +239,18 @@ pub struct LedgerState {
     pub pending: Option<Tallies>,
 }
 
+impl LedgerState {
+    /// The committed tallies with the pending delta, if any, folded in: what the store holds
+    /// once that delta reached it.
+    pub fn committed_with_pending(&self) -> Tallies {
+        let mut all = self.committed.clone();
+        if let Some(delta) = &self.pending {
+            all.add(delta);
+        }
+        all
+    }
+}
+
 /// Problems reading the ledger file.
 #[derive(Debug, thiserror::Error)]
 pub enum LedgerError {
@@ -307,11 +319,11 @@ impl Ledger {
     /// Every record acknowledged: the committed state, with the pending delta when it is known
     /// to have reached the store.
     pub fn acknowledged(&self) -> Tallies {
-        let mut committed = self.state.committed.clone();
-        if let (true, Some(delta)) = (self.pending_in_store, &self.state.pending) {
-            committed.add(delta);
+        if self.pending_in_store {
+            self.state.committed_with_pending()
+        } else {
+            self.state.committed.clone()
         }
-        committed
     }
 
     /// Records `delta` as pending (before the store writes it), with every earlier delta that
@@ -329,11 +341,7 @@ impl Ledger {
 
     /// Folds the pending delta into committed and writes that (after the store flushed it).
     pub fn commit(&mut self) -> Result<(), LedgerError> {
-        let mut committed = self.state.committed.clone();
-        if let Some(delta) = &self.state.pending {
-            committed.add(delta);
-        }
-        self.replace(LedgerState { committed, pending: None })
+        self.replace(LedgerState { committed: self.state.committed_with_pending(), pending: None })
     }
 
     /// Drops the pending delta (the store does not hold it); one that reached the store is
