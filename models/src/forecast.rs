@@ -132,21 +132,24 @@ impl DueDistribution {
         }
         keys.sort_unstable();
         let n = keys.len();
-        // The two draws around each quantile's position (gathered here, one by one), then the
-        // interpolation and the rounding to the hour in one vectorised loop.
-        let mut interpolation = QuantileInterpolation { low: [0; DUE_QUANTILES], high: [0; DUE_QUANTILES], fraction: [0.0; DUE_QUANTILES], out: [0.0; DUE_QUANTILES] };
+        // The two draws around each quantile's position (gathered here, one by one, into this
+        // thread's buffers), then the interpolation and the rounding to the hour in one
+        // vectorised loop, written straight into the distribution's vector.
+        let mut quantile_days = vec![0.0; DUE_QUANTILES];
         QUANTILE_POSITIONS.with(|cell| {
             let mut cached = cell.borrow_mut();
-            if cached.0 != n {
-                *cached = (n, quantile_positions(n));
+            let QuantileScratch { count, positions, fraction, low, high } = &mut *cached;
+            if *count != n {
+                *count = n;
+                *positions = quantile_positions(n);
+                *fraction = positions.map(|p| p.2);
             }
-            for (i, &(lo, hi, fraction)) in cached.1.iter().enumerate() {
-                interpolation.low[i] = keys[lo];
-                interpolation.high[i] = keys[hi];
-                interpolation.fraction[i] = fraction;
+            for (i, &(lo, hi, _)) in positions.iter().enumerate() {
+                low[i] = keys[lo];
+                high[i] = keys[hi];
             }
+            pulp::Arch::new().dispatch(QuantileInterpolation { low, high, fraction, out: &mut quantile_days });
         });
-        let quantile_days = pulp::Arch::new().dispatch(interpolation).to_vec();
         Some(Self { quantile_days })
     }
 
@@ -196,12 +199,30 @@ impl DueDistribution {
     }
 }
 
+/// What [`DueDistribution::from_day_keys`] keeps per thread: the count of sorted draws it
+/// last read quantiles from, [`quantile_positions`] of it and their fractions (the
+/// quasi-random integral gives nearly every part the same count, so the positions are worked
+/// out once per thread rather than once per part), and the buffers the draws around each
+/// position are gathered into.
+struct QuantileScratch {
+    count: usize,
+    positions: [(usize, usize, f64); DUE_QUANTILES],
+    fraction: [f64; DUE_QUANTILES],
+    low: [i64; DUE_QUANTILES],
+    high: [i64; DUE_QUANTILES],
+}
+
 thread_local! {
-    /// The count of sorted draws [`DueDistribution::from_day_keys`] last read quantiles from,
-    /// and [`quantile_positions`] of it: the quasi-random integral gives nearly every part the
-    /// same count, so the positions are worked out once per thread rather than once per part.
-    static QUANTILE_POSITIONS: RefCell<(usize, [(usize, usize, f64); DUE_QUANTILES])> =
-        const { RefCell::new((0, [(0, 0, 0.0); DUE_QUANTILES])) };
+    /// This thread's [`QuantileScratch`].
+    static QUANTILE_POSITIONS: RefCell<QuantileScratch> = const {
+        RefCell::new(QuantileScratch {
+            count: 0,
+            positions: [(0, 0, 0.0); DUE_QUANTILES],
+            fraction: [0.0; DUE_QUANTILES],
+            low: [0; DUE_QUANTILES],
+            high: [0; DUE_QUANTILES],
+        })
+    };
 }
 
 /// Where each probability of [`DUE_PROBABILITIES`] lies among `n` sorted draws (`n` ≥ 1):
@@ -238,26 +259,26 @@ fn day_from_key(key: i64) -> f64 {
 /// ([`snap_due_day`]). `f64::round` is `round_half_away_from_zero` bit for bit (test below);
 /// with SSE4.1 and later it compiles to vector instructions, where the baseline calls the C
 /// library.
-struct QuantileInterpolation {
-    low: [i64; DUE_QUANTILES],
-    high: [i64; DUE_QUANTILES],
-    fraction: [f64; DUE_QUANTILES],
-    out: [f64; DUE_QUANTILES],
+struct QuantileInterpolation<'a> {
+    low: &'a [i64; DUE_QUANTILES],
+    high: &'a [i64; DUE_QUANTILES],
+    fraction: &'a [f64; DUE_QUANTILES],
+    /// Out: the quantiles (at least [`DUE_QUANTILES`] long).
+    out: &'a mut [f64],
 }
 
-impl pulp::WithSimd for QuantileInterpolation {
-    type Output = [f64; DUE_QUANTILES];
+impl pulp::WithSimd for QuantileInterpolation<'_> {
+    type Output = ();
 
     #[inline(always)]
-    fn with_simd<S: pulp::Simd>(mut self, _simd: S) -> [f64; DUE_QUANTILES] {
-        for (((day, low), high), fraction) in self.out.iter_mut().zip(&self.low).zip(&self.high).zip(&self.fraction) {
+    fn with_simd<S: pulp::Simd>(self, _simd: S) {
+        for (((day, low), high), fraction) in self.out.iter_mut().zip(self.low).zip(self.high).zip(self.fraction) {
             let (low, high) = (day_from_key(*low), day_from_key(*high));
             // Computed before the choice, which is then a select rather than a branch.
             let between = low + fraction * (high - low);
             let chosen = if (*fraction == 0.0) | (low == high) { low } else { between };
             *day = (chosen * DUE_STEPS_PER_DAY).round() / DUE_STEPS_PER_DAY;
         }
-        self.out
     }
 }
 
@@ -979,20 +1000,21 @@ mod tests {
     /// equal neighbours, zero fractions and negative days.
     #[test]
     fn the_vectorised_quantile_loop_is_the_scalar_one_bit_for_bit() {
-        let mut interpolation = QuantileInterpolation { low: [0; DUE_QUANTILES], high: [0; DUE_QUANTILES], fraction: [0.0; DUE_QUANTILES], out: [0.0; DUE_QUANTILES] };
+        let (mut low_keys, mut high_keys, mut fractions) = ([0; DUE_QUANTILES], [0; DUE_QUANTILES], [0.0; DUE_QUANTILES]);
         let mut expected = [0.0; DUE_QUANTILES];
         for i in 0..DUE_QUANTILES {
             let base = 20_000.0 + i as f64 * 0.37 - if i % 7 == 0 { 40_000.0 } else { 0.0 };
             let low = if i % 5 == 0 { base.floor() + 0.5 / 24.0 } else { base };
             let high = if i % 3 == 0 { low } else { low + (i % 11) as f64 * 0.013 };
             let fraction = if i % 4 == 0 { 0.0 } else { (i % 9) as f64 / 9.0 };
-            interpolation.low[i] = day_key(low);
-            interpolation.high[i] = day_key(high);
-            interpolation.fraction[i] = fraction;
+            low_keys[i] = day_key(low);
+            high_keys[i] = day_key(high);
+            fractions[i] = fraction;
             let between = low + fraction * (high - low);
             expected[i] = snap_due_day(if fraction == 0.0 || low == high { low } else { between });
         }
-        let got = pulp::Arch::new().dispatch(interpolation);
+        let mut got = [0.0; DUE_QUANTILES];
+        pulp::Arch::new().dispatch(QuantileInterpolation { low: &low_keys, high: &high_keys, fraction: &fractions, out: &mut got });
         for (i, (g, e)) in got.iter().zip(&expected).enumerate() {
             assert_eq!(g.to_bits(), e.to_bits(), "quantile {i}: {g} against {e}");
         }

@@ -99,19 +99,42 @@ pub fn paule_mandel(effects: &[f64], variances: &[f64]) -> Option<RandomEffects>
             return None;
         }
     }
+    // Newton's method on Q(τ²) = n − 1 (dQ/dτ² = −Σwᵢ²(yᵢ − μ̂)², the pooled mean's own
+    // change dropping out since μ̂ minimises Q), kept inside the bracket: a step that would
+    // leave it bisects instead. A few steps reach the root bisection needs some fifty for, and
+    // each step is one pass over the estimates more than a bisection step.
     let mut low = 0.0;
+    let mut tau2 = 0.5 * high;
     for _ in 0..200 {
-        let mid = 0.5 * (low + high);
-        if excess(mid) > 0.0 {
-            low = mid;
+        let (q, slope) = excess_and_slope(&pairs, tau2);
+        let excess = q - df;
+        if excess > 0.0 {
+            low = tau2;
         } else {
-            high = mid;
+            high = tau2;
         }
-        if high - low <= 1e-14 * high {
+        let newton = tau2 - excess / slope;
+        let next = if newton > low && newton < high { newton } else { 0.5 * (low + high) };
+        let converged = (next - tau2).abs() <= 1e-14 * next || high - low <= 1e-14 * high;
+        tau2 = next;
+        if converged || excess == 0.0 {
             break;
         }
     }
-    Some(summary(&pairs, 0.5 * (low + high)))
+    Some(summary(&pairs, tau2))
+}
+
+/// `(Q(τ²), dQ/dτ²)` (module docs): `dQ/dτ² = −Σwᵢ²(yᵢ − μ̂)²`.
+fn excess_and_slope(pairs: &[(f64, f64)], tau2: f64) -> (f64, f64) {
+    let (mean, _, _) = at_between_variance(pairs, tau2);
+    let (mut q, mut slope) = (0.0, 0.0);
+    for (y, v) in pairs {
+        let w = 1.0 / (v + tau2);
+        let weighted = (y - mean).powi(2) * w;
+        q += weighted;
+        slope -= weighted * w;
+    }
+    (q, slope)
 }
 
 #[cfg(test)]
