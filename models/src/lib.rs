@@ -50,6 +50,7 @@ pub mod visit_plan;
 pub mod settings;
 pub mod simulator;
 pub mod stress_fleet;
+pub mod vector_exp;
 pub mod vehicle_forecast;
 pub mod wear_fit;
 pub mod wear_history;

@@ -1,7 +1,8 @@
 //! The whole in-crate forecasting pipeline for many parts: own fits, a fleet prior per group,
 //! then a forecast per part. The service and the calibration test run these same steps.
 //!
-//! Steps: (1) [`crate::wear_fit::fit_part_any_sign`] on every part; (2)
+//! Steps: (1) [`crate::wear_fit::fit_part_rate`] on every part (the fit of any sign, without
+//! its coefficients); (2)
 //! [`estimate_group_priors`]: [`crate::estimate_prior`] over the fits of each group (vehicle
 //! class, axle, component), then each rotor group's coupling to its vehicles' pads; (3)
 //! [`crate::vehicle_forecast::forecast_vehicle`] per vehicle, leaving each vehicle out of the
@@ -21,7 +22,7 @@ use crate::forecast::{vehicle_seed, PartOutlook};
 use crate::pooling::{estimate_pad_coupling, estimate_prior, pool_pad_rotor_correlations, vehicle_key, CouplingEstimate, PadCoupling, WearPrior};
 use crate::settings::ForecastSettings;
 use crate::vehicle_forecast::{forecast_vehicle_outlooks, PartData};
-use crate::wear_fit::{fit_part_any_sign, WearFit};
+use crate::wear_fit::{fit_part_rate, WearFit};
 use crate::wear_history::PartHistory;
 
 /// Vehicles forecast one after another on one thread, each touching the next's data first.
@@ -57,7 +58,7 @@ pub struct PartInput {
 /// Result of the pipeline for one part.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PartResult {
-    /// The vehicle's own fit, if it succeeded.
+    /// The vehicle's own fit, if it succeeded, without its coefficients ([`crate::wear_fit::fit_part_rate`]).
     pub own_fit: Option<WearFit>,
     /// The forecast.
     pub outlook: PartOutlook,
@@ -131,7 +132,7 @@ pub fn fit_and_pool(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<O
 /// the runs are joined in input order, so every group lists its fits as a serial pass would.
 fn fit_and_pool_keyed(inputs: &[PartInput], settings: &ForecastSettings) -> (Vec<Option<WearFit>>, Vec<u64>, HashMap<GroupKey, WearPrior>) {
     let (fits, keys): (Vec<Option<WearFit>>, Vec<u64>) =
-        inputs.par_iter().map(|p| (fit_part_any_sign(&p.history, settings).ok(), vehicle_key(&[&p.vehicle_id]))).unzip();
+        inputs.par_iter().map(|p| (fit_part_rate(&p.history, settings).ok(), vehicle_key(&[&p.vehicle_id]))).unzip();
     type Groups<'a> = HashMap<&'a GroupKey, Vec<(u64, &'a WearFit)>>;
     let groups: Groups<'_> = inputs
         .par_iter()

@@ -71,6 +71,7 @@ use std::borrow::Borrow;
 use serde::{Deserialize, Serialize};
 
 use crate::random_effects::paule_mandel;
+use crate::vector_exp::exp_non_positive;
 use crate::settings::ForecastSettings;
 use crate::wear_fit::WearFit;
 
@@ -519,19 +520,76 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
             point
         })
     };
-    let top = points().fold(f64::NEG_INFINITY, |top, (ld, _)| top.max(ld));
-    let (mut w0, mut w1, mut w2) = (0.0, 0.0, 0.0);
-    for (ld, k) in points() {
-        if ld - top > -60.0 {
-            let w = (ld - top).exp();
-            w0 += w;
-            w1 += w * k;
-            w2 += w * k * k;
+    let (w0, w1, w2) = GRID.with(|grid| {
+        let (log_densities, rates) = &mut *grid.borrow_mut();
+        log_densities.clear();
+        rates.clear();
+        for (ld, k) in points() {
+            log_densities.push(ld);
+            rates.push(k);
         }
-    }
+        let top = log_densities.iter().fold(f64::NEG_INFINITY, |top, ld| top.max(*ld));
+        pulp::Arch::new().dispatch(WeightedMoments { log_densities, rates, top })
+    });
     let mean = w1 / w0;
     let variance = (w2 / w0 - mean * mean).max(0.0);
     (mean.is_finite() && mean > 0.0 && variance.is_finite()).then_some((mean, variance))
+}
+
+thread_local! {
+    /// The log densities and rates of one [`combine_lognormal`] call's grid points, reused by
+    /// every call on this thread.
+    static GRID: std::cell::RefCell<(Vec<f64>, Vec<f64>)> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+}
+
+/// Lanes of [`WeightedMoments`]' partial sums.
+const MOMENT_LANES: usize = 4;
+
+/// The sums `(Σw, Σw·k, Σw·k²)` over grid points with log density `ℓ` and rate `k`, weights
+/// `w = e^(ℓ − top)` where `ℓ − top > −60` (0 elsewhere: nothing further down can move a
+/// sum), as a [`pulp::WithSimd`] operation: the weights by [`exp_non_positive`], summed in
+/// [`MOMENT_LANES`] interleaved partial sums, so the loop runs on vector instructions.
+struct WeightedMoments<'a> {
+    log_densities: &'a [f64],
+    rates: &'a [f64],
+    top: f64,
+}
+
+impl pulp::WithSimd for WeightedMoments<'_> {
+    type Output = (f64, f64, f64);
+
+    #[inline(always)]
+    fn with_simd<S: pulp::Simd>(self, _simd: S) -> (f64, f64, f64) {
+        let top = self.top;
+        let weight = |ld: f64| {
+            let gap = ld - top;
+            let w = exp_non_positive(gap.min(0.0));
+            if gap > -60.0 {
+                w
+            } else {
+                0.0
+            }
+        };
+        let mut sums = [[0.0; MOMENT_LANES]; 3];
+        let lanes = self.log_densities.chunks_exact(MOMENT_LANES).zip(self.rates.chunks_exact(MOMENT_LANES));
+        for (ld, k) in lanes {
+            for lane in 0..MOMENT_LANES {
+                let w = weight(ld[lane]);
+                sums[0][lane] += w;
+                sums[1][lane] += w * k[lane];
+                sums[2][lane] += w * k[lane] * k[lane];
+            }
+        }
+        let tail = self.log_densities.len() - self.log_densities.len() % MOMENT_LANES;
+        for (ld, k) in self.log_densities[tail..].iter().zip(&self.rates[tail..]) {
+            let w = weight(*ld);
+            sums[0][0] += w;
+            sums[1][0] += w * k;
+            sums[2][0] += w * k * k;
+        }
+        let add = |lanes: [f64; MOMENT_LANES]| (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]);
+        (add(sums[0]), add(sums[1]), add(sums[2]))
+    }
 }
 
 /// Precision-weighted combination of an estimate `(mean, variance)` with a prior; returns the

@@ -9,7 +9,7 @@ use crate::energy_rate::{energy_window, EnergyRate};
 use crate::forecast::{forecast_part_with_energy, recent_energy, PartOutlook};
 use crate::pooling::{vehicle_pad_deviation, RatePrior, WearPrior};
 use crate::settings::ForecastSettings;
-use crate::wear_fit::{fit_part_any_sign, WearFit};
+use crate::wear_fit::{fit_part_rate, WearFit};
 use crate::wear_history::PartHistory;
 
 /// What one part's forecast reads.
@@ -26,7 +26,8 @@ pub struct PartData<'a> {
 /// One part's own fit (of any sign, as pooled) and its outlook.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PartForecast {
-    /// The vehicle's own fit, when the inspections allow one.
+    /// The vehicle's own fit, when the inspections allow one, without its coefficients
+    /// ([`fit_part_rate`]).
     pub own_fit: Option<WearFit>,
     /// The forecast.
     pub outlook: PartOutlook,
@@ -42,12 +43,12 @@ pub fn forecast_vehicle<'p>(
     today_day: f64,
     settings: &ForecastSettings,
 ) -> Vec<PartForecast> {
-    let own_fits: Vec<Option<WearFit>> = parts.iter().map(|p| fit_part_any_sign(p.history, settings).ok()).collect();
+    let own_fits: Vec<Option<WearFit>> = parts.iter().map(|p| fit_part_rate(p.history, settings).ok()).collect();
     forecast_vehicle_fitted(vehicle_key, parts, own_fits, prior_of, today_day, settings)
 }
 
 /// [`forecast_vehicle`] with each part's own fit already made (`own_fits[i]` is
-/// [`fit_part_any_sign`] of `parts[i]`, as the pipeline keeps them from pooling), so that no
+/// [`fit_part_rate`] of `parts[i]`, as the pipeline keeps them from pooling), so that no
 /// part is fitted twice.
 pub fn forecast_vehicle_fitted<'p>(
     vehicle_key: u64,

@@ -171,13 +171,37 @@ pub fn fit_part(history: &PartHistory, settings: &ForecastSettings) -> Result<We
 /// noise; that estimate still carries information for the fleet pooling and for a combination
 /// with the prior, which a refusal would throw away (and bias the group mean upward).
 pub fn fit_part_any_sign(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
+    fit_any_sign(history, settings, Coefficients::Kept)
+}
+
+/// [`fit_part_any_sign`] without the coefficients: the fit as
+/// [`WearFit::without_coefficients`] leaves it (no names, coefficients or covariance; every
+/// other field the same bit for bit). What pooling and forecasting read, and what the service
+/// stores; a refresh fits every part, and those three lists were about half of a fit's
+/// allocations.
+pub fn fit_part_rate(history: &PartHistory, settings: &ForecastSettings) -> Result<WearFit, ModelError> {
+    fit_any_sign(history, settings, Coefficients::Dropped)
+}
+
+/// Whether a fit keeps its coefficient names, coefficients and covariance.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Coefficients {
+    Kept,
+    Dropped,
+}
+
+fn fit_any_sign(history: &PartHistory, settings: &ForecastSettings, coefficients: Coefficients) -> Result<WearFit, ModelError> {
     let cycles: Vec<WearCycle> = history.cycles().into_iter().filter(usable).collect();
     if !settings.hot_regressor {
-        if let Some(fit) = closed_form_fit(history, &cycles, settings) {
+        if let Some(fit) = closed_form_fit(history, &cycles, settings, coefficients) {
             return Ok(fit);
         }
     }
-    least_squares_fit(history, &cycles, settings)
+    let fit = least_squares_fit(history, &cycles, settings)?;
+    Ok(match coefficients {
+        Coefficients::Kept => fit,
+        Coefficients::Dropped => fit.without_coefficients(),
+    })
 }
 
 /// [`fit_part_any_sign`] always through the general least-squares fit
@@ -196,7 +220,7 @@ fn latest_inspection_day(cycles: &[WearCycle]) -> f64 {
 /// The fit without the hot-energy regressor by [`crate::line_fit`] (module docs): the same
 /// design, columns and weights as [`least_squares_fit`], solved in closed form on the stack.
 /// `None` where the closed form cannot vouch for the answer (the general fit then decides).
-fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &ForecastSettings) -> Option<WearFit> {
+fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &ForecastSettings, coefficients: Coefficients) -> Option<WearFit> {
     let unknown = cycles.iter().filter(|c| c.start.is_none()).count();
     let bedding = settings.bedding_intercept && cycles.iter().any(|c| c.start.is_some());
     let latest_day = latest_inspection_day(cycles);
@@ -236,21 +260,27 @@ fn closed_form_fit(history: &PartHistory, cycles: &[WearCycle], settings: &Forec
         previous = Some((ci, residual));
     }
     let s2 = line.residual_sum_of_squares / line.degrees_of_freedom;
-    let covariance: Vec<Vec<f64>> = (0..p).map(|a| (0..p).map(|b| line.xtx_inverse(a, b) * s2).collect()).collect();
-    let mut names = Vec::with_capacity(p);
-    names.push("energy".to_string());
-    names.extend((1..=unknown).map(|k| format!("cycle_{k}_start")));
-    if bedding {
-        names.push("bedding".into());
-    }
+    let (names, coefficients, covariance) = match coefficients {
+        Coefficients::Kept => {
+            let mut names = Vec::with_capacity(p);
+            names.push("energy".to_string());
+            names.extend((1..=unknown).map(|k| format!("cycle_{k}_start")));
+            if bedding {
+                names.push("bedding".into());
+            }
+            let covariance: Vec<Vec<f64>> = (0..p).map(|a| (0..p).map(|b| line.xtx_inverse(a, b) * s2).collect()).collect();
+            (names, (0..p).map(|j| line.coefficient(j)).collect(), covariance)
+        }
+        Coefficients::Dropped => (Vec::new(), Vec::new(), Vec::new()),
+    };
     Some(WearFit {
         rate_mm_per_mj: line.slope,
-        rate_stderr_mm_per_mj: covariance[0][0].max(0.0).sqrt(),
+        rate_stderr_mm_per_mj: (line.xtx_inverse(0, 0) * s2).max(0.0).sqrt(),
         inspections_used: line.observations as u32,
         degrees_of_freedom: line.degrees_of_freedom,
         residual_sd_mm: line.residual_sd(),
         coefficient_names: names,
-        coefficients: (0..p).map(|j| line.coefficient(j)).collect(),
+        coefficients,
         covariance,
         rate_variance_per_residual_variance: line.xtx_inverse(0, 0).max(0.0),
         hot_fraction: 0.0,

@@ -7,7 +7,7 @@
 use brakeledger_models::calibration::vehicle_inputs;
 use brakeledger_models::simulator::{simulate, SimConfig, SimulatedFleet};
 use brakeledger_models::stress_fleet::{simulate_stress, StressConfig};
-use brakeledger_models::wear_fit::{fit_part_any_sign, fit_part_any_sign_by_qr};
+use brakeledger_models::wear_fit::{fit_part_any_sign, fit_part_any_sign_by_qr, fit_part_rate};
 use brakeledger_models::domain::Component;
 use brakeledger_models::{ForecastSettings, PartEvent, PartEventKind, PartHistory, WearFit};
 
@@ -78,6 +78,9 @@ fn closed_form_wear_fit_matches_linfa_on_simulated_fleets() {
         for (settings_name, settings) in &variants {
             for (i, history) in histories.iter().enumerate() {
                 let what = format!("{fleet_name}, {settings_name}, part {i}");
+                // The fit without coefficients is the full fit stripped of them, bit for bit.
+                let stripped = fit_part_any_sign(history, settings).map(WearFit::without_coefficients);
+                assert_eq!(format!("{:?}", fit_part_rate(history, settings)), format!("{stripped:?}"), "{what}");
                 match (fit_part_any_sign(history, settings), fit_part_any_sign_by_qr(history, settings)) {
                     (Ok(lean), Ok(reference)) => {
                         assert_same(&lean, &reference, &what);

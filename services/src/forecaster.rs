@@ -31,7 +31,7 @@ use brakeledger_models::forecast::vehicle_seed;
 use brakeledger_models::pipeline::{estimate_group_priors, GroupKey};
 use brakeledger_models::pooling::vehicle_key;
 use brakeledger_models::vehicle_forecast::{forecast_vehicle, PartData};
-use brakeledger_models::wear_fit::fit_part_any_sign;
+use brakeledger_models::wear_fit::fit_part_rate;
 use brakeledger_models::{ForecastSettings, PartEventKind, PartHistory, PartOutlook, WearFit};
 use rayon::prelude::*;
 use tokio::sync::watch;
@@ -247,7 +247,7 @@ struct FreshFits {
 fn fresh_fits(data: &VehicleData, now_ms: i64, settings: &ForecastSettings) -> FreshFits {
     let fits = part_inputs(data, now_ms)
         .into_iter()
-        .filter_map(|input| fit_part_any_sign(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, fit.without_coefficients())))
+        .filter_map(|input| fit_part_rate(&input.history, settings).ok().map(|fit| (input.history.axle_index, input.history.component, fit)))
         .collect();
     FreshFits { vehicle_class: data.vehicle.spec.vehicle_class.clone(), fits }
 }
