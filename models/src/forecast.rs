@@ -54,6 +54,7 @@ use crate::quasi_random::NormalScores;
 use crate::pooling::{combine, combine_lognormal, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
 use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
+use crate::day_sort::sort_days;
 
 /// Number of probabilities in a [`DueDistribution`] (0.01 ... 0.99).
 pub const DUE_QUANTILES: usize = 99;
@@ -120,18 +121,18 @@ impl DueDistribution {
     /// Builds the 99 quantiles from draws (days since epoch), each rounded to the hour
     /// ([`snap_due_day`]). `None` if there are no finite draws.
     pub fn from_draws(draws: Vec<f64>) -> Option<Self> {
-        let mut keys: Vec<i64> = draws.iter().filter(|d| !d.is_nan()).map(|d| day_key(*d)).collect();
-        Self::from_day_keys(&mut keys)
+        let mut days: Vec<f64> = draws.into_iter().filter(|d| !d.is_nan()).collect();
+        Self::from_due_days(&mut days)
     }
 
-    /// [`Self::from_draws`] from the [`day_key`]s of the draws that are not NaN, sorted here in
+    /// [`Self::from_draws`] from the draws that are not NaN, sorted here in
     /// place (a caller may reuse one buffer for every part).
-    fn from_day_keys(keys: &mut [i64]) -> Option<Self> {
-        if keys.is_empty() {
+    fn from_due_days(days: &mut [f64]) -> Option<Self> {
+        if days.is_empty() {
             return None;
         }
-        keys.sort_unstable();
-        let n = keys.len();
+        sort_days(days);
+        let n = days.len();
         // The two draws around each quantile's position (gathered here, one by one, into this
         // thread's buffers), then the interpolation and the rounding to the hour in one
         // vectorised loop, written straight into the distribution's vector.
@@ -145,8 +146,8 @@ impl DueDistribution {
                 *fraction = positions.map(|p| p.2);
             }
             for (i, &(lo, hi, _)) in positions.iter().enumerate() {
-                low[i] = keys[lo];
-                high[i] = keys[hi];
+                low[i] = days[lo];
+                high[i] = days[hi];
             }
             pulp::Arch::new().dispatch(QuantileInterpolation { low, high, fraction, out: &mut quantile_days });
         });
@@ -199,7 +200,7 @@ impl DueDistribution {
     }
 }
 
-/// What [`DueDistribution::from_day_keys`] keeps per thread: the count of sorted draws it
+/// What [`DueDistribution::from_due_days`] keeps per thread: the count of sorted draws it
 /// last read quantiles from, [`quantile_positions`] of it and their fractions (the
 /// quasi-random integral gives nearly every part the same count, so the positions are worked
 /// out once per thread rather than once per part), and the buffers the draws around each
@@ -208,8 +209,8 @@ struct QuantileScratch {
     count: usize,
     positions: [(usize, usize, f64); DUE_QUANTILES],
     fraction: [f64; DUE_QUANTILES],
-    low: [i64; DUE_QUANTILES],
-    high: [i64; DUE_QUANTILES],
+    low: [f64; DUE_QUANTILES],
+    high: [f64; DUE_QUANTILES],
 }
 
 thread_local! {
@@ -219,8 +220,8 @@ thread_local! {
             count: 0,
             positions: [(0, 0, 0.0); DUE_QUANTILES],
             fraction: [0.0; DUE_QUANTILES],
-            low: [0; DUE_QUANTILES],
-            high: [0; DUE_QUANTILES],
+            low: [0.0; DUE_QUANTILES],
+            high: [0.0; DUE_QUANTILES],
         })
     };
 }
@@ -237,31 +238,15 @@ fn quantile_positions(n: usize) -> [(usize, usize, f64); DUE_QUANTILES] {
     })
 }
 
-/// The sort key of a day (not NaN): its bit pattern as an integer with every bit below the
-/// sign flipped when negative, the order-preserving map of the IEEE 754 total order
-/// (`f64::total_cmp`). Integers sort about twice as fast as `total_cmp` for the hundred-odd
-/// values of a forecast.
-#[inline(always)]
-fn day_key(day: f64) -> i64 {
-    let bits = day.to_bits() as i64;
-    bits ^ (((bits >> 63) as u64) >> 1) as i64
-}
-
-/// The day of a [`day_key`] (the map is its own inverse).
-#[inline(always)]
-fn day_from_key(key: i64) -> f64 {
-    f64::from_bits((key ^ (((key >> 63) as u64) >> 1) as i64) as u64)
-}
-
-/// The quantiles of [`DueDistribution::from_day_keys`] from the sort keys of the draws around
+/// The quantiles of [`DueDistribution::from_due_days`] from the sorted draws around
 /// each position, as a [`pulp::WithSimd`] operation (see [`DaysOfPoints`]): each the draw
 /// `low`, or `low + fraction·(high − low)` when the two differ, rounded to the hour
 /// ([`snap_due_day`]). `f64::round` is `round_half_away_from_zero` bit for bit (test below);
 /// with SSE4.1 and later it compiles to vector instructions, where the baseline calls the C
 /// library.
 struct QuantileInterpolation<'a> {
-    low: &'a [i64; DUE_QUANTILES],
-    high: &'a [i64; DUE_QUANTILES],
+    low: &'a [f64; DUE_QUANTILES],
+    high: &'a [f64; DUE_QUANTILES],
     fraction: &'a [f64; DUE_QUANTILES],
     /// Out: the quantiles (at least [`DUE_QUANTILES`] long).
     out: &'a mut [f64],
@@ -273,7 +258,7 @@ impl pulp::WithSimd for QuantileInterpolation<'_> {
     #[inline(always)]
     fn with_simd<S: pulp::Simd>(self, _simd: S) {
         for (((day, low), high), fraction) in self.out.iter_mut().zip(self.low).zip(self.high).zip(self.fraction) {
-            let (low, high) = (day_from_key(*low), day_from_key(*high));
+            let (low, high) = (*low, *high);
             // Computed before the choice, which is then a select rather than a branch.
             let between = low + fraction * (high - low);
             let chosen = if (*fraction == 0.0) | (low == high) { low } else { between };
@@ -801,35 +786,30 @@ impl DueInputs {
 /// 6 draw the passage time by Michael, Schucany & Haas (1976).
 fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution> {
     thread_local! {
-        /// The due days of one part's points and their sort keys, reused for every part this
-        /// thread forecasts.
-        static DUE_DAY_KEYS: RefCell<(Vec<f64>, Vec<i64>)> = const { RefCell::new((Vec::new(), Vec::new())) };
+        /// The due days of one part's points, reused for every part this thread forecasts.
+        static DUE_DAYS: RefCell<Vec<f64>> = const { RefCell::new(Vec::new()) };
     }
     let scores = NormalScores::cached(points);
     let drift = scores.exp_scaled(2, inputs.drift_sd);
     let [rate, energy, _, anchor, passage, _] = &scores.score_columns;
     let uniform = &scores.cell_columns[5];
-    DUE_DAY_KEYS.with(|buffer| {
-        let (days, keys) = &mut *buffer.borrow_mut();
-        // First every point's days from today and the sort key of its due day into buffers (a
-        // loop without branches, pushes or early exits, which the compiler vectorises), then
-        // the few that need the general path; due days that are NaN are left out.
-        days.clear();
-        days.resize(rate.len(), 0.0);
-        keys.clear();
-        keys.resize(rate.len(), 0);
-        pulp::Arch::new().dispatch(DaysOfPoints { inputs, days, keys, rate, anchor, energy, drift: &drift, passage, uniform });
+    DUE_DAYS.with(|buffer| {
+        let due = &mut *buffer.borrow_mut();
+        // First every point's due day into the buffer (a loop without branches, pushes or
+        // early exits, which the compiler vectorises), then the few that need the general
+        // path; due days that are NaN are left out.
+        due.clear();
+        due.resize(rate.len(), 0.0);
+        pulp::Arch::new().dispatch(DaysOfPoints { inputs, due, rate, anchor, energy, drift: &drift, passage, uniform });
         let mut undated = false;
-        for (i, d) in days.iter_mut().enumerate().filter(|(_, d)| d.is_nan()) {
-            *d = inputs.days_by_transform(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]).unwrap_or(0.0);
-            keys[i] = day_key(inputs.today_day + *d);
-            undated |= d.is_nan();
+        for (i, day) in due.iter_mut().enumerate().filter(|(_, d)| d.is_nan()) {
+            *day = inputs.today_day + inputs.days_by_transform(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]).unwrap_or(0.0);
+            undated |= day.is_nan();
         }
         if undated {
-            keys.clear();
-            keys.extend(days.iter().map(|d| inputs.today_day + d).filter(|d| !d.is_nan()).map(day_key));
+            due.retain(|d| !d.is_nan());
         }
-        DueDistribution::from_day_keys(keys)
+        DueDistribution::from_due_days(due)
     })
 }
 
@@ -839,10 +819,8 @@ fn quasi_random_due(inputs: &DueInputs, points: usize) -> Option<DueDistribution
 /// lane (no fused multiply-add is formed), so every day is the same bit for bit.
 struct DaysOfPoints<'a> {
     inputs: &'a DueInputs,
-    /// Out: each point's days from today ([`DueInputs::days_by_transform_or_nan`]).
-    days: &'a mut [f64],
-    /// Out: the [`day_key`] of each point's due day (today plus its days).
-    keys: &'a mut [i64],
+    /// Out: each point's due day, today plus [`DueInputs::days_by_transform_or_nan`].
+    due: &'a mut [f64],
     rate: &'a [f64],
     anchor: &'a [f64],
     energy: &'a [f64],
@@ -857,9 +835,8 @@ impl pulp::WithSimd for DaysOfPoints<'_> {
     #[inline(always)]
     fn with_simd<S: pulp::Simd>(self, _simd: S) {
         let points = self.rate.iter().zip(self.anchor).zip(self.energy).zip(self.drift).zip(self.passage).zip(self.uniform);
-        for ((day, key), (((((zk, za), zm), f), nu), u)) in self.days.iter_mut().zip(self.keys.iter_mut()).zip(points) {
-            *day = self.inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u);
-            *key = day_key(self.inputs.today_day + *day);
+        for (day, (((((zk, za), zm), f), nu), u)) in self.due.iter_mut().zip(points) {
+            *day = self.inputs.today_day + self.inputs.days_by_transform_or_nan(*zk, *za, *zm, *f, nu * nu, *u);
         }
     }
 }
@@ -950,7 +927,7 @@ pub fn vehicle_seed(base: u64, identifiers: &[&str]) -> u64 {
 
 #[cfg(test)]
 mod tests {
-    use super::{day_from_key, day_key, round_half_away_from_zero, snap_due_day, DaysOfPoints, DueInputs, QuantileInterpolation, DUE_QUANTILES};
+    use super::{round_half_away_from_zero, snap_due_day, DaysOfPoints, DueInputs, QuantileInterpolation, DUE_QUANTILES};
     use crate::energy_rate::EnergyRate;
     use crate::quasi_random::NormalScores;
 
@@ -984,12 +961,11 @@ mod tests {
                 today_day: 20_000.0,
             };
             let drift = scores.exp_scaled(2, drift_sd);
-            let (mut days, mut keys) = (vec![0.0; rate.len()], vec![0; rate.len()]);
-            pulp::Arch::new().dispatch(DaysOfPoints { inputs: &inputs, days: &mut days, keys: &mut keys, rate, anchor, energy, drift: &drift, passage, uniform });
-            for (i, (day, key)) in days.iter().zip(&keys).enumerate() {
-                let scalar = inputs.days_by_transform_or_nan(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]);
+            let mut due = vec![0.0; rate.len()];
+            pulp::Arch::new().dispatch(DaysOfPoints { inputs: &inputs, due: &mut due, rate, anchor, energy, drift: &drift, passage, uniform });
+            for (i, day) in due.iter().enumerate() {
+                let scalar = inputs.today_day + inputs.days_by_transform_or_nan(rate[i], anchor[i], energy[i], drift[i], passage[i] * passage[i], uniform[i]);
                 assert_eq!(day.to_bits(), scalar.to_bits(), "point {i}: {day} against {scalar}");
-                assert_eq!(*key, day_key(inputs.today_day + scalar), "point {i}");
             }
         }
     }
@@ -1000,21 +976,21 @@ mod tests {
     /// equal neighbours, zero fractions and negative days.
     #[test]
     fn the_vectorised_quantile_loop_is_the_scalar_one_bit_for_bit() {
-        let (mut low_keys, mut high_keys, mut fractions) = ([0; DUE_QUANTILES], [0; DUE_QUANTILES], [0.0; DUE_QUANTILES]);
+        let (mut low_days, mut high_days, mut fractions) = ([0.0; DUE_QUANTILES], [0.0; DUE_QUANTILES], [0.0; DUE_QUANTILES]);
         let mut expected = [0.0; DUE_QUANTILES];
         for i in 0..DUE_QUANTILES {
             let base = 20_000.0 + i as f64 * 0.37 - if i % 7 == 0 { 40_000.0 } else { 0.0 };
             let low = if i % 5 == 0 { base.floor() + 0.5 / 24.0 } else { base };
             let high = if i % 3 == 0 { low } else { low + (i % 11) as f64 * 0.013 };
             let fraction = if i % 4 == 0 { 0.0 } else { (i % 9) as f64 / 9.0 };
-            low_keys[i] = day_key(low);
-            high_keys[i] = day_key(high);
+            low_days[i] = low;
+            high_days[i] = high;
             fractions[i] = fraction;
             let between = low + fraction * (high - low);
             expected[i] = snap_due_day(if fraction == 0.0 || low == high { low } else { between });
         }
         let mut got = [0.0; DUE_QUANTILES];
-        pulp::Arch::new().dispatch(QuantileInterpolation { low: &low_keys, high: &high_keys, fraction: &fractions, out: &mut got });
+        pulp::Arch::new().dispatch(QuantileInterpolation { low: &low_days, high: &high_days, fraction: &fractions, out: &mut got });
         for (i, (g, e)) in got.iter().zip(&expected).enumerate() {
             assert_eq!(g.to_bits(), e.to_bits(), "quantile {i}: {g} against {e}");
         }
@@ -1035,16 +1011,5 @@ mod tests {
             assert_eq!(round_half_away_from_zero(v).to_bits(), v.round().to_bits(), "{v:e}");
         }
         assert!(round_half_away_from_zero(f64::NAN).is_nan());
-    }
-
-    #[test]
-    fn sorting_by_bit_pattern_is_the_total_order() {
-        let values = vec![3.5, -0.0, 20_123.25, -7.0, 0.0, 1e-300, -1e300, 20_123.0, f64::INFINITY, f64::NEG_INFINITY];
-        let mut expected = values.clone();
-        expected.sort_by(f64::total_cmp);
-        let mut keys: Vec<i64> = values.iter().map(|v| day_key(*v)).collect();
-        keys.sort_unstable();
-        let values: Vec<f64> = keys.into_iter().map(day_from_key).collect();
-        assert_eq!(values.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
     }
 }

@@ -33,6 +33,7 @@
 //! - [`calibration`]: band coverage and due-date error on a simulated fleet, with baselines.
 
 pub mod calibration;
+pub mod day_sort;
 pub mod domain;
 pub mod energy_rate;
 pub mod error;
