@@ -10,13 +10,16 @@
 //! PostgreSQL runs as a throwaway cluster in a temporary directory, listening on a unix socket
 //! in that directory only (no TCP), with its default settings; it is stopped and deleted at the
 //! end. The inspection points (part, cumulative energy MJ, thickness mm) are written with
-//! `COPY ... FROM STDIN`, then `VACUUM ANALYZE`d, and the query is timed by psql's `\timing`
-//! (server round trip, no client start-up), median of 3, first with the default `work_mem`
-//! (4 MB) and then with `work_mem = '1GB'`. The query returns the count and sum of the slopes,
-//! so every slope is computed but 400,000 rows need not cross the socket.
+//! `COPY ... FROM STDIN`, then `VACUUM ANALYZE`d, and the query is run once unmeasured and then
+//! timed by psql's `\timing` (server round trip, no client start-up). The query returns the
+//! count and sum of the slopes, so every slope is computed but 400,000 rows need not cross the
+//! socket.
 //!
-//! The refresh is `pipeline::forecast_parts` on both cores (rayon), median of 3 rounds, as the
-//! service's refresh runs it (no chart trajectories); with `BRAKELEDGER_BENCH_ONE_THREAD=1` the
+//! The refresh is `pipeline::forecast_parts_in_passes` on both cores (rayon), as the service's
+//! refresh runs it (no chart trajectories). The two are measured in 5 interleaved rounds (the
+//! query at PostgreSQL's default settings, the refresh, the query with `work_mem = '1GB'`), so
+//! that a machine that slows down or speeds up during the run weighs on both alike; the medians
+//! and each round's ratios are printed. With `BRAKELEDGER_BENCH_ONE_THREAD=1` the
 //! same on one thread is printed beside it. The bench links jemalloc with the service's
 //! settings (`tikv-jemallocator`, a dev-dependency, and `.cargo/config.toml`), as the server
 //! binary does, so the refresh allocates as it does in the service; the models crate itself
@@ -39,6 +42,8 @@ use brakeledger_models::{ForecastSettings, PartEventKind};
 
 const DEFAULT_PARTS: usize = 400_000;
 const ROUNDS: usize = 3;
+/// Rounds of the refresh interleaved with PostgreSQL's query.
+const INTERLEAVED_ROUNDS: usize = 5;
 /// Vehicles per pass of the service's forecast worker (`[forecast] batch_vehicles`, default).
 const PASS_VEHICLES: usize = 256;
 
@@ -172,20 +177,20 @@ impl Postgres {
         self.run_psql(&["-c", sql], stdin)
     }
 
-    /// Median server time of `query` over [`ROUNDS`] runs after `setup`, ms, by psql's `\timing`.
+    /// Server time of `query` after `setup`, ms, by psql's `\timing`, and its answer.
     fn time_query(&self, setup: &str, query: &str) -> Result<(f64, String), String> {
-        let script = format!("{setup}\n\\timing on\n{}", [query; ROUNDS].join("\n"));
+        let script = format!("{setup}\n\\timing on\n{query}");
         let text = self.run_psql(&["-A", "-t"], Some(&script))?;
         let times: Vec<f64> = text
             .lines()
             .filter_map(|l| l.strip_prefix("Time: "))
             .filter_map(|l| l.split_whitespace().next()?.parse().ok())
             .collect();
-        if times.len() != ROUNDS {
-            return Err(format!("expected {ROUNDS} timings from psql, got: {text}"));
-        }
+        let [time] = times[..] else {
+            return Err(format!("expected one timing from psql, got: {text}"));
+        };
         let answer = text.lines().find(|l| !l.starts_with("Time: ") && !l.is_empty()).unwrap_or("").to_owned();
-        Ok((median(times), answer))
+        Ok((time, answer))
     }
 }
 
@@ -254,20 +259,46 @@ fn main() {
     let (csv, rows) = inspection_csv(&inputs);
     println!("{parts} parts, {rows} inspection points, {} threads", rayon::current_num_threads());
 
+    let query = "SELECT count(slope), sum(slope) FROM (SELECT part_id, regr_slope(thickness_mm, energy_mj) AS slope FROM inspection_points GROUP BY part_id) AS s;";
     let postgres = Postgres::start().and_then(|pg| {
         pg.psql("CREATE TABLE inspection_points (part_id integer NOT NULL, energy_mj double precision NOT NULL, thickness_mm double precision NOT NULL)", None)?;
         let started = Instant::now();
         pg.psql("COPY inspection_points FROM STDIN WITH (FORMAT csv)", Some(&csv))?;
         let copy_s = started.elapsed().as_secs_f64();
         pg.psql("VACUUM ANALYZE inspection_points", None)?;
-        let query = "SELECT count(slope), sum(slope) FROM (SELECT part_id, regr_slope(thickness_mm, energy_mj) AS slope FROM inspection_points GROUP BY part_id) AS s;";
-        let default = pg.time_query("", query)?;
-        let raised = pg.time_query("SET work_mem = '1GB';", query)?;
+        // One unmeasured run of each, so that every measured one finds the table in memory.
+        pg.time_query("", query)?;
         let version = pg.psql("SHOW server_version", None)?;
-        Ok((copy_s, default, raised, version.lines().nth(2).unwrap_or("").trim().to_owned()))
+        Ok((pg, copy_s, version.lines().nth(2).unwrap_or("").trim().to_owned()))
     });
 
-    let (refresh_s, refresh_cpu_s, dated) = time_refresh(|| refresh_in_passes(&inputs, today, &settings));
+    // Interleaved, round by round: PostgreSQL at default settings, the refresh, PostgreSQL with
+    // `work_mem` raised. A machine that slows down or speeds up during the run then weighs on
+    // both sides alike; each round's ratio is printed beside the ratio of the medians.
+    let mut rounds: Vec<(f64, f64, Option<(f64, f64)>)> = Vec::new();
+    let mut pg_result: Result<String, String> = Ok(String::new());
+    let mut dated = 0;
+    for _ in 0..INTERLEAVED_ROUNDS {
+        let default = postgres.as_ref().map_err(Clone::clone).and_then(|(pg, _, _)| pg.time_query("", query));
+        let cpu = process_cpu_s();
+        let started = Instant::now();
+        dated = refresh_in_passes(&inputs, today, &settings);
+        let (wall, cpu) = (started.elapsed().as_secs_f64(), process_cpu_s() - cpu);
+        let raised = postgres.as_ref().map_err(Clone::clone).and_then(|(pg, _, _)| pg.time_query("SET work_mem = '1GB';", query));
+        let pg_times = match (default, raised) {
+            (Ok((default_ms, answer)), Ok((raised_ms, _))) => {
+                pg_result = Ok(answer);
+                Some((default_ms / 1e3, raised_ms / 1e3))
+            }
+            (Err(e), _) | (_, Err(e)) => {
+                pg_result = Err(e);
+                None
+            }
+        };
+        rounds.push((wall, cpu, pg_times));
+    }
+    let refresh_s = median(rounds.iter().map(|r| r.0).collect());
+    let refresh_cpu_s = median(rounds.iter().map(|r| r.1).collect());
     let (whole_s, whole_cpu_s, _) = time_refresh(|| refresh_held_whole(&inputs, today, &settings));
     let cpu = process_cpu_s();
     let started = Instant::now();
@@ -295,12 +326,23 @@ fn main() {
     if let Some(single_s) = single {
         println!("| the same on one thread | {single_s:.3} s | {:.2} |", single_s / refresh_s);
     }
-    match postgres {
-        Ok((copy_s, (default_ms, answer), (raised_ms, _), version)) => {
-            println!("| PostgreSQL {version} `regr_slope ... GROUP BY` only, default settings | {:.3} s | {:.2} |", default_ms / 1e3, default_ms / 1e3 / refresh_s);
-            println!("| the same with `work_mem = '1GB'` | {:.3} s | {:.2} |", raised_ms / 1e3, raised_ms / 1e3 / refresh_s);
+    let pg_rounds: Vec<(f64, f64)> = rounds.iter().filter_map(|r| r.2).collect();
+    match (&postgres, &pg_result) {
+        (Ok((_, copy_s, version)), Ok(answer)) if pg_rounds.len() == rounds.len() => {
+            let default_s = median(pg_rounds.iter().map(|p| p.0).collect());
+            let raised_s = median(pg_rounds.iter().map(|p| p.1).collect());
+            println!("| PostgreSQL {version} `regr_slope ... GROUP BY` only, default settings | {default_s:.3} s | {:.2} |", default_s / refresh_s);
+            println!("| the same with `work_mem = '1GB'` | {raised_s:.3} s | {:.2} |", raised_s / refresh_s);
             println!("(COPY of {rows} points took {copy_s:.2} s; slopes count|sum: {answer})");
+            println!();
+            println!("Round by round (PostgreSQL default, refresh, PostgreSQL `work_mem = '1GB'`; ratio = PostgreSQL / refresh):");
+            for (i, (wall, _, pg)) in rounds.iter().enumerate() {
+                if let Some((default, raised)) = pg {
+                    println!("- round {}: {default:.3} s, {wall:.3} s, {raised:.3} s: {:.2} / {:.2}", i + 1, default / wall, raised / wall);
+                }
+            }
         }
-        Err(reason) => how_to_get_postgres(&reason),
+        (Err(reason), _) | (_, Err(reason)) => how_to_get_postgres(reason),
+        _ => how_to_get_postgres("a PostgreSQL round failed"),
     }
 }
