@@ -52,7 +52,7 @@ use crate::energy_rate::{estimate_energy_rate, EnergyRate};
 use crate::first_passage::FirstPassage;
 use crate::quasi_random::NormalScores;
 use crate::pooling::{combine, combine_lognormal, own_rate_variance, rate_variance_inflation, shrunk_residual_variance, wear_drift_sd, RatePrior};
-use crate::wear_fit::{fit_part_any_sign, rate_sums, WearFit};
+use crate::wear_fit::{fit_part_rate, rate_sums, WearFit};
 use crate::wear_history::PartHistory;
 use crate::day_sort::sort_days;
 
@@ -137,15 +137,14 @@ impl DueDistribution {
         // thread's buffers), then the interpolation and the rounding to the hour in one
         // vectorised loop, written straight into the distribution's vector.
         let mut quantile_days = vec![0.0; DUE_QUANTILES];
-        QUANTILE_POSITIONS.with(|cell| {
+        QUANTILE_SCRATCH.with(|cell| {
             let mut cached = cell.borrow_mut();
             let QuantileScratch { count, positions, fraction, low, high } = &mut *cached;
             if *count != n {
                 *count = n;
-                *positions = quantile_positions(n);
-                *fraction = positions.map(|p| p.2);
+                (*positions, *fraction) = quantile_positions(n);
             }
-            for (i, &(lo, hi, _)) in positions.iter().enumerate() {
+            for (i, &(lo, hi)) in positions.iter().enumerate() {
                 low[i] = days[lo];
                 high[i] = days[hi];
             }
@@ -201,13 +200,12 @@ impl DueDistribution {
 }
 
 /// What [`DueDistribution::from_due_days`] keeps per thread: the count of sorted draws it
-/// last read quantiles from, [`quantile_positions`] of it and their fractions (the
-/// quasi-random integral gives nearly every part the same count, so the positions are worked
-/// out once per thread rather than once per part), and the buffers the draws around each
-/// position are gathered into.
+/// last read quantiles from, [`quantile_positions`] of it (the quasi-random integral gives
+/// nearly every part the same count, so the positions are worked out once per thread rather
+/// than once per part), and the buffers the draws around each position are gathered into.
 struct QuantileScratch {
     count: usize,
-    positions: [(usize, usize, f64); DUE_QUANTILES],
+    positions: [(usize, usize); DUE_QUANTILES],
     fraction: [f64; DUE_QUANTILES],
     low: [f64; DUE_QUANTILES],
     high: [f64; DUE_QUANTILES],
@@ -215,10 +213,10 @@ struct QuantileScratch {
 
 thread_local! {
     /// This thread's [`QuantileScratch`].
-    static QUANTILE_POSITIONS: RefCell<QuantileScratch> = const {
+    static QUANTILE_SCRATCH: RefCell<QuantileScratch> = const {
         RefCell::new(QuantileScratch {
             count: 0,
-            positions: [(0, 0, 0.0); DUE_QUANTILES],
+            positions: [(0, 0); DUE_QUANTILES],
             fraction: [0.0; DUE_QUANTILES],
             low: [0.0; DUE_QUANTILES],
             high: [0.0; DUE_QUANTILES],
@@ -227,15 +225,20 @@ thread_local! {
 }
 
 /// Where each probability of [`DUE_PROBABILITIES`] lies among `n` sorted draws (`n` ≥ 1):
-/// `(lo, hi, frac)` with the quantile `draws[lo] + frac·(draws[hi] − draws[lo])`, at position
-/// `p·(n − 1)` (linear interpolation between order statistics).
-fn quantile_positions(n: usize) -> [(usize, usize, f64); DUE_QUANTILES] {
-    DUE_PROBABILITIES.map(|p| {
+/// the pairs `(lo, hi)` and the fractions `frac` with the quantile
+/// `draws[lo] + frac·(draws[hi] − draws[lo])`, at position `p·(n − 1)` (linear interpolation
+/// between order statistics).
+fn quantile_positions(n: usize) -> ([(usize, usize); DUE_QUANTILES], [f64; DUE_QUANTILES]) {
+    let mut pairs = [(0, 0); DUE_QUANTILES];
+    let mut fractions = [0.0; DUE_QUANTILES];
+    for ((pair, fraction), p) in pairs.iter_mut().zip(&mut fractions).zip(DUE_PROBABILITIES) {
         let pos = p * (n - 1) as f64;
         // ⌊pos⌋ for pos ≥ 0 by truncation (a conversion, not a call to `floor`).
         let lo = pos as usize;
-        (lo, (lo + 1).min(n - 1), pos - lo as f64)
-    })
+        *pair = (lo, (lo + 1).min(n - 1));
+        *fraction = pos - lo as f64;
+    }
+    (pairs, fractions)
 }
 
 /// The quantiles of [`DueDistribution::from_due_days`] from the sorted draws around
@@ -343,7 +346,7 @@ fn own_estimate(
     let fitted = match own_fit {
         Some(f) => Some(f),
         None => {
-            refitted = fit_part_any_sign(history, settings).ok();
+            refitted = fit_part_rate(history, settings).ok();
             refitted.as_ref()
         }
     };

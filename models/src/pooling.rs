@@ -510,23 +510,18 @@ pub fn combine_lognormal(own_mean: f64, own_variance: f64, prior: &RatePrior) ->
     let largest_step = (STEP_CURVATURE / curvature.sqrt()).min(MAX_LOG_RATE_STEP);
     let stride = if largest_step.is_finite() { ((largest_step / step) as usize).clamp(1, LOG_RATE_GRID_POINTS) } else { 1 };
     let stride_ratio = ratio.powi(stride as i32);
-    // Two passes over those points, k by repeated multiplication from the first: the largest
-    // log density, then the weights (recomputing a log density is cheaper than storing it).
-    let points = || {
-        let mut k = k_at(first);
-        (first..=end).step_by(stride).map(move |j| {
-            let point = (log_density(j, k), k);
-            k *= stride_ratio;
-            point
-        })
-    };
+    // Each of those points' log density and rate into this thread's buffers (k by repeated
+    // multiplication from the first), then the largest log density, then the weights in one
+    // vectorised loop.
     let (w0, w1, w2) = GRID.with(|grid| {
         let (log_densities, rates) = &mut *grid.borrow_mut();
         log_densities.clear();
         rates.clear();
-        for (ld, k) in points() {
-            log_densities.push(ld);
+        let mut k = k_at(first);
+        for j in (first..=end).step_by(stride) {
+            log_densities.push(log_density(j, k));
             rates.push(k);
+            k *= stride_ratio;
         }
         let top = log_densities.iter().fold(f64::NEG_INFINITY, |top, ld| top.max(*ld));
         pulp::Arch::new().dispatch(WeightedMoments { log_densities, rates, top })

@@ -14,9 +14,9 @@
 /// `x/ln 2` is rounded to an integer by adding this (`1.5·2⁵²`): the sum's last bits then hold it.
 const ROUNDING_SHIFT: f64 = 6_755_399_441_055_744.0;
 /// ln 2 to 32 bits (its last 21 bits zero, so `n·LN2_HI` is exact for `|n| < 2¹¹`).
-const LN2_HI: f64 = 6.931_471_803_691_238_164_90e-1;
+const LN2_HI: f64 = 6.931_471_803_691_238e-1;
 /// ln 2 − [`LN2_HI`].
-const LN2_LO: f64 = 1.908_214_929_270_587_700_02e-10;
+const LN2_LO: f64 = 1.908_214_929_270_587_7e-10;
 /// Below this, `eˣ` is under the smallest normal f64 and is given as 0.
 const SMALLEST_ARGUMENT: f64 = -708.0;
 

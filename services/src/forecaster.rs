@@ -160,7 +160,8 @@ pub fn model_settings(config: &ForecastConfig, band_level: f64) -> ForecastSetti
 pub struct ComputedPart {
     /// The model input it came from.
     pub input: PartInput,
-    /// The vehicle's own fit, when one could be made.
+    /// The vehicle's own fit, when one could be made, without its coefficients
+    /// ([`fit_part_rate`], as `forecast_vehicle` makes it).
     pub own_fit: Option<WearFit>,
     /// The outlook.
     pub outlook: PartOutlook,
@@ -206,7 +207,7 @@ pub fn materialise(data: &VehicleData, parts: &[ComputedPart], now_ms: i64) -> V
             .map(|p| StoredPart {
                 axle_index: p.input.history.axle_index,
                 component: p.input.history.component,
-                own_fit: p.own_fit.clone().map(WearFit::without_coefficients),
+                own_fit: p.own_fit.clone(),
                 outlook: PartOutlook { trajectory: Vec::new(), ..p.outlook.clone() },
             })
             .collect(),

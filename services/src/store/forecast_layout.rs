@@ -284,7 +284,7 @@ pub fn computed_forecasts(vehicles: usize) -> Vec<(VehicleForecasts, Vec<Option<
         record.parts.push(StoredPart {
             axle_index: input.history.axle_index,
             component: input.history.component,
-            own_fit: result.own_fit.clone().map(WearFit::without_coefficients),
+            own_fit: result.own_fit.clone(),
             outlook: result.outlook,
         });
         fits.push(result.own_fit);
